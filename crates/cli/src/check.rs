@@ -147,7 +147,16 @@ fn usable(id: &Identification) -> Vec<Route> {
 /// Decides the question's status from the routes and what it declares.
 fn assess(q: &Question, id: &Identification) -> (bool, Option<Chosen>, Vec<String>) {
     let mut problems = Vec::new();
-    let wanted = q.method.route();
+    // With `auto`, a declared set says which route the user means.
+    let wanted = q.method.route().or(if q.adjust.is_some() {
+        Some(Route::Adjustment)
+    } else if q.mediators.is_some() {
+        Some(Route::FrontDoor)
+    } else if q.instruments.is_some() {
+        Some(Route::Instrument)
+    } else {
+        None
+    });
     let adjust = || -> Option<Chosen> {
         if let Some(dc) = &id.adjustment.declared {
             if !dc.valid {
@@ -237,30 +246,58 @@ fn assess(q: &Question, id: &Identification) -> (bool, Option<Chosen>, Vec<Strin
     };
     if chosen.is_none() {
         if let Some(r) = wanted {
-            let why = match r {
-                Route::Adjustment => id.adjustment.open_path.as_ref().map(|p| format!("the path {p} cannot be blocked by observed variables")),
-                Route::FrontDoor => id.front_door.reason.clone(),
-                Route::Instrument => id.instrument.reason.clone(),
-            };
-            let others: Vec<&str> = usable(id)
-                .into_iter()
-                .map(|u| match u {
-                    Route::Adjustment => "a backdoor method (regress, weight, doubly-robust, ...)",
-                    Route::FrontDoor => "--method front-door",
-                    Route::Instrument => "--method iv",
-                })
-                .collect();
-            let hint = if others.is_empty() {
-                String::new()
+            let works = usable(id).contains(&r);
+            if works {
+                let instead = match r {
+                    Route::Adjustment => id
+                        .adjustment
+                        .optimal_set
+                        .clone()
+                        .or_else(|| id.adjustment.minimal_sets.first().cloned())
+                        .map(|s| format!("the adjustment set {}", set(&s))),
+                    Route::FrontDoor => id.front_door.sets.first().map(|s| format!("the mediators {}", set(s))),
+                    Route::Instrument => id.instrument.found.first().map(|i| {
+                        let given = if i.given.is_empty() { String::new() } else { format!(" given {}", set(&i.given)) };
+                        format!("the instrument {}{given}", i.instrument)
+                    }),
+                };
+                if let Some(instead) = instead {
+                    problems.push(format!("{} works: declare it instead, or drop the declaration", instead));
+                }
             } else {
-                format!("; routes that do work: use {}", others.join(" or "))
-            };
-            problems.push(format!(
-                "method `{}` needs the {} route, which does not identify this effect{}{hint}",
-                q.method.as_str(),
-                route_word(r),
-                why.map(|w| format!(": {w}")).unwrap_or_default()
-            ));
+                let why = match r {
+                    Route::Adjustment => id
+                        .adjustment
+                        .open_path
+                        .as_ref()
+                        .map(|p| format!("the path {p} cannot be blocked by observed variables")),
+                    Route::FrontDoor => id.front_door.reason.clone(),
+                    Route::Instrument => id.instrument.reason.clone(),
+                };
+                let others: Vec<&str> = usable(id)
+                    .into_iter()
+                    .map(|u| match u {
+                        Route::Adjustment => "a backdoor method (regress, weight, doubly-robust, ...)",
+                        Route::FrontDoor => "--method front-door",
+                        Route::Instrument => "--method iv",
+                    })
+                    .collect();
+                let hint = if others.is_empty() {
+                    String::new()
+                } else {
+                    format!("; routes that do work: use {}", others.join(" or "))
+                };
+                let what = if q.method == Method::Auto {
+                    "the declared set".to_string()
+                } else {
+                    format!("method `{}`", q.method.as_str())
+                };
+                problems.push(format!(
+                    "{what} needs the {} route, which does not identify this effect{}{hint}",
+                    route_word(r),
+                    why.map(|w| format!(": {w}")).unwrap_or_default()
+                ));
+            }
         }
     }
     (chosen.is_some(), chosen, problems)
@@ -417,10 +454,11 @@ fn render(doc: &Document, d: &Diagram) -> String {
     let pairs = doc.diagram.latent_common_causes.len();
     let _ = writeln!(
         o,
-        "diagram: {} variables ({} latent), {} edges{}",
+        "diagram: {} variables ({} latent), {} edge{}{}",
         doc.diagram.variables.len(),
         latent - pairs,
         doc.diagram.edges.len(),
+        if doc.diagram.edges.len() == 1 { "" } else { "s" },
         if pairs > 0 { format!(", {pairs} latent common causes (<->)") } else { String::new() }
     );
     let _ = d;

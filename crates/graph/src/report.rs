@@ -184,8 +184,8 @@ pub fn identify(d: &Diagram, treatment: &[String], outcome: &[String], declared:
             .iter()
             .min_by_key(|s| (s.difference(&obs).len(), s.len(), d.sorted_names(s)))
         {
-            measure = Some(d.sorted_names(&s.difference(&obs)));
-            set_if_measured = Some(d.sorted_names(s));
+            measure = Some(display_names(d, &s.difference(&obs)));
+            set_if_measured = Some(display_names(d, s));
         }
     }
     let declared_adjust = declared.adjust.as_ref().map(|a| {
@@ -316,6 +316,19 @@ pub fn implied(d: &Diagram) -> Vec<NamedIndependence> {
             given: d.sorted_names(&i.given),
         })
         .collect()
+}
+
+/// Sorted names, with the stand-in of `a <-> b` shown as "a common cause of a and b".
+fn display_names(d: &Diagram, s: &NodeSet) -> Vec<String> {
+    let mut v: Vec<String> = s
+        .iter()
+        .map(|i| match d.node(i).confounds {
+            Some((a, b)) => format!("a common cause of {} and {}", d.name(a), d.name(b)),
+            None => d.name(i).to_string(),
+        })
+        .collect();
+    v.sort();
+    v
 }
 
 fn list(names: &[String]) -> String {

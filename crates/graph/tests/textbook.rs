@@ -94,7 +94,7 @@ fn front_door() {
     let r = report(&g, &v(&["t"]), &v(&["y"]), &Declared::default());
     assert!(!r.adjustment.exists);
     assert_eq!(r.adjustment.open_path.as_deref(), Some("t <-> y"));
-    assert_eq!(r.adjustment.measure_to_adjust, Some(v(&["t <-> y"])));
+    assert_eq!(r.adjustment.measure_to_adjust, Some(v(&["a common cause of t and y"])));
     assert_eq!(r.front_door.sets, vec![v(&["m"])]);
     assert!(r.instrument.found.is_empty());
     // Each condition, broken in turn.
