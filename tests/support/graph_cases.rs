@@ -22,10 +22,12 @@ fn main() {
     let mut i = 1;
     while i < args.len() {
         let val = |i: usize| -> u64 {
-            args.get(i + 1).and_then(|v| v.parse().ok()).unwrap_or_else(|| {
-                eprintln!("graph-cases: {} needs a number", args[i]);
-                std::process::exit(2)
-            })
+            args.get(i + 1)
+                .and_then(|v| v.parse().ok())
+                .unwrap_or_else(|| {
+                    eprintln!("graph-cases: {} needs a number", args[i]);
+                    std::process::exit(2)
+                })
         };
         match args[i].as_str() {
             "--graphs" => graphs = val(i) as usize,
@@ -95,7 +97,8 @@ fn main() {
             let y = d.dag().set([yv]);
             let rest: Vec<usize> = rest.into_iter().filter(|v| *v != yv).collect();
             let z = random_subset(&mut r, &rest, 35, n);
-            let (minimal, complete) = identify::minimal_adjustment_sets(&d, &x, &y, &d.observed(), 200);
+            let (minimal, complete) =
+                identify::minimal_adjustment_sets(&d, &x, &y, &d.observed(), 200);
             queries.push(json!({
                 "kind": "adjust", "x": names(&x), "y": names(&y), "z": names(&z),
                 "valid": identify::check_adjustment(&d, &x, &y, &z).valid,

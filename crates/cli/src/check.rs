@@ -52,7 +52,10 @@ pub struct Args {
 }
 
 fn clean(v: Vec<String>) -> Vec<String> {
-    v.into_iter().map(|s| s.trim().to_string()).filter(|s| !s.is_empty()).collect()
+    v.into_iter()
+        .map(|s| s.trim().to_string())
+        .filter(|s| !s.is_empty())
+        .collect()
 }
 
 fn read_graph(value: &str) -> Result<(String, String), Failure> {
@@ -65,10 +68,15 @@ fn read_graph(value: &str) -> Result<(String, String), Failure> {
     }
     let p = Path::new(value);
     if p.is_file() {
-        let s = std::fs::read_to_string(p).map_err(|e| Failure::input(format!("--graph: cannot read {value}: {e}")))?;
+        let s = std::fs::read_to_string(p)
+            .map_err(|e| Failure::input(format!("--graph: cannot read {value}: {e}")))?;
         return Ok((s, value.to_string()));
     }
-    if value.contains("->") || value.contains("<-") || value.trim_start().starts_with("digraph") || value.contains(';') {
+    if value.contains("->")
+        || value.contains("<-")
+        || value.trim_start().starts_with("digraph")
+        || value.contains(';')
+    {
         return Ok((value.to_string(), "--graph".into()));
     }
     Err(Failure::input(format!(
@@ -202,12 +210,22 @@ fn assess(q: &Question, id: &Identification) -> (bool, Option<Chosen>, Vec<Strin
     };
     let instrument = || -> Option<Chosen> {
         if !id.instrument.declared.is_empty() {
-            return id.instrument.declared.iter().all(|c| c.valid).then(|| Chosen {
-                route: Route::Instrument,
-                set: id.instrument.declared.iter().flat_map(|c| c.set.clone()).collect(),
-                given: q.instrument_given.clone(),
-                why: "the declared instruments are valid".into(),
-            });
+            return id
+                .instrument
+                .declared
+                .iter()
+                .all(|c| c.valid)
+                .then(|| Chosen {
+                    route: Route::Instrument,
+                    set: id
+                        .instrument
+                        .declared
+                        .iter()
+                        .flat_map(|c| c.set.clone())
+                        .collect(),
+                    given: q.instrument_given.clone(),
+                    why: "the declared instruments are valid".into(),
+                });
         }
         id.instrument.found.first().map(|i| Chosen {
             route: Route::Instrument,
@@ -222,13 +240,21 @@ fn assess(q: &Question, id: &Identification) -> (bool, Option<Chosen>, Vec<Strin
     ] {
         if let Some(c) = c {
             if !c.valid {
-                problems.push(format!("declared {label} {{{}}} does not work: {}", c.set.join(", "), c.problems.join("; ")));
+                problems.push(format!(
+                    "declared {label} {{{}}} does not work: {}",
+                    c.set.join(", "),
+                    c.problems.join("; ")
+                ));
             }
         }
     }
     for c in &id.instrument.declared {
         if !c.valid {
-            problems.push(format!("declared instrument {} does not work: {}", c.set.join(", "), c.problems.join("; ")));
+            problems.push(format!(
+                "declared instrument {} does not work: {}",
+                c.set.join(", "),
+                c.problems.join("; ")
+            ));
         }
     }
     if !id.causal_path {
@@ -255,29 +281,41 @@ fn assess(q: &Question, id: &Identification) -> (bool, Option<Chosen>, Vec<Strin
                         .clone()
                         .or_else(|| id.adjustment.minimal_sets.first().cloned())
                         .map(|s| format!("the adjustment set {}", set(&s))),
-                    Route::FrontDoor => id.front_door.sets.first().map(|s| format!("the mediators {}", set(s))),
+                    Route::FrontDoor => id
+                        .front_door
+                        .sets
+                        .first()
+                        .map(|s| format!("the mediators {}", set(s))),
                     Route::Instrument => id.instrument.found.first().map(|i| {
-                        let given = if i.given.is_empty() { String::new() } else { format!(" given {}", set(&i.given)) };
+                        let given = if i.given.is_empty() {
+                            String::new()
+                        } else {
+                            format!(" given {}", set(&i.given))
+                        };
                         format!("the instrument {}{given}", i.instrument)
                     }),
                 };
                 if let Some(instead) = instead {
-                    problems.push(format!("{} works: declare it instead, or drop the declaration", instead));
+                    problems.push(format!(
+                        "{} works: declare it instead, or drop the declaration",
+                        instead
+                    ));
                 }
             } else {
-                let why = match r {
-                    Route::Adjustment => id
-                        .adjustment
-                        .open_path
-                        .as_ref()
-                        .map(|p| format!("the path {p} cannot be blocked by observed variables")),
-                    Route::FrontDoor => id.front_door.reason.clone(),
-                    Route::Instrument => id.instrument.reason.clone(),
-                };
+                let why =
+                    match r {
+                        Route::Adjustment => id.adjustment.open_path.as_ref().map(|p| {
+                            format!("the path {p} cannot be blocked by observed variables")
+                        }),
+                        Route::FrontDoor => id.front_door.reason.clone(),
+                        Route::Instrument => id.instrument.reason.clone(),
+                    };
                 let others: Vec<&str> = usable(id)
                     .into_iter()
                     .map(|u| match u {
-                        Route::Adjustment => "a backdoor method (regress, weight, doubly-robust, ...)",
+                        Route::Adjustment => {
+                            "a backdoor method (regress, weight, doubly-robust, ...)"
+                        }
                         Route::FrontDoor => "--method front-door",
                         Route::Instrument => "--method iv",
                     })
@@ -341,7 +379,11 @@ pub fn run(a: Args) -> Result<i32, Failure> {
     let json = match a.format.as_str() {
         "text" => false,
         "json" => true,
-        f => return Err(Failure::input(format!("--format: unknown format `{f}`; expected text or json"))),
+        f => {
+            return Err(Failure::input(format!(
+                "--format: unknown format `{f}`; expected text or json"
+            )))
+        }
     };
     let overrides = QuestionInput {
         treatment: clean(a.treatment),
@@ -374,7 +416,10 @@ pub fn run(a: Args) -> Result<i32, Failure> {
         questions.retain(|q| &q.name == name);
         if questions.is_empty() {
             let names: Vec<&str> = study.questions.iter().map(|q| q.name.as_str()).collect();
-            return Err(Failure::input(format!("--question: no question `{name}`; the study has: {}", names.join(", "))));
+            return Err(Failure::input(format!(
+                "--question: no question `{name}`; the study has: {}",
+                names.join(", ")
+            )));
         }
     }
     let d = &study.diagram;
@@ -403,7 +448,11 @@ pub fn run(a: Args) -> Result<i32, Failure> {
             identification: id,
         });
     }
-    let code = if reports.iter().all(|r| r.identified) { OK } else { NOT_IDENTIFIED };
+    let code = if reports.iter().all(|r| r.identified) {
+        OK
+    } else {
+        NOT_IDENTIFIED
+    };
     let (edges, pairs) = d.declared_edges();
     let doc = Document {
         format: "upshot-check/1",
@@ -421,8 +470,14 @@ pub fn run(a: Args) -> Result<i32, Failure> {
                     kind: n.kind,
                 })
                 .collect(),
-            edges: edges.iter().map(|&(x, y)| [d.name(x).to_string(), d.name(y).to_string()]).collect(),
-            latent_common_causes: pairs.iter().map(|&(x, y)| [d.name(x).to_string(), d.name(y).to_string()]).collect(),
+            edges: edges
+                .iter()
+                .map(|&(x, y)| [d.name(x).to_string(), d.name(y).to_string()])
+                .collect(),
+            latent_common_causes: pairs
+                .iter()
+                .map(|&(x, y)| [d.name(x).to_string(), d.name(y).to_string()])
+                .collect(),
         },
         implied_independences: report::implied(d),
         questions: reports,
@@ -444,12 +499,21 @@ fn set(s: &[String]) -> String {
 fn render(doc: &Document, d: &Diagram) -> String {
     use std::fmt::Write;
     let mut o = String::new();
-    let latent = doc.diagram.variables.iter().filter(|v| v.role == Role::Latent).count() + doc.diagram.latent_common_causes.len();
+    let latent = doc
+        .diagram
+        .variables
+        .iter()
+        .filter(|v| v.role == Role::Latent)
+        .count()
+        + doc.diagram.latent_common_causes.len();
     let _ = writeln!(
         o,
         "upshot check · {}{}",
         doc.study_name,
-        doc.study.as_ref().map(|p| format!(" ({p})")).unwrap_or_default()
+        doc.study
+            .as_ref()
+            .map(|p| format!(" ({p})"))
+            .unwrap_or_default()
     );
     let pairs = doc.diagram.latent_common_causes.len();
     let _ = writeln!(
@@ -458,8 +522,16 @@ fn render(doc: &Document, d: &Diagram) -> String {
         doc.diagram.variables.len(),
         latent - pairs,
         doc.diagram.edges.len(),
-        if doc.diagram.edges.len() == 1 { "" } else { "s" },
-        if pairs > 0 { format!(", {pairs} latent common causes (<->)") } else { String::new() }
+        if doc.diagram.edges.len() == 1 {
+            ""
+        } else {
+            "s"
+        },
+        if pairs > 0 {
+            format!(", {pairs} latent common causes (<->)")
+        } else {
+            String::new()
+        }
     );
     let _ = d;
     for q in &doc.questions {
@@ -480,11 +552,26 @@ fn render(doc: &Document, d: &Diagram) -> String {
             segs,
             q.method
         );
-        let status = if q.identified { "IDENTIFIED" } else { "NOT IDENTIFIED" };
+        let status = if q.identified {
+            "IDENTIFIED"
+        } else {
+            "NOT IDENTIFIED"
+        };
         match &q.chosen {
             Some(c) => {
-                let given = if c.given.is_empty() { String::new() } else { format!(" given {}", set(&c.given)) };
-                let _ = writeln!(o, "   {status} — using {} {}{} ({})", route_word(c.route), set(&c.set), given, c.why);
+                let given = if c.given.is_empty() {
+                    String::new()
+                } else {
+                    format!(" given {}", set(&c.given))
+                };
+                let _ = writeln!(
+                    o,
+                    "   {status} — using {} {}{} ({})",
+                    route_word(c.route),
+                    set(&c.set),
+                    given,
+                    c.why
+                );
             }
             None => {
                 let _ = writeln!(o, "   {status}");
@@ -513,12 +600,20 @@ fn render(doc: &Document, d: &Diagram) -> String {
                 _ => {}
             }
         } else {
-            let _ = writeln!(o, "     none             no observed set blocks every non-causal path");
+            let _ = writeln!(
+                o,
+                "     none             no observed set blocks every non-causal path"
+            );
             if let Some(p) = &a.open_path {
                 let _ = writeln!(o, "     open path        {p}");
             }
             if let (Some(m), Some(s)) = (&a.measure_to_adjust, &a.set_if_measured) {
-                let _ = writeln!(o, "     would need       measuring {} (then adjust for {})", set(m), set(s));
+                let _ = writeln!(
+                    o,
+                    "     would need       measuring {} (then adjust for {})",
+                    set(m),
+                    set(s)
+                );
             }
         }
         if let Some(c) = &a.declared {
@@ -527,7 +622,11 @@ fn render(doc: &Document, d: &Diagram) -> String {
         let f = &id.front_door;
         if f.applicable {
             if f.sets.is_empty() {
-                let _ = writeln!(o, "   front-door         none: {}", f.reason.clone().unwrap_or_default());
+                let _ = writeln!(
+                    o,
+                    "   front-door         none: {}",
+                    f.reason.clone().unwrap_or_default()
+                );
             } else {
                 let shown: Vec<String> = f.sets.iter().map(|s| set(s)).collect();
                 let _ = writeln!(o, "   front-door         mediators {}", shown.join("  "));
@@ -539,7 +638,11 @@ fn render(doc: &Document, d: &Diagram) -> String {
         let iv = &id.instrument;
         if iv.applicable {
             if iv.found.is_empty() {
-                let _ = writeln!(o, "   instrument         none: {}", iv.reason.clone().unwrap_or_default());
+                let _ = writeln!(
+                    o,
+                    "   instrument         none: {}",
+                    iv.reason.clone().unwrap_or_default()
+                );
             } else {
                 let shown: Vec<String> = iv
                     .found
@@ -578,7 +681,11 @@ fn render(doc: &Document, d: &Diagram) -> String {
             doc.implied_independences.len()
         );
         for i in &doc.implied_independences {
-            let given = if i.given.is_empty() { String::new() } else { format!(" | {}", i.given.join(", ")) };
+            let given = if i.given.is_empty() {
+                String::new()
+            } else {
+                format!(" | {}", i.given.join(", "))
+            };
             let _ = writeln!(o, "   {} ⊥ {}{given}", i.a, i.b);
         }
     }

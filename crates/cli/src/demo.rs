@@ -26,7 +26,9 @@ pub fn run(a: Args) -> Result<i32, Failure> {
     let variants = match a.variant.as_str() {
         "both" => vec![Variant::Observed, Variant::Latent],
         v => vec![Variant::parse(v).ok_or_else(|| {
-            Failure::input(format!("--variant: unknown variant `{v}`; expected observed, latent or both"))
+            Failure::input(format!(
+                "--variant: unknown variant `{v}`; expected observed, latent or both"
+            ))
         })?],
     };
     if a.rows == 0 {
@@ -52,11 +54,15 @@ pub fn run(a: Args) -> Result<i32, Failure> {
             let _ = fs::remove_file(&tmp);
             Failure::internal(format!("cannot write {}: {e}", tmp.display()))
         })?;
-        fs::rename(&tmp, &csv).map_err(|e| Failure::internal(format!("cannot move {} into place: {e}", csv.display())))?;
+        fs::rename(&tmp, &csv).map_err(|e| {
+            Failure::internal(format!("cannot move {} into place: {e}", csv.display()))
+        })?;
         let truth_path = a.out.join(format!("{stem}.truth.json"));
-        let json = serde_json::to_string_pretty(&truth).map_err(|e| Failure::internal(e.to_string()))?;
-        fs::write(&truth_path, json + "\n")
-            .map_err(|e| Failure::internal(format!("cannot write {}: {e}", truth_path.display())))?;
+        let json =
+            serde_json::to_string_pretty(&truth).map_err(|e| Failure::internal(e.to_string()))?;
+        fs::write(&truth_path, json + "\n").map_err(|e| {
+            Failure::internal(format!("cannot write {}: {e}", truth_path.display()))
+        })?;
         let s = &truth.outcomes["spend_30d"];
         println!(
             "wrote {} ({} rows, {} with a voucher) and {}: true ATE on spend_30d {:.3}, naive difference {:.3}",

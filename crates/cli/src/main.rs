@@ -19,7 +19,7 @@ struct Cli {
 #[derive(Subcommand)]
 enum Command {
     /// Decide whether each question's effect is identified, and by which routes.
-    Check(check::Args),
+    Check(Box<check::Args>),
     /// Write the demo scenario's rows and truth files.
     Demo(demo::Args),
 }
@@ -27,7 +27,7 @@ enum Command {
 fn main() {
     let cli = Cli::parse();
     let result: Result<i32, Failure> = match cli.command {
-        Command::Check(a) => check::run(a),
+        Command::Check(a) => check::run(*a),
         Command::Demo(a) => demo::run(a),
     };
     match result {

@@ -66,7 +66,11 @@ const ZONE_SPEND: [f64; 6] = [0.0, 6.0, -3.0, 4.0, 8.0, -2.0];
 const ZONE_REORDER: [f64; 6] = [0.0, 0.2, -0.1, 0.15, 0.3, -0.05];
 
 /// Tenure bands with their share, baseline weekly app sessions and extra sessions a voucher brings.
-pub const TENURE: [(&str, f64, f64, f64); 3] = [("new", 0.30, 2.0, 3.0), ("1y", 0.35, 3.0, 2.0), ("2y+", 0.35, 4.0, 1.0)];
+pub const TENURE: [(&str, f64, f64, f64); 3] = [
+    ("new", 0.30, 2.0, 3.0),
+    ("1y", 0.35, 3.0, 2.0),
+    ("2y+", 0.35, 4.0, 1.0),
+];
 const HOUSEHOLD: [f64; 6] = [0.28, 0.30, 0.18, 0.14, 0.07, 0.03];
 const WAVE_VOUCHER: [f64; 4] = [0.8, 0.3, -0.3, -0.8];
 /// Spend per app session: the voucher's effect on spend is this times the extra sessions.
@@ -133,7 +137,12 @@ struct Stream([u64; 4]);
 impl Stream {
     fn new(seed: u64, id: u64) -> Stream {
         let mut x = seed ^ id.wrapping_mul(0xD1B54A32D192ED03);
-        Stream([splitmix(&mut x), splitmix(&mut x), splitmix(&mut x), splitmix(&mut x)])
+        Stream([
+            splitmix(&mut x),
+            splitmix(&mut x),
+            splitmix(&mut x),
+            splitmix(&mut x),
+        ])
     }
     fn next(&mut self) -> u64 {
         let s = &mut self.0;
@@ -198,7 +207,9 @@ pub fn customer(cfg: &Config, index: u64) -> Customer {
         Variant::Observed => 0.0,
         Variant::Latent => (u - 0.5) * 12f64.sqrt(),
     };
-    let logit = 0.1 - 0.6 * (prior_orders as f64 - 3.0) + ZONE_VOUCHER[zone] + WAVE_VOUCHER[mail_wave as usize - 1]
+    let logit = 0.1 - 0.6 * (prior_orders as f64 - 3.0)
+        + ZONE_VOUCHER[zone]
+        + WAVE_VOUCHER[mail_wave as usize - 1]
         - 0.7 * income;
     let propensity = sigmoid(logit);
     let voucher = r.uniform() < propensity;
@@ -207,13 +218,20 @@ pub fn customer(cfg: &Config, index: u64) -> Customer {
     let s1 = s0 + r.poisson(extra);
     let noise = 4.0 * r.bounded_normal();
     let spend_of = |s: u32| {
-        42.0 + 8.0 * prior_orders as f64 + 2.5 * household_size as f64 + ZONE_SPEND[zone]
+        42.0 + 8.0 * prior_orders as f64
+            + 2.5 * household_size as f64
+            + ZONE_SPEND[zone]
             + SPEND_PER_SESSION * s as f64
             + 9.0 * income
             + noise
     };
     let reorder_of = |s: u32| {
-        sigmoid(-1.2 + 0.25 * s as f64 + 0.15 * (prior_orders as f64 - 3.0) + ZONE_REORDER[zone] + 0.5 * income)
+        sigmoid(
+            -1.2 + 0.25 * s as f64
+                + 0.15 * (prior_orders as f64 - 3.0)
+                + ZONE_REORDER[zone]
+                + 0.5 * income,
+        )
     };
     let u_reorder = r.uniform();
     let p = [reorder_of(s0), reorder_of(s1)];
@@ -354,7 +372,11 @@ pub fn write_csv<W: Write>(cfg: &Config, out: W) -> io::Result<Truth> {
             u8::from(c.reordered_30d())
         )?;
         spend.add(&c, c.spend[1] - c.spend[0], c.spend_30d());
-        reorder.add(&c, c.reorder_p[1] - c.reorder_p[0], f64::from(u8::from(c.reordered_30d())));
+        reorder.add(
+            &c,
+            c.reorder_p[1] - c.reorder_p[0],
+            f64::from(u8::from(c.reordered_30d())),
+        );
     }
     w.flush()?;
     let band: BTreeMap<String, f64> = TENURE
@@ -388,7 +410,11 @@ mod tests {
 
     #[test]
     fn deterministic_and_prefix_consistent() {
-        let cfg = Config { rows: 500, seed: 7, variant: Variant::Observed };
+        let cfg = Config {
+            rows: 500,
+            seed: 7,
+            variant: Variant::Observed,
+        };
         let mut a = Vec::new();
         let mut b = Vec::new();
         write_csv(&cfg, &mut a).unwrap();
@@ -402,7 +428,11 @@ mod tests {
     #[test]
     fn naive_difference_is_negative_while_the_effect_is_positive() {
         for variant in [Variant::Observed, Variant::Latent] {
-            let cfg = Config { rows: 20_000, seed: 11, variant };
+            let cfg = Config {
+                rows: 20_000,
+                seed: 11,
+                variant,
+            };
             let t = write_csv(&cfg, io::sink()).unwrap();
             let s = &t.outcomes["spend_30d"];
             assert!(s.ate > 6.0 && s.ate < 9.5, "{s:?}");
@@ -418,12 +448,18 @@ mod tests {
     #[test]
     fn spend_is_positive_and_effect_flows_through_sessions() {
         for variant in [Variant::Observed, Variant::Latent] {
-            let cfg = Config { rows: 20_000, seed: 3, variant };
+            let cfg = Config {
+                rows: 20_000,
+                seed: 3,
+                variant,
+            };
             for i in 0..cfg.rows {
                 let c = customer(&cfg, i);
                 assert!(c.spend[0] > 0.0 && c.spend[1] > 0.0);
                 let d = c.spend[1] - c.spend[0];
-                assert!((d - SPEND_PER_SESSION * f64::from(c.sessions[1] - c.sessions[0])).abs() < 1e-9);
+                assert!(
+                    (d - SPEND_PER_SESSION * f64::from(c.sessions[1] - c.sessions[0])).abs() < 1e-9
+                );
             }
         }
     }

@@ -71,7 +71,9 @@ impl Dag {
     pub fn remove_edge(&mut self, a: usize, b: usize) {
         if let Ok(pos) = self.children[a].binary_search(&b) {
             self.children[a].remove(pos);
-            let p = self.parents[b].binary_search(&a).expect("adjacency invariant");
+            let p = self.parents[b]
+                .binary_search(&a)
+                .expect("adjacency invariant");
             self.parents[b].remove(p);
         }
     }
@@ -253,7 +255,12 @@ impl Dag {
     /// Breadth-first search over states (node, arrived-from-child?) from `x` given `z`. Calls
     /// `hit` for every reachable node not in `z`; stops with the path to the first node for
     /// which `hit` returns true.
-    fn bayes_ball(&self, x: &NodeSet, z: &NodeSet, mut hit: impl FnMut(usize) -> bool) -> Option<Path> {
+    fn bayes_ball(
+        &self,
+        x: &NodeSet,
+        z: &NodeSet,
+        mut hit: impl FnMut(usize) -> bool,
+    ) -> Option<Path> {
         let n = self.len();
         let anz = self.ancestors(z);
         // state index: 2*v + 0 = arrived going up (from a child), 2*v + 1 = arrived going down
@@ -277,7 +284,13 @@ impl Dag {
             let nodes: Vec<usize> = states.iter().map(|s| s / 2).collect();
             let dirs = states[1..]
                 .iter()
-                .map(|s| if s % 2 == 1 { Dir::Forward } else { Dir::Backward })
+                .map(|s| {
+                    if s % 2 == 1 {
+                        Dir::Forward
+                    } else {
+                        Dir::Backward
+                    }
+                })
                 .collect();
             Path { nodes, dirs }
         };
@@ -324,7 +337,12 @@ impl Dag {
 
     /// Whether there is a directed path from a node of `from` to a node of `to` avoiding the
     /// nodes of `avoid` (the end points may not be in `avoid`).
-    pub fn directed_path(&self, from: &NodeSet, to: &NodeSet, avoid: &NodeSet) -> Option<Vec<usize>> {
+    pub fn directed_path(
+        &self,
+        from: &NodeSet,
+        to: &NodeSet,
+        avoid: &NodeSet,
+    ) -> Option<Vec<usize>> {
         let mut pred = vec![usize::MAX; self.len()];
         let mut seen = avoid.clone();
         let mut queue: VecDeque<usize> = VecDeque::new();
@@ -360,7 +378,11 @@ impl Dag {
         let n = self.len();
         let mut adj = vec![NodeSet::new(n); n];
         for v in keep.iter() {
-            let ps: Vec<usize> = self.parents[v].iter().copied().filter(|p| keep.contains(*p)).collect();
+            let ps: Vec<usize> = self.parents[v]
+                .iter()
+                .copied()
+                .filter(|p| keep.contains(*p))
+                .collect();
             for (i, &p) in ps.iter().enumerate() {
                 adj[p].insert(v);
                 adj[v].insert(p);
@@ -396,7 +418,9 @@ mod tests {
         // {1} blocks the chain; the collider 3 stays closed.
         assert!(g.d_separated(&s(&[0]), &s(&[2]), &s(&[1])));
         // Conditioning on the collider opens 0 -> 3 <- 2.
-        let p = g.d_connecting_path(&s(&[0]), &s(&[2]), &s(&[1, 3])).unwrap();
+        let p = g
+            .d_connecting_path(&s(&[0]), &s(&[2]), &s(&[1, 3]))
+            .unwrap();
         assert_eq!(p.nodes, vec![0, 3, 2]);
         assert_eq!(p.dirs, vec![Dir::Forward, Dir::Backward]);
     }
@@ -416,7 +440,10 @@ mod tests {
         let g = chain();
         let cut = g.without_edges_into(&g.set([3]));
         assert!(!cut.has_edge(0, 3) && !cut.has_edge(2, 3));
-        assert_eq!(g.directed_path(&g.set([0]), &g.set([2]), &g.set([])), Some(vec![0, 1, 2]));
+        assert_eq!(
+            g.directed_path(&g.set([0]), &g.set([2]), &g.set([])),
+            Some(vec![0, 1, 2])
+        );
         assert_eq!(g.directed_path(&g.set([0]), &g.set([2]), &g.set([1])), None);
         assert_eq!(g.ancestors(&g.set([2])).to_vec(), vec![0, 1, 2]);
         let m = g.moral_graph(&g.set(0..4));

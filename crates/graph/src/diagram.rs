@@ -5,6 +5,9 @@ use crate::set::NodeSet;
 use std::collections::HashMap;
 use std::fmt;
 
+/// A pair of node indices: a directed edge `(from, to)` or a confounded pair.
+pub type Edge = (usize, usize);
+
 /// A 1-based position in the diagram text.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Default, serde::Serialize)]
 pub struct Span {
@@ -164,7 +167,10 @@ impl DiagramError {
     pub fn detail(&self) -> String {
         let full = self.to_string();
         match self.span() {
-            Some(_) => full.split_once(": ").map(|x| x.1.to_string()).unwrap_or(full),
+            Some(_) => full
+                .split_once(": ")
+                .map(|x| x.1.to_string())
+                .unwrap_or(full),
             None => full,
         }
     }
@@ -229,7 +235,12 @@ impl Builder {
         Ok(())
     }
 
-    pub(crate) fn confounded(&mut self, a: usize, b: usize, span: Span) -> Result<(), DiagramError> {
+    pub(crate) fn confounded(
+        &mut self,
+        a: usize,
+        b: usize,
+        span: Span,
+    ) -> Result<(), DiagramError> {
         if a == b {
             return Err(DiagramError::SelfLoop {
                 span,
@@ -421,7 +432,7 @@ impl Diagram {
     }
 
     /// The edges as written: directed edges between declared nodes, and `a <-> b` pairs.
-    pub fn declared_edges(&self) -> (Vec<(usize, usize)>, Vec<(usize, usize)>) {
+    pub fn declared_edges(&self) -> (Vec<Edge>, Vec<Edge>) {
         let mut directed = Vec::new();
         let mut pairs = Vec::new();
         for (a, b) in self.dag.edges() {

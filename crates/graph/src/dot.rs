@@ -174,7 +174,8 @@ fn lex(text: &str) -> Result<Vec<(Tok, Span)>, DiagramError> {
             '<' => {
                 return Err(DiagramError::Syntax {
                     span,
-                    message: "HTML-like labels `<...>` are not supported; use a quoted string".into(),
+                    message: "HTML-like labels `<...>` are not supported; use a quoted string"
+                        .into(),
                 })
             }
             c if c.is_alphanumeric() || c == '_' || c == '.' || c == '-' => {
@@ -228,7 +229,10 @@ impl Parser {
     fn expect_id(&mut self, what: &str) -> Result<(String, Span), DiagramError> {
         match self.bump() {
             (Tok::Id(s, _), span) => Ok((s, span)),
-            (t, span) => Err(err(span, format!("expected {what}, found {}", describe(&t)))),
+            (t, span) => Err(err(
+                span,
+                format!("expected {what}, found {}", describe(&t)),
+            )),
         }
     }
 
@@ -277,7 +281,10 @@ impl Parser {
                 }
                 self.bump();
                 if self.peek().0 == Tok::Colon {
-                    return Err(err(self.peek().1, "ports (`node:port`) are not supported".into()));
+                    return Err(err(
+                        self.peek().1,
+                        "ports (`node:port`) are not supported".into(),
+                    ));
                 }
                 Ok((self.b.node(&name, span), span))
             }
@@ -285,18 +292,30 @@ impl Parser {
                 span,
                 "subgraphs `{ ... }` are not supported; write each edge separately".into(),
             )),
-            t => Err(err(span, format!("expected a node name, found {}", describe(&t)))),
+            t => Err(err(
+                span,
+                format!("expected a node name, found {}", describe(&t)),
+            )),
         }
     }
 
-    fn node_attrs(&mut self, n: usize, attrs: &[(String, String, Span)]) -> Result<(), DiagramError> {
+    fn node_attrs(
+        &mut self,
+        n: usize,
+        attrs: &[(String, String, Span)],
+    ) -> Result<(), DiagramError> {
         for (k, v, span) in attrs {
             let v = v.to_ascii_lowercase();
             match k.as_str() {
                 "latent" => match v.as_str() {
                     "true" | "1" | "yes" => self.b.declare(n, "latent", *span)?,
                     "false" | "0" | "no" => self.b.declare(n, "observed", *span)?,
-                    _ => return Err(err(*span, format!("`latent` takes true or false, found `{v}`"))),
+                    _ => {
+                        return Err(err(
+                            *span,
+                            format!("`latent` takes true or false, found `{v}`"),
+                        ))
+                    }
                 },
                 "role" | "kind" => self.b.declare(n, &v, *span)?,
                 _ => {}
@@ -313,7 +332,10 @@ impl Parser {
             return Ok(());
         }
         if keyword(&t, "subgraph") {
-            return Err(err(span, "subgraphs are not supported; write each edge separately".into()));
+            return Err(err(
+                span,
+                "subgraphs are not supported; write each edge separately".into(),
+            ));
         }
         if let Tok::Id(_, _) = t {
             if self.toks.get(self.pos + 1).map(|x| &x.0) == Some(&Tok::Eq) {
@@ -345,7 +367,10 @@ impl Parser {
             if k == "dir" {
                 dir = v.to_ascii_lowercase();
                 if !["forward", "back", "both"].contains(&dir.as_str()) {
-                    return Err(err(*s, format!("edge `dir={v}` is not causal; use forward, back or both")));
+                    return Err(err(
+                        *s,
+                        format!("edge `dir={v}` is not causal; use forward, back or both"),
+                    ));
                 }
             }
         }
@@ -380,14 +405,22 @@ pub(crate) fn parse(text: &str) -> Result<Diagram, DiagramError> {
         ));
     }
     if !keyword(&t, "digraph") {
-        return Err(err(span, format!("expected `digraph`, found {}", describe(&t))));
+        return Err(err(
+            span,
+            format!("expected `digraph`, found {}", describe(&t)),
+        ));
     }
     if let Tok::Id(_, _) = p.peek().0 {
         p.bump();
     }
     match p.bump() {
         (Tok::LBrace, _) => {}
-        (t, span) => return Err(err(span, format!("expected `{{` after `digraph`, found {}", describe(&t)))),
+        (t, span) => {
+            return Err(err(
+                span,
+                format!("expected `{{` after `digraph`, found {}", describe(&t)),
+            ))
+        }
     }
     loop {
         match p.peek().0.clone() {
@@ -407,7 +440,10 @@ pub(crate) fn parse(text: &str) -> Result<Diagram, DiagramError> {
     }
     let (t, span) = p.peek().clone();
     if t != Tok::Eof {
-        return Err(err(span, format!("unexpected {} after the closing `}}`", describe(&t))));
+        return Err(err(
+            span,
+            format!("unexpected {} after the closing `}}`", describe(&t)),
+        ));
     }
     p.b.finish()
 }

@@ -157,7 +157,10 @@ fn causal_path_through(g: &Dag, x: &NodeSet, y: &NodeSet, node: usize) -> Vec<us
         .directed_path(x, &target, &g.empty_set())
         .unwrap_or_else(|| vec![node]);
     if !y.contains(node) {
-        if let Some(rest) = g.without_edges_out_of(x).directed_path(&target, y, &g.empty_set()) {
+        if let Some(rest) = g
+            .without_edges_out_of(x)
+            .directed_path(&target, y, &g.empty_set())
+        {
             first.extend_from_slice(&rest[1..]);
         }
     }
@@ -170,7 +173,10 @@ pub fn check_adjustment(d: &Diagram, x: &NodeSet, y: &NodeSet, z: &NodeSet) -> S
     let mut problems = endpoint_problems(d, z, &x.union(y));
     let cn = causal_nodes(g, x, y);
     let forb = g.descendants(&cn);
-    for v in z.iter().filter(|v| forb.contains(*v) && !x.contains(*v) && !y.contains(*v)) {
+    for v in z
+        .iter()
+        .filter(|v| forb.contains(*v) && !x.contains(*v) && !y.contains(*v))
+    {
         if cn.contains(v) {
             problems.push(Problem::Mediator {
                 node: v,
@@ -201,7 +207,12 @@ pub fn satisfies_backdoor(d: &Diagram, x: &NodeSet, y: &NodeSet, z: &NodeSet) ->
 }
 
 /// The moral graph and candidate set on which adjustment sets are vertex separators.
-fn adjustment_separator_problem(d: &Diagram, x: &NodeSet, y: &NodeSet, allowed: &NodeSet) -> (Vec<Vec<usize>>, NodeSet) {
+fn adjustment_separator_problem(
+    d: &Diagram,
+    x: &NodeSet,
+    y: &NodeSet,
+    allowed: &NodeSet,
+) -> (Vec<Vec<usize>>, NodeSet) {
     let g = d.dag();
     let pbd = proper_backdoor_graph(g, x, y);
     let an = pbd.ancestors(&x.union(y));
@@ -231,7 +242,12 @@ pub fn minimal_adjustment_sets(
 
 /// Whether any adjustment set drawn from `allowed` exists, and if not, a non-causal path that
 /// every such set leaves open.
-pub fn adjustment_blocked_by(d: &Diagram, x: &NodeSet, y: &NodeSet, allowed: &NodeSet) -> Result<(), Option<Path>> {
+pub fn adjustment_blocked_by(
+    d: &Diagram,
+    x: &NodeSet,
+    y: &NodeSet,
+    allowed: &NodeSet,
+) -> Result<(), Option<Path>> {
     let (adj, allowed2) = adjustment_separator_problem(d, x, y, allowed);
     if nearest_minimal_separator(&adj, x, y, &allowed2).is_some() {
         return Ok(());
@@ -301,7 +317,10 @@ pub fn check_front_door(d: &Diagram, x: &NodeSet, y: &NodeSet, m: &NodeSet) -> S
         problems.push(Problem::Bypass(p));
     }
     if !mc.is_empty() {
-        if let Some(p) = g.without_edges_out_of(x).d_connecting_path(x, &mc, &g.empty_set()) {
+        if let Some(p) = g
+            .without_edges_out_of(x)
+            .d_connecting_path(x, &mc, &g.empty_set())
+        {
             problems.push(Problem::TreatmentMediatorPath(p));
         }
         if let Some(p) = g.without_edges_out_of(&mc).d_connecting_path(&mc, y, x) {
@@ -317,7 +336,12 @@ pub fn check_front_door(d: &Diagram, x: &NodeSet, y: &NodeSet, m: &NodeSet) -> S
 /// Searches observed nodes on causal paths for front-door sets, smallest first, keeping only
 /// inclusion-minimal ones. Tries at most `budget` subsets; the flag says whether the search
 /// was exhaustive.
-pub fn find_front_door(d: &Diagram, x: &NodeSet, y: &NodeSet, budget: usize) -> (Vec<NodeSet>, bool) {
+pub fn find_front_door(
+    d: &Diagram,
+    x: &NodeSet,
+    y: &NodeSet,
+    budget: usize,
+) -> (Vec<NodeSet>, bool) {
     let g = d.dag();
     let ux = g.without_edges_out_of(x);
     // Condition (ii) holds for a set iff it holds for each member, so filter members first.
@@ -363,7 +387,13 @@ pub fn find_front_door(d: &Diagram, x: &NodeSet, y: &NodeSet, budget: usize) -> 
 /// given `w` (relevance); `z` and `y` are d-separated given `w` once the edges out of `x` are
 /// removed (exclusion). This is the graphical instrument of Pearl (2009, sec. 7.4.5) and
 /// Brito & Pearl (2002), applied to the total effect.
-pub fn check_instrument(d: &Diagram, x: &NodeSet, y: &NodeSet, z: &NodeSet, w: &NodeSet) -> SetCheck {
+pub fn check_instrument(
+    d: &Diagram,
+    x: &NodeSet,
+    y: &NodeSet,
+    z: &NodeSet,
+    w: &NodeSet,
+) -> SetCheck {
     let g = d.dag();
     let ends = x.union(y);
     let mut problems = endpoint_problems(d, &z.union(w), &ends);
@@ -415,7 +445,11 @@ pub fn find_instruments(d: &Diagram, x: &NodeSet, y: &NodeSet) -> Vec<(usize, No
             out.push((z, empty));
             continue;
         }
-        let allowed = obs.difference(&dex).difference(&zs).difference(x).difference(y);
+        let allowed = obs
+            .difference(&dex)
+            .difference(&zs)
+            .difference(x)
+            .difference(y);
         let an = ux.ancestors(&zs.union(y));
         let adj = ux.moral_graph(&an);
         let (mut seps, _) = minimal_separators(&adj, &zs, y, &allowed.intersection(&an), 256);
@@ -447,7 +481,11 @@ pub fn find_instruments(d: &Diagram, x: &NodeSet, y: &NodeSet) -> Vec<(usize, No
 pub const INSTRUMENT_BUDGET: usize = 4096;
 
 /// Subsets of `items` in order of increasing size, at most `budget` of them.
-fn subsets_by_size(items: &[usize], cap: usize, budget: usize) -> impl Iterator<Item = NodeSet> + '_ {
+fn subsets_by_size(
+    items: &[usize],
+    cap: usize,
+    budget: usize,
+) -> impl Iterator<Item = NodeSet> + '_ {
     let k = items.len();
     let mut size = 0usize;
     let mut idx: Vec<usize> = Vec::new();

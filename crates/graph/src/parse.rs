@@ -341,21 +341,49 @@ mod tests {
     #[test]
     fn errors_carry_positions() {
         let e = err("a -> b\nb -> c\nc -> a\n");
-        assert!(matches!(&e, DiagramError::Cycle { span, cycle } if span.line == 3 && cycle.len() == 4), "{e}");
+        assert!(
+            matches!(&e, DiagramError::Cycle { span, cycle } if span.line == 3 && cycle.len() == 4),
+            "{e}"
+        );
         assert!(e.to_string().contains("a -> b -> c -> a"), "{e}");
         let e = err("a -> a");
-        assert!(matches!(e, DiagramError::SelfLoop { span: Span { line: 1, col: 3 }, .. }), "{e}");
+        assert!(
+            matches!(
+                e,
+                DiagramError::SelfLoop {
+                    span: Span { line: 1, col: 3 },
+                    ..
+                }
+            ),
+            "{e}"
+        );
         let e = err("a -> b\n  a -> b");
-        assert!(matches!(e, DiagramError::DuplicateEdge { span: Span { line: 2, col: 5 }, .. }), "{e}");
+        assert!(
+            matches!(
+                e,
+                DiagramError::DuplicateEdge {
+                    span: Span { line: 2, col: 5 },
+                    ..
+                }
+            ),
+            "{e}"
+        );
         assert!(e.to_string().contains("first declared at line 1, column 3"));
         let e = err("x: hidden");
-        assert!(matches!(&e, DiagramError::UnknownRole { word, .. } if word == "hidden"), "{e}");
+        assert!(
+            matches!(&e, DiagramError::UnknownRole { word, .. } if word == "hidden"),
+            "{e}"
+        );
         assert!(e.to_string().contains("expected one of: observed, latent"));
         let e = err("x: latent\nx: observed");
         assert!(matches!(e, DiagramError::Conflict { .. }), "{e}");
         let e = err("a -> ");
         assert_eq!(e.span(), Some(Span { line: 1, col: 6 }));
-        assert!(e.to_string().contains("expected a variable name after `->`"), "{e}");
+        assert!(
+            e.to_string()
+                .contains("expected a variable name after `->`"),
+            "{e}"
+        );
         let e = err("a -- b");
         assert!(e.to_string().contains("undirected"), "{e}");
         let e = err("a -> b c");

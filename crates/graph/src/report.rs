@@ -137,7 +137,12 @@ impl Identification {
 }
 
 /// Analyses the effect of `treatment` on `outcome` (names must exist in `d`; callers check).
-pub fn identify(d: &Diagram, treatment: &[String], outcome: &[String], declared: &Declared) -> Identification {
+pub fn identify(
+    d: &Diagram,
+    treatment: &[String],
+    outcome: &[String],
+    declared: &Declared,
+) -> Identification {
     let g = d.dag();
     let x = d.set_of(treatment);
     let y = d.set_of(outcome);
@@ -149,7 +154,10 @@ pub fn identify(d: &Diagram, treatment: &[String], outcome: &[String], declared:
     let (sets, complete) = identify::minimal_adjustment_sets(d, &x, &y, &obs, MAX_MINIMAL_SETS);
     let exists = !sets.is_empty();
     let (optimal_set, optimal_note) = if !exists {
-        (None, Some("no valid adjustment set among observed variables".to_string()))
+        (
+            None,
+            Some("no valid adjustment set among observed variables".to_string()),
+        )
     } else {
         match identify::optimal_adjustment_set(d, &x, &y) {
             Optimal::Found(o) => (Some(d.sorted_names(&o)), None),
@@ -197,9 +205,12 @@ pub fn identify(d: &Diagram, treatment: &[String], outcome: &[String], declared:
     let (fd_sets, fd_reason, fd_declared) = if single {
         let (found, exhaustive) = identify::find_front_door(d, &x, &y, FRONT_DOOR_BUDGET);
         let reason = if found.is_empty() {
-            let cand = identify::causal_nodes(g, &x, &y).intersection(&obs).difference(&y);
+            let cand = identify::causal_nodes(g, &x, &y)
+                .intersection(&obs)
+                .difference(&y);
             Some(if cand.is_empty() {
-                "no observed variable lies on a causal path from the treatment to the outcome".to_string()
+                "no observed variable lies on a causal path from the treatment to the outcome"
+                    .to_string()
             } else {
                 let c = identify::check_front_door(d, &x, &y, &cand);
                 let first = c
@@ -223,11 +234,17 @@ pub fn identify(d: &Diagram, treatment: &[String], outcome: &[String], declared:
             let ms = d.set_of(m);
             CheckedSet::new(d, &ms, identify::check_front_door(d, &x, &y, &ms))
         });
-        (found.iter().map(|s| d.sorted_names(s)).collect(), reason, declared)
+        (
+            found.iter().map(|s| d.sorted_names(s)).collect(),
+            reason,
+            declared,
+        )
     } else {
         (
             Vec::new(),
-            Some("the front-door criterion is checked for one treatment and one outcome".to_string()),
+            Some(
+                "the front-door criterion is checked for one treatment and one outcome".to_string(),
+            ),
             None,
         )
     };

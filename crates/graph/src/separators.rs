@@ -88,7 +88,16 @@ pub fn minimal_separators(
     let mut out = Vec::new();
     let mut complete = true;
     let forced = NodeSet::new(source.capacity());
-    branch(adj, source.clone(), forced, target, allowed, limit, &mut out, &mut complete);
+    branch(
+        adj,
+        source.clone(),
+        forced,
+        target,
+        allowed,
+        limit,
+        &mut out,
+        &mut complete,
+    );
     (out, complete)
 }
 
@@ -120,7 +129,16 @@ fn branch(
         Some(v) => {
             let mut grown = region.clone();
             grown.insert(v);
-            branch(adj, grown, forced.clone(), target, allowed, limit, out, complete);
+            branch(
+                adj,
+                grown,
+                forced.clone(),
+                target,
+                allowed,
+                limit,
+                out,
+                complete,
+            );
             let mut more = forced;
             more.insert(v);
             branch(adj, region, more, target, allowed, limit, out, complete);
@@ -138,7 +156,13 @@ mod tests {
         let n = s.capacity();
         let mut seps = Vec::new();
         for mask in 0u32..(1 << cand.len()) {
-            let z = NodeSet::from_iter(n, cand.iter().enumerate().filter(|(i, _)| mask >> i & 1 == 1).map(|x| *x.1));
+            let z = NodeSet::from_iter(
+                n,
+                cand.iter()
+                    .enumerate()
+                    .filter(|(i, _)| mask >> i & 1 == 1)
+                    .map(|x| *x.1),
+            );
             let reach = component(adj, s, &z);
             if !reach.intersects(t) {
                 seps.push(z);
@@ -179,7 +203,11 @@ mod tests {
             let (mut got, complete) = minimal_separators(&adj, &s, &t, &allowed, 10_000);
             assert!(complete);
             got.sort_by_key(|z| z.to_vec());
-            assert_eq!(got, brute(&adj, &s, &t, &allowed), "graph {adj:?} allowed {allowed:?}");
+            assert_eq!(
+                got,
+                brute(&adj, &s, &t, &allowed),
+                "graph {adj:?} allowed {allowed:?}"
+            );
             let near = nearest_minimal_separator(&adj, &t, &s, &allowed);
             assert_eq!(near.is_some(), !got.is_empty());
             if let Some(z) = near {

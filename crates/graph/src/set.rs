@@ -131,7 +131,10 @@ impl NodeSet {
 
     /// Whether every member of `self` is in `other`.
     pub fn is_subset(&self, other: &NodeSet) -> bool {
-        self.words.iter().zip(&other.words).all(|(a, b)| a & !b == 0)
+        self.words
+            .iter()
+            .zip(&other.words)
+            .all(|(a, b)| a & !b == 0)
     }
 
     /// The smallest member, if any.

@@ -42,7 +42,16 @@ fn random_diagram(r: &mut Rng, n: usize, p: u64, latent: u64) -> Diagram {
 
 fn subsets(items: &[usize], cap: usize) -> Vec<NodeSet> {
     (0u32..(1 << items.len()))
-        .map(|m| NodeSet::from_iter(cap, items.iter().enumerate().filter(|(i, _)| m >> i & 1 == 1).map(|x| *x.1)))
+        .map(|m| {
+            NodeSet::from_iter(
+                cap,
+                items
+                    .iter()
+                    .enumerate()
+                    .filter(|(i, _)| m >> i & 1 == 1)
+                    .map(|x| *x.1),
+            )
+        })
         .collect()
 }
 
@@ -75,7 +84,8 @@ fn minimal_adjustment_sets_match_exhaustive_search() {
             .filter(|z| identify::check_adjustment(&d, &x, &ys, z).valid)
             .collect();
         let expect = minimal_of(valid);
-        let (mut got, complete) = identify::minimal_adjustment_sets(&d, &x, &ys, &d.observed(), 10_000);
+        let (mut got, complete) =
+            identify::minimal_adjustment_sets(&d, &x, &ys, &d.observed(), 10_000);
         assert!(complete);
         got.sort_by_key(|s| s.to_vec());
         assert_eq!(got, expect, "diagram:\n{d}\nt=v{t} y=v{y}");
@@ -86,7 +96,10 @@ fn minimal_adjustment_sets_match_exhaustive_search() {
                 assert!(identify::check_adjustment(&d, &x, &ys, &o).valid);
             }
         }
-        assert_eq!(identify::adjustment_blocked_by(&d, &x, &ys, &d.observed()).is_ok(), !got.is_empty());
+        assert_eq!(
+            identify::adjustment_blocked_by(&d, &x, &ys, &d.observed()).is_ok(),
+            !got.is_empty()
+        );
     }
     assert!(nonempty > 100, "too few identifiable cases: {nonempty}");
 }
@@ -107,7 +120,11 @@ fn instrument_search_matches_exhaustive_search() {
         let found = identify::find_instruments(&d, &x, &ys);
         for z in d.observed().iter().filter(|&v| v != t && v != y) {
             let zs = d.dag().set([z]);
-            let others: Vec<usize> = d.observed().iter().filter(|&v| v != t && v != y && v != z).collect();
+            let others: Vec<usize> = d
+                .observed()
+                .iter()
+                .filter(|&v| v != t && v != y && v != z)
+                .collect();
             let exists = subsets(&others, n)
                 .iter()
                 .any(|w| identify::check_instrument(&d, &x, &ys, &zs, w).valid);
@@ -121,7 +138,10 @@ fn instrument_search_matches_exhaustive_search() {
             }
         }
     }
-    assert!(found_conditional > 10, "too few conditional instruments: {found_conditional}");
+    assert!(
+        found_conditional > 10,
+        "too few conditional instruments: {found_conditional}"
+    );
 }
 
 #[test]

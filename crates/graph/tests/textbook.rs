@@ -21,7 +21,8 @@ fn set(d: &Diagram, names: &[&str]) -> NodeSet {
 }
 
 fn minimal(d: &Diagram, t: &[&str], y: &[&str]) -> Vec<Vec<String>> {
-    let (sets, complete) = identify::minimal_adjustment_sets(d, &set(d, t), &set(d, y), &d.observed(), 100);
+    let (sets, complete) =
+        identify::minimal_adjustment_sets(d, &set(d, t), &set(d, y), &d.observed(), 100);
     assert!(complete);
     sets.iter().map(|s| d.sorted_names(s)).collect()
 }
@@ -44,18 +45,39 @@ fn confounder() {
         Problem::OpenPath(p) => assert_eq!(g.format_path(p), "t <- c -> y"),
         other => panic!("{other:?}"),
     }
-    assert_eq!(identify::optimal_adjustment_set(&g, &set(&g, &["t"]), &set(&g, &["y"])), Optimal::Found(set(&g, &["c"])));
+    assert_eq!(
+        identify::optimal_adjustment_set(&g, &set(&g, &["t"]), &set(&g, &["y"])),
+        Optimal::Found(set(&g, &["c"]))
+    );
 }
 
 #[test]
 fn mediator_must_not_be_adjusted() {
     let g = d("c -> t -> m -> y; c -> y; m -> after");
     assert!(valid(&g, &["c"]));
-    let c = identify::check_adjustment(&g, &set(&g, &["t"]), &set(&g, &["y"]), &set(&g, &["c", "m"]));
-    assert!(matches!(&c.problems[..], [Problem::Mediator { .. }]), "{:?}", c.problems);
+    let c = identify::check_adjustment(
+        &g,
+        &set(&g, &["t"]),
+        &set(&g, &["y"]),
+        &set(&g, &["c", "m"]),
+    );
+    assert!(
+        matches!(&c.problems[..], [Problem::Mediator { .. }]),
+        "{:?}",
+        c.problems
+    );
     assert!(c.problems[0].describe(&g).contains("t -> m -> y"));
-    let c = identify::check_adjustment(&g, &set(&g, &["t"]), &set(&g, &["y"]), &set(&g, &["c", "after"]));
-    assert!(matches!(&c.problems[..], [Problem::DescendantOfMediator { .. }]), "{:?}", c.problems);
+    let c = identify::check_adjustment(
+        &g,
+        &set(&g, &["t"]),
+        &set(&g, &["y"]),
+        &set(&g, &["c", "after"]),
+    );
+    assert!(
+        matches!(&c.problems[..], [Problem::DescendantOfMediator { .. }]),
+        "{:?}",
+        c.problems
+    );
 }
 
 #[test]
@@ -66,7 +88,10 @@ fn m_bias_collider() {
     assert!(valid(&g, &["m", "a"]) && valid(&g, &["m", "b"]));
     assert_eq!(minimal(&g, &["t"], &["y"]), vec![Vec::<String>::new()]);
     // O = pa(y) \ forb = {b}.
-    assert_eq!(identify::optimal_adjustment_set(&g, &set(&g, &["t"]), &set(&g, &["y"])), Optimal::Found(set(&g, &["b"])));
+    assert_eq!(
+        identify::optimal_adjustment_set(&g, &set(&g, &["t"]), &set(&g, &["y"])),
+        Optimal::Found(set(&g, &["b"]))
+    );
 }
 
 #[test]
@@ -74,8 +99,14 @@ fn butterfly_bias() {
     let g = d("a -> m <- b; a -> t; b -> y; m -> t; m -> y; t -> y");
     assert!(!valid(&g, &["m"]));
     assert!(!valid(&g, &[]));
-    assert_eq!(minimal(&g, &["t"], &["y"]), vec![v(&["a", "m"]), v(&["b", "m"])]);
-    assert_eq!(identify::optimal_adjustment_set(&g, &set(&g, &["t"]), &set(&g, &["y"])), Optimal::Found(set(&g, &["b", "m"])));
+    assert_eq!(
+        minimal(&g, &["t"], &["y"]),
+        vec![v(&["a", "m"]), v(&["b", "m"])]
+    );
+    assert_eq!(
+        identify::optimal_adjustment_set(&g, &set(&g, &["t"]), &set(&g, &["y"])),
+        Optimal::Found(set(&g, &["b", "m"]))
+    );
 }
 
 #[test]
@@ -84,8 +115,18 @@ fn adjustment_criterion_is_wider_than_backdoor() {
     // (Shpitser et al. 2010), not by Pearl's backdoor criterion.
     let g = d("c -> t -> y; c -> y; t -> w");
     assert!(valid(&g, &["c", "w"]));
-    assert!(!identify::satisfies_backdoor(&g, &set(&g, &["t"]), &set(&g, &["y"]), &set(&g, &["c", "w"])));
-    assert!(identify::satisfies_backdoor(&g, &set(&g, &["t"]), &set(&g, &["y"]), &set(&g, &["c"])));
+    assert!(!identify::satisfies_backdoor(
+        &g,
+        &set(&g, &["t"]),
+        &set(&g, &["y"]),
+        &set(&g, &["c", "w"])
+    ));
+    assert!(identify::satisfies_backdoor(
+        &g,
+        &set(&g, &["t"]),
+        &set(&g, &["y"]),
+        &set(&g, &["c"])
+    ));
 }
 
 #[test]
@@ -94,19 +135,43 @@ fn front_door() {
     let r = report(&g, &v(&["t"]), &v(&["y"]), &Declared::default());
     assert!(!r.adjustment.exists);
     assert_eq!(r.adjustment.open_path.as_deref(), Some("t <-> y"));
-    assert_eq!(r.adjustment.measure_to_adjust, Some(v(&["a common cause of t and y"])));
+    assert_eq!(
+        r.adjustment.measure_to_adjust,
+        Some(v(&["a common cause of t and y"]))
+    );
     assert_eq!(r.front_door.sets, vec![v(&["m"])]);
     assert!(r.instrument.found.is_empty());
     // Each condition, broken in turn.
     let bypass = d("t -> m -> y; t -> y; t <-> y");
-    let c = identify::check_front_door(&bypass, &set(&bypass, &["t"]), &set(&bypass, &["y"]), &set(&bypass, &["m"]));
-    assert!(matches!(&c.problems[..], [Problem::Bypass(_)]), "{:?}", c.problems);
+    let c = identify::check_front_door(
+        &bypass,
+        &set(&bypass, &["t"]),
+        &set(&bypass, &["y"]),
+        &set(&bypass, &["m"]),
+    );
+    assert!(
+        matches!(&c.problems[..], [Problem::Bypass(_)]),
+        "{:?}",
+        c.problems
+    );
     let tm = d("t -> m -> y; t <-> y; t <-> m");
-    let c = identify::check_front_door(&tm, &set(&tm, &["t"]), &set(&tm, &["y"]), &set(&tm, &["m"]));
-    assert!(c.problems.iter().any(|p| matches!(p, Problem::TreatmentMediatorPath(_))), "{:?}", c.problems);
+    let c =
+        identify::check_front_door(&tm, &set(&tm, &["t"]), &set(&tm, &["y"]), &set(&tm, &["m"]));
+    assert!(
+        c.problems
+            .iter()
+            .any(|p| matches!(p, Problem::TreatmentMediatorPath(_))),
+        "{:?}",
+        c.problems
+    );
     let my = d("t -> m -> y; t <-> y; m <-> y");
-    let c = identify::check_front_door(&my, &set(&my, &["t"]), &set(&my, &["y"]), &set(&my, &["m"]));
-    assert!(matches!(&c.problems[..], [Problem::MediatorOutcomePath(_)]), "{:?}", c.problems);
+    let c =
+        identify::check_front_door(&my, &set(&my, &["t"]), &set(&my, &["y"]), &set(&my, &["m"]));
+    assert!(
+        matches!(&c.problems[..], [Problem::MediatorOutcomePath(_)]),
+        "{:?}",
+        c.problems
+    );
 }
 
 #[test]
@@ -118,17 +183,36 @@ fn instruments() {
     let g = d("w -> z; w -> y; z -> t -> y; t <-> y");
     let (t, y, z) = (set(&g, &["t"]), set(&g, &["y"]), set(&g, &["z"]));
     let c = identify::check_instrument(&g, &t, &y, &z, &set(&g, &[]));
-    assert!(matches!(&c.problems[..], [Problem::ExclusionPath(_)]), "{:?}", c.problems);
+    assert!(
+        matches!(&c.problems[..], [Problem::ExclusionPath(_)]),
+        "{:?}",
+        c.problems
+    );
     assert!(identify::check_instrument(&g, &t, &y, &z, &set(&g, &["w"])).valid);
     let found = identify::find_instruments(&g, &t, &y);
-    assert!(found.contains(&(g.index_of("z").unwrap(), set(&g, &["w"]))), "{found:?}");
+    assert!(
+        found.contains(&(g.index_of("z").unwrap(), set(&g, &["w"]))),
+        "{found:?}"
+    );
     // A direct path from the instrument to the outcome breaks exclusion whatever we condition on.
     let g = d("z -> t -> y; z -> y; t <-> y");
     assert!(identify::find_instruments(&g, &set(&g, &["t"]), &set(&g, &["y"])).is_empty());
     // An instrument affected by the treatment is not one.
     let g = d("t -> z; t -> y");
-    let c = identify::check_instrument(&g, &set(&g, &["t"]), &set(&g, &["y"]), &set(&g, &["z"]), &set(&g, &[]));
-    assert!(c.problems.iter().any(|p| matches!(p, Problem::AffectedByTreatment(_))), "{:?}", c.problems);
+    let c = identify::check_instrument(
+        &g,
+        &set(&g, &["t"]),
+        &set(&g, &["y"]),
+        &set(&g, &["z"]),
+        &set(&g, &[]),
+    );
+    assert!(
+        c.problems
+            .iter()
+            .any(|p| matches!(p, Problem::AffectedByTreatment(_))),
+        "{:?}",
+        c.problems
+    );
 }
 
 #[test]
@@ -147,13 +231,22 @@ fn multiple_treatments() {
     let g = d("c -> t1 -> k -> t2 -> y; c -> y; k -> y; t1 -> y");
     let x = set(&g, &["t1", "t2"]);
     let y = set(&g, &["y"]);
-    assert!(identify::check_adjustment(&g, &x, &y, &set(&g, &["c", "k"])).valid == false);
+    assert!(!identify::check_adjustment(&g, &x, &y, &set(&g, &["c", "k"])).valid);
     // k is on the causal path t1 -> k -> y, so no adjustment set exists for the joint effect.
     let (sets, _) = identify::minimal_adjustment_sets(&g, &x, &y, &g.observed(), 10);
     assert!(sets.is_empty());
     let g = d("c -> t1 -> y; c -> y; e -> t2 -> y; e -> y");
-    let (sets, _) = identify::minimal_adjustment_sets(&g, &set(&g, &["t1", "t2"]), &set(&g, &["y"]), &g.observed(), 10);
-    assert_eq!(sets.iter().map(|s| g.sorted_names(s)).collect::<Vec<_>>(), vec![v(&["c", "e"])]);
+    let (sets, _) = identify::minimal_adjustment_sets(
+        &g,
+        &set(&g, &["t1", "t2"]),
+        &set(&g, &["y"]),
+        &g.observed(),
+        10,
+    );
+    assert_eq!(
+        sets.iter().map(|s| g.sorted_names(s)).collect::<Vec<_>>(),
+        vec![v(&["c", "e"])]
+    );
 }
 
 #[test]
@@ -170,13 +263,19 @@ fn implied_independences_of_a_chain_and_collider() {
     let ind: Vec<String> = implied(&g)
         .iter()
         .map(|i| {
-            let (a, b) = if i.a < i.b { (&i.a, &i.b) } else { (&i.b, &i.a) };
+            let (a, b) = if i.a < i.b {
+                (&i.a, &i.b)
+            } else {
+                (&i.b, &i.a)
+            };
             format!("{a} _||_ {b} | {}", i.given.join(","))
         })
         .collect();
     assert!(ind.contains(&"a _||_ c | b".to_string()), "{ind:?}");
     assert!(ind.contains(&"a _||_ e | ".to_string()), "{ind:?}");
-    assert!(ind.iter().all(|s| !s.contains("d _||_") || !s.contains("| d")));
+    assert!(ind
+        .iter()
+        .all(|s| !s.contains("d _||_") || !s.contains("| d")));
     // A latent common cause makes a pair untestable.
     let g = d("a <-> b");
     assert!(implied(&g).is_empty());

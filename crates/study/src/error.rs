@@ -37,13 +37,26 @@ impl std::error::Error for StudyError {}
 
 impl fmt::Display for StudyError {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        let key = self.key.as_ref().map(|k| format!("`{k}`: ")).unwrap_or_default();
+        let key = self
+            .key
+            .as_ref()
+            .map(|k| format!("`{k}`: "))
+            .unwrap_or_default();
         match &self.location {
-            Location::File { path, line, col, text } => {
+            Location::File {
+                path,
+                line,
+                col,
+                text,
+            } => {
                 write!(f, "{path}:{line}:{col}: {key}{}", self.message)?;
                 if !text.is_empty() {
                     let gutter = line.to_string().len();
-                    write!(f, "\n{:gutter$} |\n{line} | {text}\n{:gutter$} | {:>col$}", "", "", "^")?;
+                    write!(
+                        f,
+                        "\n{:gutter$} |\n{line} | {text}\n{:gutter$} | {:>col$}",
+                        "", "", "^"
+                    )?;
                 }
                 Ok(())
             }
@@ -73,7 +86,10 @@ impl<'a> Lines<'a> {
         let line = before.matches('\n').count() + 1;
         let start = before.rfind('\n').map(|i| i + 1).unwrap_or(0);
         let col = self.text[start..offset].chars().count() + 1;
-        let end = self.text[start..].find('\n').map(|i| start + i).unwrap_or(self.text.len());
+        let end = self.text[start..]
+            .find('\n')
+            .map(|i| start + i)
+            .unwrap_or(self.text.len());
         Location::File {
             path: self.path.clone(),
             line,
@@ -115,14 +131,19 @@ impl<'a> Lines<'a> {
 }
 
 /// The closest candidate to `word` by edit distance, if it is close enough to suggest.
-pub(crate) fn did_you_mean<'a, I: IntoIterator<Item = &'a str>>(word: &str, candidates: I) -> Option<&'a str> {
+pub(crate) fn did_you_mean<'a, I: IntoIterator<Item = &'a str>>(
+    word: &str,
+    candidates: I,
+) -> Option<&'a str> {
     fn dist(a: &str, b: &str) -> usize {
         let b: Vec<char> = b.chars().collect();
         let mut prev: Vec<usize> = (0..=b.len()).collect();
         for (i, ca) in a.chars().enumerate() {
             let mut cur = vec![i + 1; b.len() + 1];
             for (j, cb) in b.iter().enumerate() {
-                cur[j + 1] = (prev[j] + usize::from(ca != *cb)).min(prev[j + 1] + 1).min(cur[j] + 1);
+                cur[j + 1] = (prev[j] + usize::from(ca != *cb))
+                    .min(prev[j + 1] + 1)
+                    .min(cur[j] + 1);
             }
             prev = cur;
         }

@@ -35,7 +35,9 @@ impl Estimand {
 
     /// Parses `ATE`, `ATT`, `ATC` (any case).
     pub fn parse(s: &str) -> Option<Estimand> {
-        Estimand::ALL.into_iter().find(|e| e.as_str().eq_ignore_ascii_case(s))
+        Estimand::ALL
+            .into_iter()
+            .find(|e| e.as_str().eq_ignore_ascii_case(s))
     }
 }
 
@@ -127,7 +129,11 @@ impl Method {
     pub fn needs_binary_treatment(self) -> bool {
         matches!(
             self,
-            Method::Stratify | Method::Weight | Method::DoublyRobust | Method::Match | Method::Coarsen
+            Method::Stratify
+                | Method::Weight
+                | Method::DoublyRobust
+                | Method::Match
+                | Method::Coarsen
         )
     }
 }
@@ -298,20 +304,33 @@ impl Study {
                 let content_offset = string_content_offset(text, t.span().start);
                 let value = t.into_inner();
                 Diagram::parse(&value).map_err(|e| {
-                    diagram_error(&e, content_offset.map(|o| (&lines, o)), &format!("{label} [diagram].text"))
+                    diagram_error(
+                        &e,
+                        content_offset.map(|o| (&lines, o)),
+                        &format!("{label} [diagram].text"),
+                    )
                 })?
             }
             (None, Some(f)) => {
                 let off = f.span().start;
                 let p = base.join(f.get_ref());
                 let dt = std::fs::read_to_string(&p).map_err(|e| {
-                    lines.error(off, Some("diagram.file".into()), format!("cannot read {}: {e}", p.display()))
+                    lines.error(
+                        off,
+                        Some("diagram.file".into()),
+                        format!("cannot read {}: {e}", p.display()),
+                    )
                 })?;
                 let dl = Lines::new(&dt, &p.display().to_string());
-                Diagram::parse(&dt).map_err(|e| diagram_error(&e, Some((&dl, 0)), &p.display().to_string()))?
+                Diagram::parse(&dt)
+                    .map_err(|e| diagram_error(&e, Some((&dl, 0)), &p.display().to_string()))?
             }
             (Some(_), Some(_)) => {
-                return Err(lines.error(dspan, Some("diagram".into()), "give either `text` or `file`, not both".into()))
+                return Err(lines.error(
+                    dspan,
+                    Some("diagram".into()),
+                    "give either `text` or `file`, not both".into(),
+                ))
             }
             (None, None) => {
                 return Err(lines.error(
@@ -334,27 +353,52 @@ impl Study {
             let rs = rs.into_inner();
             let mut kinds = Vec::new();
             if let Some(t) = rs.table {
-                kinds.push(("table", t.span().start, SourceKind::Table(nonempty(&lines, "source.table", t)?)));
+                kinds.push((
+                    "table",
+                    t.span().start,
+                    SourceKind::Table(nonempty(&lines, "source.table", t)?),
+                ));
             }
             if let Some(q) = rs.query {
-                kinds.push(("query", q.span().start, SourceKind::Query(nonempty(&lines, "source.query", q)?)));
+                kinds.push((
+                    "query",
+                    q.span().start,
+                    SourceKind::Query(nonempty(&lines, "source.query", q)?),
+                ));
             }
             if let Some(f) = rs.file {
-                kinds.push(("file", f.span().start, SourceKind::File(base.join(nonempty(&lines, "source.file", f)?))));
+                kinds.push((
+                    "file",
+                    f.span().start,
+                    SourceKind::File(base.join(nonempty(&lines, "source.file", f)?)),
+                ));
             }
             if kinds.len() > 1 {
                 return Err(lines.error(
                     kinds[1].1,
                     Some(format!("source.{}", kinds[1].0)),
-                    format!("give one of `table`, `query` or `file`; `{}` is already set", kinds[0].0),
+                    format!(
+                        "give one of `table`, `query` or `file`; `{}` is already set",
+                        kinds[0].0
+                    ),
                 ));
             }
             if kinds.is_empty() && (rs.filter.is_some() || rs.unit.is_some()) {
-                return Err(lines.error(sspan, Some("source".into()), "add `table`, `query` or `file` to say where the rows are".into()));
+                return Err(lines.error(
+                    sspan,
+                    Some("source".into()),
+                    "add `table`, `query` or `file` to say where the rows are".into(),
+                ));
             }
             source.rows = kinds.pop().map(|k| k.2);
-            source.database = rs.database.map(|d| nonempty(&lines, "source.database", d)).transpose()?;
-            source.filter = rs.filter.map(|f| nonempty(&lines, "source.filter", f)).transpose()?;
+            source.database = rs
+                .database
+                .map(|d| nonempty(&lines, "source.database", d))
+                .transpose()?;
+            source.filter = rs
+                .filter
+                .map(|f| nonempty(&lines, "source.filter", f))
+                .transpose()?;
             if let Some(u) = rs.unit {
                 let off = u.span().start;
                 let u = nonempty(&lines, "source.unit", u)?;
@@ -368,7 +412,8 @@ impl Study {
             return Err(lines.error(
                 text.len(),
                 Some("question".into()),
-                "the study asks no question: add a `[[question]]` with `treatment` and `outcome`".into(),
+                "the study asks no question: add a `[[question]]` with `treatment` and `outcome`"
+                    .into(),
             ));
         }
         let mut questions = Vec::new();
@@ -400,9 +445,14 @@ impl Study {
 
     /// Builds a one-question study from command-line pieces. `graph_label` names the diagram's
     /// origin in errors (a path or `--graph`).
-    pub fn from_parts(graph_text: &str, graph_label: &str, q: QuestionInput) -> Result<Study, StudyError> {
+    pub fn from_parts(
+        graph_text: &str,
+        graph_label: &str,
+        q: QuestionInput,
+    ) -> Result<Study, StudyError> {
         let lines = Lines::new(graph_text, graph_label);
-        let diagram = Diagram::parse(graph_text).map_err(|e| diagram_error(&e, Some((&lines, 0)), graph_label))?;
+        let diagram = Diagram::parse(graph_text)
+            .map_err(|e| diagram_error(&e, Some((&lines, 0)), graph_label))?;
         let estimand = match &q.estimand {
             None => Estimand::Ate,
             Some(e) => parse_estimand(e, &At::Flag("--estimand"), "estimand")?,
@@ -462,7 +512,13 @@ impl Study {
     pub fn with_overrides(mut self, o: &QuestionInput) -> Result<Study, StudyError> {
         let mut out = Vec::new();
         for q in &self.questions {
-            let pick = |flag: &Vec<String>, own: &Vec<String>| if flag.is_empty() { own.clone() } else { flag.clone() };
+            let pick = |flag: &Vec<String>, own: &Vec<String>| {
+                if flag.is_empty() {
+                    own.clone()
+                } else {
+                    flag.clone()
+                }
+            };
             let estimand = match &o.estimand {
                 Some(e) => parse_estimand(e, &At::Flag("--estimand"), "estimand")?,
                 None => q.estimand,
@@ -480,14 +536,25 @@ impl Study {
                     estimand,
                     segments: (pick(&o.segments, &q.segments), At::Flag("--segment-by")),
                     method: (method, At::Flag("--method")),
-                    adjust: o.adjust.clone().or_else(|| q.adjust.clone()).map(|a| (a, At::Flag("--adjust"))),
-                    mediators: o.mediators.clone().or_else(|| q.mediators.clone()).map(|a| (a, At::Flag("--mediators"))),
+                    adjust: o
+                        .adjust
+                        .clone()
+                        .or_else(|| q.adjust.clone())
+                        .map(|a| (a, At::Flag("--adjust"))),
+                    mediators: o
+                        .mediators
+                        .clone()
+                        .or_else(|| q.mediators.clone())
+                        .map(|a| (a, At::Flag("--mediators"))),
                     instruments: o
                         .instruments
                         .clone()
                         .or_else(|| q.instruments.clone())
                         .map(|a| (a, At::Flag("--instruments"))),
-                    instrument_given: (pick(&o.instrument_given, &q.instrument_given), At::Flag("--instrument-given")),
+                    instrument_given: (
+                        pick(&o.instrument_given, &q.instrument_given),
+                        At::Flag("--instrument-given"),
+                    ),
                     unit: q.unit.clone().map(|u| (u, At::Flag("--unit"))),
                 },
             )?);
@@ -533,7 +600,12 @@ fn string_content_offset(text: &str, start: usize) -> Option<usize> {
             off += 1;
         }
     }
-    if !literal && text[off..].split(if open == 3 { "\"\"\"" } else { "\"" }).next()?.contains('\\') {
+    if !literal
+        && text[off..]
+            .split(if open == 3 { "\"\"\"" } else { "\"" })
+            .next()?
+            .contains('\\')
+    {
         return None;
     }
     Some(off)
@@ -541,7 +613,10 @@ fn string_content_offset(text: &str, start: usize) -> Option<usize> {
 
 fn parse_estimand(s: &str, at: &At, key: &str) -> Result<Estimand, StudyError> {
     Estimand::parse(s).ok_or_else(|| {
-        at.err(key, format!("unknown estimand `{s}`; expected one of: ATE, ATT, ATC"))
+        at.err(
+            key,
+            format!("unknown estimand `{s}`; expected one of: ATE, ATT, ATC"),
+        )
     })
 }
 
@@ -551,7 +626,13 @@ fn parse_method(s: &str, at: &At, key: &str) -> Result<Method, StudyError> {
         let hint = did_you_mean(s, all.iter().copied())
             .map(|m| format!(" (did you mean `{m}`?)"))
             .unwrap_or_default();
-        at.err(key, format!("unknown method `{s}`{hint}; expected one of: {}", all.join(", ")))
+        at.err(
+            key,
+            format!(
+                "unknown method `{s}`{hint}; expected one of: {}",
+                all.join(", ")
+            ),
+        )
     })
 }
 
@@ -579,7 +660,12 @@ struct QuestionParts<'a> {
     unit: Option<(String, At<'a>)>,
 }
 
-fn question_from_file(d: &Diagram, lines: &Lines, i: usize, q: Spanned<RawQuestion>) -> Result<Question, StudyError> {
+fn question_from_file(
+    d: &Diagram,
+    lines: &Lines,
+    i: usize,
+    q: Spanned<RawQuestion>,
+) -> Result<Question, StudyError> {
     let qspan = q.span().start;
     let q = q.into_inner();
     let key = |k: &str| format!("question[{}].{k}", i + 1);
@@ -591,7 +677,10 @@ fn question_from_file(d: &Diagram, lines: &Lines, i: usize, q: Spanned<RawQuesti
     };
     let (method, mspan) = match &q.method {
         None => (Method::Auto, qspan),
-        Some(m) => (parse_method(m.get_ref(), &at(m.span().start), &key("method"))?, m.span().start),
+        Some(m) => (
+            parse_method(m.get_ref(), &at(m.span().start), &key("method"))?,
+            m.span().start,
+        ),
     };
     let name = match q.name {
         Some(n) => nonempty(lines, &key("name"), n)?,
@@ -626,7 +715,11 @@ fn question_from_file(d: &Diagram, lines: &Lines, i: usize, q: Spanned<RawQuesti
     )
     .map_err(|mut e| {
         if let Some(k) = e.key.take() {
-            e.key = Some(if k.starts_with("question[") { k } else { key(&k) });
+            e.key = Some(if k.starts_with("question[") {
+                k
+            } else {
+                key(&k)
+            });
         }
         e
     })
@@ -692,7 +785,12 @@ fn build_question(d: &Diagram, p: QuestionParts) -> Result<Question, StudyError>
     let other = |names: &[String], at: &At, key: &str, role: &str| -> Result<(), StudyError> {
         known(names, at, key, role)?;
         if let Some(n) = names.iter().find(|n| ends.contains(n)) {
-            return Err(at.err(key, format!("`{n}` is a treatment or outcome of this question and cannot be used as {role}")));
+            return Err(at.err(
+                key,
+                format!(
+                    "`{n}` is a treatment or outcome of this question and cannot be used as {role}"
+                ),
+            ));
         }
         Ok(())
     };
@@ -724,14 +822,29 @@ fn build_question(d: &Diagram, p: QuestionParts) -> Result<Question, StudyError>
         }
     }
     let (given, gat) = &p.instrument_given;
-    other(given, gat, "instrument_given", "an instrument's conditioning variable")?;
+    other(
+        given,
+        gat,
+        "instrument_given",
+        "an instrument's conditioning variable",
+    )?;
     if !given.is_empty() && p.instruments.is_none() {
-        return Err(gat.err("instrument_given", "`instrument_given` needs `instruments`".into()));
+        return Err(gat.err(
+            "instrument_given",
+            "`instrument_given` needs `instruments`".into(),
+        ));
     }
     let (method, mat) = &p.method;
     if method.needs_binary_treatment() {
         if tr.len() > 1 {
-            return Err(mat.err("method", format!("method `{}` takes one binary treatment; {} are given", method.as_str(), tr.len())));
+            return Err(mat.err(
+                "method",
+                format!(
+                    "method `{}` takes one binary treatment; {} are given",
+                    method.as_str(),
+                    tr.len()
+                ),
+            ));
         }
         let k = d.node(d.index_of(&tr[0]).expect("checked")).kind;
         if !matches!(k, Kind::Binary | Kind::Unspecified) {

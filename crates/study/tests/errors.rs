@@ -32,7 +32,10 @@ fn a_valid_study() {
 fn unknown_key_names_line_and_allowed_keys() {
     let (line, col, msg) = err("[[question]]\ntreatmnt = \"voucher\"\noutcome = \"spend\"\n");
     assert_eq!((line, col), (5, 1), "{msg}");
-    assert!(msg.contains("unknown field `treatmnt`") && msg.contains("`treatment`"), "{msg}");
+    assert!(
+        msg.contains("unknown field `treatmnt`") && msg.contains("`treatment`"),
+        "{msg}"
+    );
     assert!(msg.contains("s.toml:5:1"), "{msg}");
 }
 
@@ -58,22 +61,39 @@ fn latent_and_overlapping_variables() {
 
 #[test]
 fn methods_estimands_and_types() {
-    let (line, col, msg) = err("[[question]]\ntreatment = \"voucher\"\noutcome = \"spend\"\nmethod = \"regres\"\n");
+    let (line, col, msg) =
+        err("[[question]]\ntreatment = \"voucher\"\noutcome = \"spend\"\nmethod = \"regres\"\n");
     assert_eq!((line, col), (7, 10), "{msg}");
-    assert!(msg.contains("did you mean `regress`?") && msg.contains("doubly-robust"), "{msg}");
-    let (_, _, msg) = err("[[question]]\ntreatment = \"voucher\"\noutcome = \"spend\"\nestimand = \"ATX\"\n");
+    assert!(
+        msg.contains("did you mean `regress`?") && msg.contains("doubly-robust"),
+        "{msg}"
+    );
+    let (_, _, msg) =
+        err("[[question]]\ntreatment = \"voucher\"\noutcome = \"spend\"\nestimand = \"ATX\"\n");
     assert!(msg.contains("expected one of: ATE, ATT, ATC"), "{msg}");
-    let (_, _, msg) = err("[[question]]\ntreatment = \"rate\"\noutcome = \"spend\"\nmethod = \"weight\"\n");
-    assert!(msg.contains("needs a binary (0/1) treatment") && msg.contains("declared continuous"), "{msg}");
+    let (_, _, msg) =
+        err("[[question]]\ntreatment = \"rate\"\noutcome = \"spend\"\nmethod = \"weight\"\n");
+    assert!(
+        msg.contains("needs a binary (0/1) treatment") && msg.contains("declared continuous"),
+        "{msg}"
+    );
     let (line, _, msg) = err("[[question]]\ntreatment = 5\noutcome = \"spend\"\n");
     assert_eq!(line, 5);
-    assert!(msg.contains("a variable name or a list of variable names"), "{msg}");
+    assert!(
+        msg.contains("a variable name or a list of variable names"),
+        "{msg}"
+    );
 }
 
 #[test]
 fn segments_must_precede_treatment() {
-    let (_, _, msg) = err("[[question]]\ntreatment = \"voucher\"\noutcome = \"spend\"\nsegments = [\"sessions\"]\n");
-    assert!(msg.contains("affected by the treatment (voucher -> sessions)"), "{msg}");
+    let (_, _, msg) = err(
+        "[[question]]\ntreatment = \"voucher\"\noutcome = \"spend\"\nsegments = [\"sessions\"]\n",
+    );
+    assert!(
+        msg.contains("affected by the treatment (voucher -> sessions)"),
+        "{msg}"
+    );
 }
 
 #[test]
@@ -81,7 +101,9 @@ fn diagram_errors_point_into_the_study_file() {
     let text = "[study]\nname = \"x\"\n\n[diagram]\ntext = '''\na -> b\nb -> a\n'''\n\n[[question]]\ntreatment = \"a\"\noutcome = \"b\"\n";
     let e = Study::parse(text, "s.toml", None).unwrap_err();
     match &e.location {
-        Location::File { line, col, text, .. } => {
+        Location::File {
+            line, col, text, ..
+        } => {
             assert_eq!((*line, *col), (7, 3), "{e}");
             assert_eq!(text, "b -> a");
         }
@@ -92,20 +114,35 @@ fn diagram_errors_point_into_the_study_file() {
 
 #[test]
 fn structural_errors() {
-    let e = Study::parse("[[question]]\ntreatment = \"a\"\noutcome = \"b\"\n", "s.toml", None).unwrap_err();
+    let e = Study::parse(
+        "[[question]]\ntreatment = \"a\"\noutcome = \"b\"\n",
+        "s.toml",
+        None,
+    )
+    .unwrap_err();
     assert!(e.to_string().contains("missing section [diagram]"), "{e}");
     let (_, _, msg) = err("");
     assert!(msg.contains("asks no question"), "{msg}");
     let (line, _, msg) = err("[source]\ntable = \"t\"\nquery = \"select 1\"\n[[question]]\ntreatment = \"voucher\"\noutcome = \"spend\"\n");
     assert_eq!(line, 6);
-    assert!(msg.contains("give one of `table`, `query` or `file`"), "{msg}");
+    assert!(
+        msg.contains("give one of `table`, `query` or `file`"),
+        "{msg}"
+    );
     let e = study("[[question]]\nname = \"a\"\ntreatment = \"voucher\"\noutcome = \"spend\"\n[[question]]\nname = \"a\"\ntreatment = \"voucher\"\noutcome = \"spend\"\n").unwrap_err();
     assert!(e.to_string().contains("names must be unique"), "{e}");
     let (_, _, msg) = err("[source]\ntable = \"t\"\nunit = \"zone\"\n[[question]]\ntreatment = \"voucher\"\noutcome = \"spend\"\n");
     assert!(msg.contains("unit key"), "{msg}");
-    let e = Study::parse("[diagram]\nfile = \"missing.graph\"\n[[question]]\ntreatment = \"a\"\noutcome = \"b\"\n", "s.toml", None)
-        .unwrap_err();
-    assert!(e.to_string().contains("cannot read") && e.to_string().contains("missing.graph"), "{e}");
+    let e = Study::parse(
+        "[diagram]\nfile = \"missing.graph\"\n[[question]]\ntreatment = \"a\"\noutcome = \"b\"\n",
+        "s.toml",
+        None,
+    )
+    .unwrap_err();
+    assert!(
+        e.to_string().contains("cannot read") && e.to_string().contains("missing.graph"),
+        "{e}"
+    );
     let e = Study::parse("[diagram\n", "s.toml", None).unwrap_err();
     assert!(matches!(e.location, Location::File { line: 1, .. }), "{e}");
 }
@@ -113,7 +150,11 @@ fn structural_errors() {
 #[test]
 fn the_demo_studies_load() {
     let root = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("../../demo-data");
-    for f in ["voucher-backdoor.toml", "voucher-frontdoor.toml", "voucher-instrument.toml"] {
+    for f in [
+        "voucher-backdoor.toml",
+        "voucher-frontdoor.toml",
+        "voucher-instrument.toml",
+    ] {
         let s = Study::load(&root.join(f)).unwrap_or_else(|e| panic!("{f}: {e}"));
         assert!(!s.questions.is_empty());
     }
