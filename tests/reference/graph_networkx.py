@@ -9,6 +9,11 @@ valid and lose validity when any one member is removed (minimality of d-separato
 Tian, Paz & Pearl 1998); when none is listed, the largest candidate set must be invalid
 (van der Zander, Liskiewicz & Textor 2019, the set An(X u Y) n R \\ forb is valid iff any is).
 
+Every implied independence upshot reports (pairwise statements, and the local Markov basis of
+diagrams without latent variables) must be a d-separation according to networkx; the local
+Markov basis must also be the textbook one: each node against its non-descendants other than its
+parents, given its parents (Lauritzen 1996, sec. 3.2.2).
+
 Reads JSON lines from the file given as argument (written by the graph-cases binary).
 """
 import json
@@ -47,7 +52,7 @@ def backdoor(g, x, y, z):
 
 def main(path):
     passed = failed = 0
-    counts = {"dsep": 0, "adjust": 0, "backdoor": 0, "minimal": 0, "none-exists": 0}
+    counts = {"dsep": 0, "adjust": 0, "backdoor": 0, "minimal": 0, "none-exists": 0, "implied": 0, "markov": 0}
     with open(path) as f:
         for line in f:
             case = json.loads(line)
@@ -58,8 +63,13 @@ def main(path):
             for q in case["queries"]:
                 x, y, z = q["x"], q["y"], q["z"]
                 checks = []
-                if q["kind"] == "dsep":
-                    checks.append(("dsep", nx.is_d_separator(g, set(x), set(y), set(z)), q["separated"]))
+                if q["kind"] in ("dsep", "implied", "markov"):
+                    checks.append((q["kind"], nx.is_d_separator(g, set(x), set(y), set(z)), q["separated"]))
+                    if q["kind"] == "markov":
+                        (v,) = x
+                        nd = set(g.nodes) - nx.descendants(g, v) - {v} - set(g.predecessors(v))
+                        ok = set(z) == set(g.predecessors(v)) and set(y) == nd
+                        checks.append(("markov", ok, True))
                 else:
                     checks.append(("adjust", adjustment_valid(g, x, y, z), q["valid"]))
                     checks.append(("backdoor", backdoor(g, x, y, z), q["backdoor"]))

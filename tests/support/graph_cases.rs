@@ -3,8 +3,9 @@
 //!
 //! Usage: `graph-cases [--graphs N] [--seed S]` (defaults 200 graphs, seed 1). Each line holds
 //! one diagram (nodes, directed edges, latent nodes) and its queries: d-separation of random
-//! disjoint sets, validity of random adjustment sets (with Pearl's backdoor criterion), and the
-//! minimal adjustment sets upshot lists.
+//! disjoint sets, validity of random adjustment sets (with Pearl's backdoor criterion), the
+//! minimal adjustment sets upshot lists, and the implied independences it reports (pairwise, and
+//! the local Markov basis of diagrams without latent variables).
 
 use serde_json::{json, Value};
 use upshot_graph::identify;
@@ -106,6 +107,18 @@ fn main() {
                 "minimal_sets": minimal.iter().map(|s| d.names(s)).collect::<Vec<_>>(),
                 "complete": complete,
             }));
+        }
+        for i in identify::implied_independences(&d) {
+            queries.push(json!({
+                "kind": "implied", "x": [d.name(i.a)], "y": [d.name(i.b)], "z": names(&i.given), "separated": true,
+            }));
+        }
+        if let Some(basis) = identify::local_markov_basis(&d) {
+            for b in basis {
+                queries.push(json!({
+                    "kind": "markov", "x": [d.name(b.node)], "y": names(&b.independent_of), "z": names(&b.given), "separated": true,
+                }));
+            }
         }
         let (edges, _) = d.declared_edges();
         let line = json!({

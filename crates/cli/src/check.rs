@@ -4,7 +4,9 @@ use crate::exit::{Failure, NOT_IDENTIFIED, OK};
 use serde::Serialize;
 use std::io::Read;
 use std::path::{Path, PathBuf};
-use upshot_graph::report::{self, Declared, Identification, NamedIndependence};
+use upshot_graph::report::{
+    self, Declared, Identification, NamedIndependence, NamedMarkovStatement,
+};
 use upshot_graph::{Diagram, Kind, Role};
 use upshot_study::{Method, Question, QuestionInput, Route, Study};
 
@@ -135,6 +137,7 @@ struct Document {
     diagram: DiagramSummary,
     questions: Vec<QuestionReport>,
     implied_independences: Vec<NamedIndependence>,
+    local_markov_basis: Option<Vec<NamedMarkovStatement>>,
     exit_code: i32,
 }
 
@@ -480,6 +483,7 @@ pub fn run(a: Args) -> Result<i32, Failure> {
                 .collect(),
         },
         implied_independences: report::implied(d),
+        local_markov_basis: report::markov_basis(d),
         questions: reports,
         exit_code: code,
     };
@@ -672,21 +676,49 @@ fn render(doc: &Document, d: &Diagram) -> String {
         }
     }
     let _ = writeln!(o);
-    if doc.implied_independences.is_empty() {
-        let _ = writeln!(o, "implied independences: none among observed variables");
-    } else {
-        let _ = writeln!(
-            o,
-            "implied independences ({}; each is testable on the data — a clear violation means the diagram is wrong)",
-            doc.implied_independences.len()
-        );
-        for i in &doc.implied_independences {
-            let given = if i.given.is_empty() {
-                String::new()
-            } else {
-                format!(" | {}", i.given.join(", "))
-            };
-            let _ = writeln!(o, "   {} ⊥ {}{given}", i.a, i.b);
+    match &doc.local_markov_basis {
+        Some(basis) if !basis.is_empty() => {
+            let _ = writeln!(
+                o,
+                "implied independences: local Markov basis ({} statements: each variable is independent of its non-descendants given its parents; together they imply every independence of the diagram)",
+                basis.len()
+            );
+            for b in basis {
+                let given = if b.given.is_empty() {
+                    String::new()
+                } else {
+                    format!(" | {}", b.given.join(", "))
+                };
+                let _ = writeln!(
+                    o,
+                    "   {} ⊥ {}{given}",
+                    b.variable,
+                    b.independent_of.join(", ")
+                );
+            }
+            let _ = writeln!(
+                o,
+                "   ({} pairwise statements with minimal conditioning sets, the tests to run on data: --format json, key implied_independences)",
+                doc.implied_independences.len()
+            );
+        }
+        _ if doc.implied_independences.is_empty() => {
+            let _ = writeln!(o, "implied independences: none among observed variables");
+        }
+        _ => {
+            let _ = writeln!(
+                o,
+                "implied independences ({}; pairs of observed variables the diagram separates, each with a minimal conditioning set; testable on data)",
+                doc.implied_independences.len()
+            );
+            for i in &doc.implied_independences {
+                let given = if i.given.is_empty() {
+                    String::new()
+                } else {
+                    format!(" | {}", i.given.join(", "))
+                };
+                let _ = writeln!(o, "   {} ⊥ {}{given}", i.a, i.b);
+            }
         }
     }
     o

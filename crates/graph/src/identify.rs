@@ -534,8 +534,9 @@ pub struct Independence {
 
 /// For every pair of non-adjacent observed variables that some observed set d-separates, one
 /// such statement with a minimal conditioning set (the one nearest the later variable in
-/// topological order). For a diagram without latent variables these statements imply every
-/// other independence of the diagram (the pairwise Markov property with minimal separators).
+/// topological order): small conditioning sets make the most powerful tests on data. Every
+/// statement is implied by the diagram; together they need not imply all of its independences
+/// (that is what [`local_markov_basis`] gives).
 pub fn implied_independences(d: &Diagram) -> Vec<Independence> {
     let g = d.dag();
     let order = g.topological_order().expect("diagram is acyclic");
@@ -563,4 +564,48 @@ pub fn implied_independences(d: &Diagram) -> Vec<Independence> {
         }
     }
     out
+}
+
+/// One statement of the local Markov property: `node` is independent of `independent_of` (its
+/// non-descendants other than its parents) given `given` (its parents).
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct MarkovStatement {
+    /// The variable.
+    pub node: usize,
+    /// Its non-descendants that are not parents.
+    pub independent_of: NodeSet,
+    /// Its parents.
+    pub given: NodeSet,
+}
+
+/// The local Markov basis of a diagram without latent variables: each variable is independent of
+/// its non-descendants given its parents. Every d-separation of the diagram follows from these
+/// statements by the graphoid axioms (Verma & Pearl 1988; Lauritzen 1996, sec. 3.2.2), so they are
+/// a complete list of its testable implications. Statements with nothing to say are omitted.
+/// `None` when the diagram has latent variables: its observed margin is then not a DAG and has no
+/// basis of this form; use [`implied_independences`].
+pub fn local_markov_basis(d: &Diagram) -> Option<Vec<MarkovStatement>> {
+    if d.observed().len() != d.len() {
+        return None;
+    }
+    let g = d.dag();
+    let order = g.topological_order().expect("diagram is acyclic");
+    let mut out = Vec::new();
+    for v in order {
+        let vs = g.set([v]);
+        let given = g.set(g.parents(v).iter().copied());
+        let independent_of = g
+            .set(0..g.len())
+            .difference(&g.descendants(&vs))
+            .difference(&given);
+        if !independent_of.is_empty() {
+            debug_assert!(g.d_separated(&vs, &independent_of, &given));
+            out.push(MarkovStatement {
+                node: v,
+                independent_of,
+                given,
+            });
+        }
+    }
+    Some(out)
 }

@@ -351,3 +351,27 @@ fn display_names(d: &Diagram, s: &NodeSet) -> Vec<String> {
 fn list(names: &[String]) -> String {
     format!("{{{}}}", names.join(", "))
 }
+
+/// A local Markov statement, by name.
+#[derive(Clone, Debug, Serialize, PartialEq, Eq)]
+pub struct NamedMarkovStatement {
+    /// The variable.
+    pub variable: String,
+    /// Non-descendants other than parents, sorted.
+    pub independent_of: Vec<String>,
+    /// Parents, sorted.
+    pub given: Vec<String>,
+}
+
+/// The local Markov basis by name (`None` when the diagram has latent variables).
+pub fn markov_basis(d: &Diagram) -> Option<Vec<NamedMarkovStatement>> {
+    identify::local_markov_basis(d).map(|b| {
+        b.into_iter()
+            .map(|s| NamedMarkovStatement {
+                variable: d.name(s.node).to_string(),
+                independent_of: d.sorted_names(&s.independent_of),
+                given: d.sorted_names(&s.given),
+            })
+            .collect()
+    })
+}
