@@ -439,7 +439,9 @@ pub fn find_instruments(d: &Diagram, x: &NodeSet, y: &NodeSet) -> Vec<(usize, No
     let mut out = Vec::new();
     for z in obs.difference(&dex).difference(y).iter() {
         let zs = g.set([z]);
-        let ok = |w: &NodeSet| check_instrument(d, x, y, &zs, w).valid;
+        // Candidate sets below are observed and free of the treatment's descendants, so only
+        // relevance and exclusion remain to be tested (no graph copies per test).
+        let ok = |w: &NodeSet| !g.d_separated(&zs, x, w) && ux.d_separated(&zs, y, w);
         let empty = g.empty_set();
         if ok(&empty) {
             out.push((z, empty));
@@ -453,6 +455,11 @@ pub fn find_instruments(d: &Diagram, x: &NodeSet, y: &NodeSet) -> Vec<(usize, No
         let an = ux.ancestors(&zs.union(y));
         let adj = ux.moral_graph(&an);
         let (mut seps, _) = minimal_separators(&adj, &zs, y, &allowed.intersection(&an), 256);
+        if seps.is_empty() {
+            // No allowed set separates z from y (the part of a separator inside An(z, y) would
+            // itself be one), so exclusion fails for every conditioning set.
+            continue;
+        }
         seps.sort_by_cached_key(|s| (s.len(), d.sorted_names(s)));
         let mut hit = seps.iter().find(|w| ok(w)).cloned();
         if hit.is_none() {
@@ -471,6 +478,7 @@ pub fn find_instruments(d: &Diagram, x: &NodeSet, y: &NodeSet) -> Vec<(usize, No
             hit = subsets_by_size(&allowed.to_vec(), g.len(), INSTRUMENT_BUDGET).find(|w| ok(w));
         }
         if let Some(w) = hit {
+            debug_assert!(check_instrument(d, x, y, &zs, &w).valid);
             out.push((z, w));
         }
     }
