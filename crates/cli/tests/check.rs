@@ -189,6 +189,21 @@ fn fails(args: &[&str], code: i32, needle: &str) {
     assert!(out.stdout.is_empty(), "{args:?} printed to stdout");
 }
 
+/// `check --graph "a -> b" --treatment a --outcome b` followed by `extra`.
+fn ab_flags<'a>(extra: &[&'a str]) -> Vec<&'a str> {
+    let mut v = vec![
+        "check",
+        "--graph",
+        "a -> b",
+        "--treatment",
+        "a",
+        "--outcome",
+        "b",
+    ];
+    v.extend_from_slice(extra);
+    v
+}
+
 #[test]
 fn bad_input_is_located_and_exits_2() {
     let dir = std::env::temp_dir().join(format!("upshot-check-{}", std::process::id()));
@@ -261,35 +276,11 @@ fn bad_input_is_located_and_exits_2() {
         "--outcome is required",
     );
     fails(
-        &[
-            "check",
-            "--graph",
-            "a -> b",
-            "--treatment",
-            "a",
-            "--outcome",
-            "b",
-            "--method",
-            "magic",
-        ],
+        &ab_flags(&["--method", "magic"]),
         2,
         "unknown method `magic`",
     );
-    fails(
-        &[
-            "check",
-            "--graph",
-            "a -> b",
-            "--treatment",
-            "a",
-            "--outcome",
-            "b",
-            "--format",
-            "xml",
-        ],
-        2,
-        "unknown format `xml`",
-    );
+    fails(&ab_flags(&["--format", "xml"]), 2, "unknown format `xml`");
     fails(
         &["check", "no-such-study.toml"],
         2,

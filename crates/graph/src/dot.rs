@@ -6,7 +6,8 @@
 //! on edges `dir=both` (a latent common cause, as `a <-> b`) and `dir=back`. Layout
 //! attributes are accepted and ignored. Subgraphs and ports are rejected with a message.
 
-use crate::diagram::{Builder, Diagram, DiagramError, Span};
+use crate::cursor::Parser;
+use crate::diagram::{Diagram, DiagramError, Span};
 
 #[derive(Clone, Debug, PartialEq)]
 enum Tok {
@@ -201,12 +202,6 @@ fn lex(text: &str) -> Result<Vec<(Tok, Span)>, DiagramError> {
     Ok(out)
 }
 
-struct Parser {
-    toks: Vec<(Tok, Span)>,
-    pos: usize,
-    b: Builder,
-}
-
 fn err(span: Span, message: String) -> DiagramError {
     DiagramError::Syntax { span, message }
 }
@@ -215,17 +210,7 @@ fn keyword(t: &Tok, k: &str) -> bool {
     matches!(t, Tok::Id(s, false) if s.eq_ignore_ascii_case(k))
 }
 
-impl Parser {
-    fn peek(&self) -> &(Tok, Span) {
-        &self.toks[self.pos]
-    }
-    fn bump(&mut self) -> (Tok, Span) {
-        let t = self.toks[self.pos].clone();
-        if self.pos + 1 < self.toks.len() {
-            self.pos += 1;
-        }
-        t
-    }
+impl Parser<Tok> {
     fn expect_id(&mut self, what: &str) -> Result<(String, Span), DiagramError> {
         match self.bump() {
             (Tok::Id(s, _), span) => Ok((s, span)),
@@ -389,11 +374,7 @@ impl Parser {
 
 /// Parses DOT text into a diagram.
 pub(crate) fn parse(text: &str) -> Result<Diagram, DiagramError> {
-    let mut p = Parser {
-        toks: lex(text)?,
-        pos: 0,
-        b: Builder::default(),
-    };
+    let mut p = Parser::new(lex(text)?);
     if keyword(&p.peek().0, "strict") {
         p.bump();
     }

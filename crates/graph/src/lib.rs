@@ -13,6 +13,7 @@
 //! This crate does no I/O and knows nothing of data, SQL or estimators.
 #![deny(missing_docs)]
 
+mod cursor;
 pub mod dag;
 pub mod diagram;
 mod dot;

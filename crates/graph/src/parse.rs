@@ -10,7 +10,8 @@
 //! ```
 //! Statements end at a new line or `;`.
 
-use crate::diagram::{Builder, Diagram, DiagramError, Span};
+use crate::cursor::Parser;
+use crate::diagram::{Diagram, DiagramError, Span};
 
 #[derive(Clone, Debug, PartialEq)]
 enum Tok {
@@ -164,25 +165,7 @@ fn lex(text: &str) -> Result<Vec<(Tok, Span)>, DiagramError> {
     Ok(out)
 }
 
-struct Parser {
-    toks: Vec<(Tok, Span)>,
-    pos: usize,
-    b: Builder,
-}
-
-impl Parser {
-    fn peek(&self) -> &(Tok, Span) {
-        &self.toks[self.pos]
-    }
-
-    fn bump(&mut self) -> (Tok, Span) {
-        let t = self.toks[self.pos].clone();
-        if self.pos + 1 < self.toks.len() {
-            self.pos += 1;
-        }
-        t
-    }
-
+impl Parser<Tok> {
     fn syntax(span: Span, message: String) -> DiagramError {
         DiagramError::Syntax { span, message }
     }
@@ -288,11 +271,7 @@ impl Parser {
 
 /// Parses the edge syntax described in the module documentation.
 pub fn parse(text: &str) -> Result<Diagram, DiagramError> {
-    let mut p = Parser {
-        toks: lex(text)?,
-        pos: 0,
-        b: Builder::default(),
-    };
+    let mut p = Parser::new(lex(text)?);
     loop {
         match p.peek().0 {
             Tok::Eof => break,
