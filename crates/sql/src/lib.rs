@@ -1,0 +1,27 @@
+//! SQL passes for upshot, built as sqlparser ASTs and rendered per dialect.
+//!
+//! An estimator never sees rows: it asks for grouped sufficient statistics. This crate builds
+//! each such request — a [`Pass`] — as a sqlparser `Query`: the profile pass, the cell table and
+//! the centred Gram matrix so far. User input enters only as AST nodes: identifiers as quoted
+//! [`sqlparser::ast::Ident`]s, category levels as string literals, a source query parsed and
+//! checked to be one SELECT, a filter parsed and checked to be one expression ([`Source`],
+//! [`parse_filter`]).
+//!
+//! Key design decision: pass shapes are written as SQL *templates of our own text* with
+//! placeholder identifiers (`__0`, `__src`, `__filter`), parsed once into an AST, and the
+//! placeholders are then replaced by AST nodes. The shapes stay readable, no user text is ever
+//! formatted into SQL, and the result renders for any [`Dialect`] through the AST's `Display`.
+//!
+//! This crate does no I/O: it runs no query and reads no file.
+#![deny(missing_docs)]
+
+mod dialect;
+mod error;
+mod pass;
+mod source;
+mod template;
+
+pub use dialect::{dialect_by_name, Dialect, DuckDb, Postgres, DIALECTS};
+pub use error::SqlError;
+pub use pass::{cells, gram, profile, DesignTerm, Pass, ProfileColumn};
+pub use source::{parse_filter, Source};

@@ -1,0 +1,265 @@
+//! Pass builders: each returns one grouped aggregate query over the source.
+
+use crate::dialect::Dialect;
+use crate::error::SqlError;
+use crate::source::Source;
+use crate::template::{self, Bind};
+use sqlparser::ast::{Expr, Query};
+
+/// One aggregate query of a plan.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Pass {
+    /// Short name (`profile`, `cells`, `gram`).
+    pub name: String,
+    /// What it computes, for `upshot plan`.
+    pub purpose: String,
+    /// The query.
+    pub query: Query,
+}
+
+impl Pass {
+    /// The query as SQL text, laid out on several lines.
+    pub fn sql(&self) -> String {
+        format!("{:#}", self.query)
+    }
+}
+
+/// A column to profile.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct ProfileColumn {
+    /// Column name.
+    pub name: String,
+    /// Whether to compute a mean (numeric columns).
+    pub numeric: bool,
+}
+
+struct Text {
+    sql: String,
+    binds: Vec<Bind>,
+}
+
+impl Text {
+    fn new() -> Self {
+        Text {
+            sql: String::new(),
+            binds: Vec::new(),
+        }
+    }
+    /// Appends a placeholder for `b` and returns its text.
+    fn bind(&mut self, b: Bind) -> String {
+        self.binds.push(b);
+        format!("__{}", self.binds.len() - 1)
+    }
+}
+
+fn not_null(t: &mut Text, columns: &[String]) -> String {
+    let mut w = String::from("__filter");
+    for c in columns {
+        let p = t.bind(Bind::Column(c.clone()));
+        w.push_str(&format!(" AND {p} IS NOT NULL"));
+    }
+    w
+}
+
+/// The profile pass: row count, and per column non-NULL count, minimum, maximum, mean (numeric
+/// columns) and distinct count (approximate where the engine has it). Output aliases:
+/// `n_rows`, then `c{i}_n`, `c{i}_min`, `c{i}_max`, `c{i}_mean`, `c{i}_distinct`.
+pub fn profile(
+    d: &dyn Dialect,
+    source: &Source,
+    filter: Option<&Expr>,
+    columns: &[ProfileColumn],
+) -> Result<Pass, SqlError> {
+    let mut t = Text::new();
+    let mut items = vec!["COUNT(*) AS n_rows".to_string()];
+    for (i, c) in columns.iter().enumerate() {
+        let p = t.bind(Bind::Column(c.name.clone()));
+        items.push(format!("COUNT({p}) AS c{i}_n"));
+        items.push(format!("MIN({p}) AS c{i}_min"));
+        items.push(format!("MAX({p}) AS c{i}_max"));
+        if c.numeric {
+            items.push(format!("AVG(CAST({p} AS {})) AS c{i}_mean", d.float_type()));
+        }
+        items.push(match d.approx_distinct() {
+            Some(f) => format!("{f}({p}) AS c{i}_distinct"),
+            None => format!("COUNT(DISTINCT {p}) AS c{i}_distinct"),
+        });
+    }
+    t.sql = format!(
+        "SELECT {} FROM __src AS src WHERE __filter",
+        items.join(", ")
+    );
+    Ok(Pass {
+        name: "profile".into(),
+        purpose: "row count; per column: non-NULL count, min, max, mean, distinct count".into(),
+        query: template::query(d, &t.sql, &t.binds, source, filter)?,
+    })
+}
+
+/// The cell table: per combination of `keys` (segments, strata, treatment), the row count and
+/// the sum and sum of squares of `value`. Rows with NULL in a key or the value are excluded.
+/// Output aliases: `k{i}`, `n`, `sy`, `syy`; ordered by the keys.
+pub fn cells(
+    d: &dyn Dialect,
+    source: &Source,
+    filter: Option<&Expr>,
+    keys: &[String],
+    value: &str,
+) -> Result<Pass, SqlError> {
+    let mut t = Text::new();
+    let mut used = keys.to_vec();
+    used.push(value.to_string());
+    let y = t.bind(Bind::Column(value.to_string()));
+    let ks: Vec<String> = keys
+        .iter()
+        .map(|k| t.bind(Bind::Column(k.clone())))
+        .collect();
+    let f = d.float_type();
+    let mut items: Vec<String> = ks
+        .iter()
+        .enumerate()
+        .map(|(i, k)| format!("{k} AS k{i}"))
+        .collect();
+    items.push("COUNT(*) AS n".into());
+    items.push(format!("SUM(CAST({y} AS {f})) AS sy"));
+    items.push(format!("SUM(CAST({y} AS {f}) * CAST({y} AS {f})) AS syy"));
+    let w = not_null(&mut t, &used);
+    let mut sql = format!("SELECT {} FROM __src AS src WHERE {w}", items.join(", "));
+    if !ks.is_empty() {
+        let order: Vec<String> = (1..=ks.len()).map(|i| i.to_string()).collect();
+        sql.push_str(&format!(
+            " GROUP BY {} ORDER BY {}",
+            ks.join(", "),
+            order.join(", ")
+        ));
+    }
+    t.sql = sql;
+    Ok(Pass {
+        name: "cells".into(),
+        purpose: format!(
+            "per cell of ({}): n, sum and sum of squares of the outcome",
+            keys.join(", ")
+        ),
+        query: template::query(d, &t.sql, &t.binds, source, filter)?,
+    })
+}
+
+/// One entry of a design vector, centred and scaled before products are summed.
+#[derive(Clone, Debug, PartialEq)]
+pub enum DesignTerm {
+    /// `(x - centre) / scale` for a numeric column.
+    Numeric {
+        /// Column.
+        column: String,
+        /// Centre (the profile mean).
+        centre: f64,
+        /// Scale (positive).
+        scale: f64,
+    },
+    /// `(1[x = level] - centre) / scale`: one-hot for one level of a categorical column.
+    Level {
+        /// Column.
+        column: String,
+        /// The level, compared as a string literal.
+        level: String,
+        /// Centre (the level's share).
+        centre: f64,
+        /// Scale (positive).
+        scale: f64,
+    },
+}
+
+impl DesignTerm {
+    fn column(&self) -> &str {
+        match self {
+            DesignTerm::Numeric { column, .. } | DesignTerm::Level { column, .. } => column,
+        }
+    }
+}
+
+/// The centred Gram pass: per group, `n`, `s{i} = Σ v_i` and `g{i}_{j} = Σ v_i v_j` (i ≤ j) of
+/// the design vector `v`. Centring with the profile means keeps the sums well conditioned.
+/// Rows with NULL in a group key or a term's column are excluded. The terms are computed once
+/// per row in a derived table, then summed.
+pub fn gram(
+    d: &dyn Dialect,
+    source: &Source,
+    filter: Option<&Expr>,
+    groups: &[String],
+    terms: &[DesignTerm],
+) -> Result<Pass, SqlError> {
+    let mut t = Text::new();
+    let f = d.float_type();
+    let mut inner = Vec::new();
+    let mut used: Vec<String> = groups.to_vec();
+    for (i, g) in groups.iter().enumerate() {
+        let p = t.bind(Bind::Column(g.clone()));
+        inner.push(format!("{p} AS k{i}"));
+    }
+    for (i, term) in terms.iter().enumerate() {
+        if !used.iter().any(|u| u == term.column()) {
+            used.push(term.column().to_string());
+        }
+        let (centre, scale) = match term {
+            DesignTerm::Numeric { centre, scale, .. } | DesignTerm::Level { centre, scale, .. } => {
+                (*centre, *scale)
+            }
+        };
+        if !(scale.is_finite() && scale > 0.0) {
+            return Err(SqlError::BadScale {
+                column: term.column().to_string(),
+                scale,
+            });
+        }
+        template::number(centre, &format!("the centre of `{}`", term.column()))?;
+        let c = t.bind(Bind::Column(term.column().to_string()));
+        let raw = match term {
+            DesignTerm::Numeric { .. } => format!("CAST({c} AS {f})"),
+            DesignTerm::Level { level, .. } => {
+                let l = t.bind(Bind::Text(level.clone()));
+                format!("CASE WHEN CAST({c} AS VARCHAR) = {l} THEN 1.0 ELSE 0.0 END")
+            }
+        };
+        let m = t.bind(Bind::Number(centre));
+        let s = t.bind(Bind::Number(scale));
+        inner.push(format!("({raw} - {m}) / {s} AS v{i}"));
+    }
+    let w = not_null(&mut t, &used);
+    let mut outer: Vec<String> = (0..groups.len()).map(|i| format!("k{i}")).collect();
+    outer.push("COUNT(*) AS n".into());
+    for i in 0..terms.len() {
+        outer.push(format!("SUM(v{i}) AS s{i}"));
+    }
+    for i in 0..terms.len() {
+        for j in i..terms.len() {
+            outer.push(format!("SUM(v{i} * v{j}) AS g{i}_{j}"));
+        }
+    }
+    let inner_sql = if inner.is_empty() {
+        "1 AS one".to_string()
+    } else {
+        inner.join(", ")
+    };
+    let mut sql = format!(
+        "SELECT {} FROM (SELECT {inner_sql} FROM __src AS src WHERE {w}) AS rows_",
+        outer.join(", ")
+    );
+    if !groups.is_empty() {
+        let keys: Vec<String> = (0..groups.len()).map(|i| format!("k{i}")).collect();
+        sql.push_str(&format!(" GROUP BY {k} ORDER BY {k}", k = keys.join(", ")));
+    }
+    t.sql = sql;
+    Ok(Pass {
+        name: "gram".into(),
+        purpose: format!(
+            "centred Gram matrix of {} terms{}",
+            terms.len(),
+            if groups.is_empty() {
+                String::new()
+            } else {
+                format!(" per ({})", groups.join(", "))
+            }
+        ),
+        query: template::query(d, &t.sql, &t.binds, source, filter)?,
+    })
+}

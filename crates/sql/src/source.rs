@@ -1,0 +1,163 @@
+//! The rows a study reads: a table name or one user SELECT, and an optional filter expression.
+
+use crate::dialect::Dialect;
+use crate::error::SqlError;
+use sqlparser::ast::{Expr, Ident, ObjectName, Query, SetExpr, Statement, TableAlias, TableFactor};
+use sqlparser::parser::Parser;
+use sqlparser::tokenizer::Token;
+
+/// Where a pass reads rows from. Invariant: a `Query` is a single read-only SELECT.
+#[derive(Clone, Debug, PartialEq)]
+pub enum Source {
+    /// A table or view; parts of a dotted name are quoted separately.
+    Table(Vec<String>),
+    /// A user query, parsed.
+    Query(Box<Query>),
+}
+
+impl Source {
+    /// A table named `name`; `schema.table` is split at dots.
+    pub fn table(name: &str) -> Result<Source, SqlError> {
+        let parts: Vec<String> = name.split('.').map(|s| s.to_string()).collect();
+        if parts.iter().any(|p| p.is_empty()) {
+            return Err(SqlError::Empty {
+                what: "a part of the table name",
+            });
+        }
+        Ok(Source::Table(parts))
+    }
+
+    /// A user query, which must be exactly one SELECT (optionally with WITH) and nothing else.
+    pub fn query(sql: &str, d: &dyn Dialect) -> Result<Source, SqlError> {
+        if sql.trim().is_empty() {
+            return Err(SqlError::Empty {
+                what: "the source query",
+            });
+        }
+        let mut stmts =
+            Parser::parse_sql(d.parser().as_ref(), sql).map_err(|e| SqlError::Parse {
+                what: "the source query",
+                message: e.to_string(),
+            })?;
+        if stmts.len() != 1 {
+            return Err(SqlError::NotOneStatement { count: stmts.len() });
+        }
+        match stmts.pop().expect("one statement") {
+            Statement::Query(q) => {
+                check_read_only(&q)?;
+                Ok(Source::Query(q))
+            }
+            other => Err(SqlError::NotASelect {
+                kind: other
+                    .to_string()
+                    .split_whitespace()
+                    .take(2)
+                    .collect::<Vec<_>>()
+                    .join(" "),
+            }),
+        }
+    }
+
+    /// The relation to put in a FROM clause.
+    pub(crate) fn relation(&self, d: &dyn Dialect, alias: Option<TableAlias>) -> TableFactor {
+        let template = sqlparser::parser::Parser::parse_sql(
+            &sqlparser::dialect::GenericDialect {},
+            match self {
+                Source::Table(_) => "SELECT 1 FROM t AS src",
+                Source::Query(_) => "SELECT 1 FROM (SELECT 1) AS src",
+            },
+        )
+        .expect("fixed text parses");
+        let Some(Statement::Query(q)) = template.into_iter().next() else {
+            unreachable!()
+        };
+        let SetExpr::Select(s) = *q.body else {
+            unreachable!()
+        };
+        let mut rel = s.from.into_iter().next().expect("one FROM item").relation;
+        match (&mut rel, self) {
+            (TableFactor::Table { name, alias: a, .. }, Source::Table(parts)) => {
+                *name = ObjectName::from(
+                    parts
+                        .iter()
+                        .map(|p| Ident::with_quote(d.quote(), p.clone()))
+                        .collect::<Vec<_>>(),
+                );
+                *a = alias;
+            }
+            (
+                TableFactor::Derived {
+                    subquery, alias: a, ..
+                },
+                Source::Query(q),
+            ) => {
+                *subquery = q.clone();
+                *a = alias;
+            }
+            _ => unreachable!("template matches the source kind"),
+        }
+        rel
+    }
+}
+
+fn check_read_only(q: &Query) -> Result<(), SqlError> {
+    fn body(s: &SetExpr) -> Result<(), SqlError> {
+        match s {
+            SetExpr::Select(sel) => {
+                if sel.into.is_some() {
+                    return Err(SqlError::NotASelect {
+                        kind: "SELECT ... INTO".into(),
+                    });
+                }
+                Ok(())
+            }
+            SetExpr::Query(q) => check_read_only(q),
+            SetExpr::SetOperation { left, right, .. } => {
+                body(left)?;
+                body(right)
+            }
+            SetExpr::Values(_) => Ok(()),
+            other => Err(SqlError::NotASelect {
+                kind: other
+                    .to_string()
+                    .split_whitespace()
+                    .next()
+                    .unwrap_or("")
+                    .to_string(),
+            }),
+        }
+    }
+    body(&q.body)
+}
+
+/// Parses a filter: exactly one SQL expression, with nothing after it.
+pub fn parse_filter(sql: &str, d: &dyn Dialect) -> Result<Expr, SqlError> {
+    if sql.trim().is_empty() {
+        return Err(SqlError::Empty { what: "the filter" });
+    }
+    let parse = |m: sqlparser::parser::ParserError| SqlError::Parse {
+        what: "the filter",
+        message: m.to_string(),
+    };
+    let dialect = d.parser();
+    let mut p = Parser::new(dialect.as_ref())
+        .try_with_sql(sql)
+        .map_err(parse)?;
+    let e = p.parse_expr().map_err(parse)?;
+    let next = p.peek_token();
+    if next.token != Token::EOF {
+        let mut rest = Vec::new();
+        loop {
+            let t = p.next_token();
+            if t.token == Token::EOF || rest.len() > 6 {
+                break;
+            }
+            rest.push(t.token.to_string());
+        }
+        return Err(SqlError::TrailingInput {
+            expr: e.to_string(),
+            rest: rest.join(" "),
+        });
+    }
+    Ok(e)
+}

@@ -1,0 +1,200 @@
+//! Golden SQL plans (sql/golden/<dialect>/<pass>.sql) and the rules for user SQL.
+//!
+//! Each golden file is the rendering of a fixed pass; the test fails when the rendering changes
+//! (rewrite them with `UPSHOT_BLESS=1 cargo test -p upshot-sql`). Each golden file must also
+//! round-trip: parsed with the dialect's parser and rendered again, it gives the same text
+//! (the sqlparser-rs test culture of AST round trips).
+
+use sqlparser::parser::Parser;
+use std::path::PathBuf;
+use upshot_sql::{
+    cells, dialect_by_name, gram, parse_filter, profile, DesignTerm, Dialect, Pass, ProfileColumn,
+    Source, SqlError, DIALECTS,
+};
+
+fn golden_dir() -> PathBuf {
+    PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("../../sql/golden")
+}
+
+/// Fixed passes over a source whose names need quoting (a space, a reserved word, a quote).
+fn passes(d: &dyn Dialect) -> Vec<Pass> {
+    let src = Source::table("main.order lines").unwrap();
+    let filter = parse_filter("\"zone\" <> 'Old Town' AND prior_orders >= 0", d).unwrap();
+    let q = Source::query("SELECT * FROM customers WHERE voucher IN (0, 1)", d).unwrap();
+    vec![
+        profile(
+            d,
+            &src,
+            Some(&filter),
+            &[
+                ProfileColumn {
+                    name: "spend 30d".into(),
+                    numeric: true,
+                },
+                ProfileColumn {
+                    name: "select".into(),
+                    numeric: false,
+                },
+            ],
+        )
+        .unwrap(),
+        cells(
+            d,
+            &q,
+            None,
+            &["tenure_band".into(), "voucher".into()],
+            "spend_30d",
+        )
+        .unwrap(),
+        gram(
+            d,
+            &src,
+            Some(&filter),
+            &["voucher".into()],
+            &[
+                DesignTerm::Numeric {
+                    column: "prior_orders".into(),
+                    centre: 2.65,
+                    scale: 1.7,
+                },
+                DesignTerm::Level {
+                    column: "zone".into(),
+                    level: "Old Town".into(),
+                    centre: 0.17,
+                    scale: 0.375,
+                },
+                DesignTerm::Numeric {
+                    column: "say \"hi\"".into(),
+                    centre: -1e-7,
+                    scale: 3.0,
+                },
+            ],
+        )
+        .unwrap(),
+    ]
+}
+
+#[test]
+fn golden_plans_render_and_round_trip() {
+    let bless = std::env::var_os("UPSHOT_BLESS").is_some();
+    for d in DIALECTS {
+        for p in passes(d) {
+            let sql = p.sql() + "\n";
+            let path = golden_dir().join(d.name()).join(format!("{}.sql", p.name));
+            if bless {
+                std::fs::create_dir_all(path.parent().unwrap()).unwrap();
+                std::fs::write(&path, &sql).unwrap();
+            }
+            let want = std::fs::read_to_string(&path)
+                .unwrap_or_else(|e| panic!("{}: {e}; run with UPSHOT_BLESS=1", path.display()));
+            assert_eq!(
+                sql,
+                want,
+                "{} changed; if intended, rerun with UPSHOT_BLESS=1",
+                path.display()
+            );
+            let parsed = Parser::parse_sql(d.parser().as_ref(), &want)
+                .unwrap_or_else(|e| panic!("{}: {e}", path.display()));
+            assert_eq!(parsed.len(), 1);
+            assert_eq!(
+                format!("{:#}", parsed[0]) + "\n",
+                want,
+                "{} does not round-trip",
+                path.display()
+            );
+        }
+    }
+}
+
+#[test]
+fn identifiers_are_quoted_and_literals_escaped() {
+    let d = dialect_by_name("duckdb").unwrap();
+    let sql: Vec<String> = passes(d).iter().map(|p| p.sql()).collect();
+    assert!(
+        sql[0].contains("\"main\".\"order lines\" AS src"),
+        "{}",
+        sql[0]
+    );
+    assert!(sql[0].contains("COUNT(\"select\")"), "{}", sql[0]);
+    assert!(sql[2].contains("\"say \"\"hi\"\"\""), "{}", sql[2]);
+    assert!(sql[2].contains("'Old Town'"), "{}", sql[2]);
+    assert!(sql[2].contains("-1e-7"), "{}", sql[2]);
+    let pg = dialect_by_name("postgres").unwrap();
+    assert!(passes(pg)[2].sql().contains("DOUBLE PRECISION"));
+    assert!(passes(pg)[0].sql().contains("COUNT(DISTINCT"));
+}
+
+#[test]
+fn user_sql_must_be_one_select_or_one_expression() {
+    let d = dialect_by_name("duckdb").unwrap();
+    assert!(matches!(
+        parse_filter("1; DROP TABLE x", d),
+        Err(SqlError::TrailingInput { .. })
+    ));
+    assert!(matches!(
+        parse_filter("a = 1 b", d),
+        Err(SqlError::TrailingInput { .. })
+    ));
+    assert!(matches!(parse_filter("", d), Err(SqlError::Empty { .. })));
+    assert!(matches!(
+        parse_filter("a = = 1", d),
+        Err(SqlError::Parse { .. })
+    ));
+    assert!(parse_filter(
+        "zone IN ('Harbour', 'Old Town') AND NOT (voucher IS NULL)",
+        d
+    )
+    .is_ok());
+    assert!(matches!(
+        Source::query("SELECT 1; DROP TABLE x", d),
+        Err(SqlError::NotOneStatement { count: 2 })
+    ));
+    assert!(matches!(
+        Source::query("DROP TABLE x", d),
+        Err(SqlError::NotASelect { .. })
+    ));
+    assert!(matches!(
+        Source::query("DELETE FROM x", d),
+        Err(SqlError::NotASelect { .. })
+    ));
+    assert!(matches!(
+        Source::query("INSERT INTO x VALUES (1)", d),
+        Err(SqlError::NotASelect { .. })
+    ));
+    assert!(Source::query(
+        "WITH a AS (SELECT 1 AS v) SELECT v FROM a UNION ALL SELECT 2",
+        d
+    )
+    .is_ok());
+    assert!(matches!(Source::table("a..b"), Err(SqlError::Empty { .. })));
+    let e = parse_filter("1; DROP TABLE x", d).unwrap_err().to_string();
+    assert!(
+        e.contains("one SQL expression") && e.contains("DROP"),
+        "{e}"
+    );
+}
+
+#[test]
+fn bad_numbers_are_refused() {
+    let d = dialect_by_name("duckdb").unwrap();
+    let src = Source::table("t").unwrap();
+    let bad = |centre: f64, scale: f64| {
+        gram(
+            d,
+            &src,
+            None,
+            &[],
+            &[DesignTerm::Numeric {
+                column: "x".into(),
+                centre,
+                scale,
+            }],
+        )
+    };
+    assert!(matches!(bad(0.0, 0.0), Err(SqlError::BadScale { .. })));
+    assert!(matches!(
+        bad(f64::NAN, 1.0),
+        Err(SqlError::NonFinite { .. })
+    ));
+    assert!(bad(0.0, 1.0).is_ok());
+}

@@ -1,0 +1,15 @@
+SELECT
+  COUNT(*) AS n_rows,
+  COUNT("spend 30d") AS c0_n,
+  MIN("spend 30d") AS c0_min,
+  MAX("spend 30d") AS c0_max,
+  AVG(CAST("spend 30d" AS DOUBLE)) AS c0_mean,
+  approx_count_distinct("spend 30d") AS c0_distinct,
+  COUNT("select") AS c1_n,
+  MIN("select") AS c1_min,
+  MAX("select") AS c1_max,
+  approx_count_distinct("select") AS c1_distinct
+FROM
+  "main"."order lines" AS src
+WHERE
+  ("zone" <> 'Old Town' AND prior_orders >= 0)
