@@ -1,0 +1,49 @@
+//! The Rust finisher: small linear algebra on the aggregates that passes return.
+//!
+//! The primary type is [`Moments`]: the count, sums and sums of products of a centred and
+//! scaled design vector, exactly what a Gram pass returns. From it [`ols`] fits least squares
+//! with an intercept, undoing the centring and scaling, after a conditioning check that names
+//! the collinear or constant columns instead of returning noise.
+//!
+//! Key design decision: everything is solved in the centred, scaled coordinates the pass used
+//! (a correlation-matrix problem), because forming raw sums of products of uncentred columns
+//! loses the digits that ill-conditioned designs (NIST's Longley data) need.
+//!
+//! This crate does no I/O and knows nothing of SQL: it sees only numbers.
+#![deny(missing_docs)]
+
+mod moments;
+mod ols;
+
+pub use moments::Moments;
+pub use ols::{ols, Ols};
+
+/// Why a fit cannot be made.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum FitError {
+    /// Sums of the wrong shape.
+    #[error("aggregate shape mismatch: {0}")]
+    Shape(String),
+    /// Fewer rows than parameters.
+    #[error("{n} rows cannot fit {p} parameters; use fewer covariates or more rows")]
+    TooFewRows {
+        /// Rows.
+        n: f64,
+        /// Parameters, intercept included.
+        p: usize,
+    },
+    /// A column with no variation.
+    #[error("column `{column}` is constant in these rows; drop it from the design")]
+    Constant {
+        /// The column.
+        column: String,
+    },
+    /// Columns that are (nearly) linear combinations of each other.
+    #[error("columns {} are collinear (condition number {condition:.3e}); drop one of them", columns.iter().map(|c| format!("`{c}`")).collect::<Vec<_>>().join(", "))]
+    Collinear {
+        /// The columns involved, most involved first.
+        columns: Vec<String>,
+        /// Condition number of their correlation matrix.
+        condition: f64,
+    },
+}

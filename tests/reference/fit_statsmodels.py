@@ -1,0 +1,99 @@
+"""Least squares through upshot's finisher (profile pass, centred Gram pass, `upshot_fit::ols`)
+against outside references.
+
+1. NIST Statistical Reference Datasets, linear regression, Longley (1967): certified coefficients
+   (quoted in shared/references.md from memory and reproduced there with statsmodels). The data
+   ships with statsmodels (`statsmodels.datasets.longley`). Required: at least 9 correct
+   significant digits (log relative error, LRE, as NIST reports it) for every coefficient.
+2. statsmodels OLS on the same rows (Longley; the committed demo sample): coefficients to a
+   relative 1e-8, classical standard errors to a relative 1e-6.
+3. A perfectly collinear design must be refused with the columns named.
+
+Usage: fit_statsmodels.py PATH/TO/fit-cases
+"""
+import json
+import math
+import os
+import subprocess
+import sys
+import tempfile
+
+import numpy as np
+import pandas as pd
+import statsmodels.api as sm
+from statsmodels.datasets import longley
+
+# NIST StRD Longley certified values (quoted from memory in shared/references.md).
+CERTIFIED = {
+    "const": -3482258.63459582,
+    "GNPDEFL": 15.0618722713733,
+    "GNP": -0.0358191792925910,
+    "UNEMP": -2.02022980381683,
+    "ARMED": -1.03322686717359,
+    "POP": -0.0511041056535807,
+    "YEAR": 1829.15146461355,
+}
+
+passed = failed = 0
+
+
+def check(ok, what):
+    global passed, failed
+    if ok:
+        passed += 1
+    else:
+        failed += 1
+        print("FAIL", what)
+
+
+def run(binary, frame, outcome, covariates):
+    with tempfile.NamedTemporaryFile("w", suffix=".csv", delete=False) as f:
+        frame.to_csv(f, index=False, float_format="%.17g")
+        path = f.name
+    try:
+        out = subprocess.run([binary, path, outcome, *covariates], check=True, capture_output=True, text=True)
+    finally:
+        os.unlink(path)
+    return json.loads(out.stdout)
+
+
+def rel(a, b):
+    return abs(a - b) / max(abs(b), 1e-300)
+
+
+def compare_statsmodels(binary, frame, outcome, covariates, label):
+    got = run(binary, frame, outcome, covariates)
+    ref = sm.OLS(frame[outcome].astype(float), sm.add_constant(frame[covariates].astype(float))).fit()
+    params = [got["intercept"], *got["coef"]]
+    worst_b = max(rel(a, b) for a, b in zip(params, ref.params))
+    worst_se = max(rel(a, b) for a, b in zip(got["std_error"], ref.bse))
+    print(f"{label}: statsmodels OLS agreement: coefficients rel {worst_b:.1e}, std errors rel {worst_se:.1e}")
+    check(worst_b < 1e-8, f"{label} coefficients vs statsmodels: {worst_b}")
+    check(worst_se < 1e-6, f"{label} standard errors vs statsmodels: {worst_se}")
+    return got
+
+
+def main(binary):
+    data = longley.load_pandas().data
+    cov = ["GNPDEFL", "GNP", "UNEMP", "ARMED", "POP", "YEAR"]
+    got = compare_statsmodels(binary, data, "TOTEMP", cov, "Longley")
+    est = {"const": got["intercept"], **dict(zip(cov, got["coef"]))}
+    lres = {k: (-math.log10(rel(est[k], v)) if est[k] != v else 15.0) for k, v in CERTIFIED.items()}
+    print("Longley vs NIST certified, correct significant digits (LRE): " + ", ".join(f"{k} {v:.1f}" for k, v in lres.items()))
+    check(min(lres.values()) >= 9, f"Longley LRE {min(lres.values()):.2f} < 9")
+
+    root = os.path.join(os.path.dirname(__file__), "..", "..")
+    demo = pd.read_csv(os.path.join(root, "demo-data", "sample", "customers.csv"))
+    compare_statsmodels(binary, demo, "spend_30d", ["prior_orders", "household_size", "app_sessions", "voucher"], "demo sample")
+
+    collinear = demo[["prior_orders", "household_size", "spend_30d"]].copy()
+    collinear["orders_plus_household"] = collinear["prior_orders"] + collinear["household_size"]
+    got = run(binary, collinear, "spend_30d", ["prior_orders", "household_size", "orders_plus_household"])
+    check("collinear" in got.get("error", "") and "orders_plus_household" in got["error"], f"collinear design: {got}")
+
+    print(f"{passed} passed, {failed} failed")
+    return 1 if failed else 0
+
+
+if __name__ == "__main__":
+    sys.exit(main(sys.argv[1]))

@@ -1,0 +1,72 @@
+//! Fits least squares through upshot's finisher on a CSV file, the way the in-database path
+//! will: a profile pass (means and standard deviations), a centred Gram pass, then
+//! `upshot_fit::ols`. Used by `tests/reference/fit_statsmodels.py` to compare with NIST's
+//! certified Longley values and with statsmodels.
+//!
+//! Usage: `fit-cases FILE.csv OUTCOME COVARIATE...`; prints one JSON object.
+
+use serde_json::json;
+use upshot_fit::{ols, Moments};
+
+fn fail(msg: String) -> ! {
+    eprintln!("fit-cases: {msg}");
+    std::process::exit(2)
+}
+
+fn main() {
+    let args: Vec<String> = std::env::args().skip(1).collect();
+    if args.len() < 2 {
+        fail("usage: fit-cases FILE.csv OUTCOME COVARIATE...".into());
+    }
+    let text =
+        std::fs::read_to_string(&args[0]).unwrap_or_else(|e| fail(format!("{}: {e}", args[0])));
+    let mut lines = text.lines();
+    let header: Vec<&str> = lines.next().unwrap_or_default().split(',').collect();
+    let wanted: Vec<&String> = args[2..].iter().chain(std::iter::once(&args[1])).collect();
+    let idx: Vec<usize> = wanted
+        .iter()
+        .map(|w| {
+            header
+                .iter()
+                .position(|h| h == w)
+                .unwrap_or_else(|| fail(format!("no column `{w}`")))
+        })
+        .collect();
+    let rows: Vec<Vec<f64>> = lines
+        .filter(|l| !l.trim().is_empty())
+        .enumerate()
+        .map(|(r, l)| {
+            let cells: Vec<&str> = l.split(',').collect();
+            idx.iter()
+                .map(|&i| {
+                    cells[i].trim().parse().unwrap_or_else(|_| {
+                        fail(format!("row {}: `{}` is not a number", r + 2, cells[i]))
+                    })
+                })
+                .collect()
+        })
+        .collect();
+    // Profile pass: mean and standard deviation per column.
+    let k = idx.len();
+    let n = rows.len() as f64;
+    let mean: Vec<f64> = (0..k)
+        .map(|j| rows.iter().map(|r| r[j]).sum::<f64>() / n)
+        .collect();
+    let sd: Vec<f64> = (0..k)
+        .map(|j| {
+            (rows.iter().map(|r| (r[j] - mean[j]).powi(2)).sum::<f64>() / n)
+                .sqrt()
+                .max(f64::MIN_POSITIVE)
+        })
+        .collect();
+    let names: Vec<String> = wanted.iter().map(|s| s.to_string()).collect();
+    let m = Moments::from_rows(names, mean, sd, &rows).unwrap_or_else(|e| fail(e.to_string()));
+    let x: Vec<usize> = (0..k - 1).collect();
+    match ols(&m, k - 1, &x) {
+        Ok(f) => println!(
+            "{}",
+            json!({"intercept": f.intercept, "coef": f.coef, "std_error": f.std_error, "condition": f.condition, "rss": f.rss, "r2": f.r2})
+        ),
+        Err(e) => println!("{}", json!({"error": e.to_string()})),
+    }
+}
