@@ -3,10 +3,14 @@
 //! `upshot_fit::ols`. Used by `tests/reference/fit_statsmodels.py` to compare with NIST's
 //! certified Longley values and with statsmodels.
 //!
-//! Usage: `fit-cases FILE.csv OUTCOME COVARIATE...`; prints one JSON object.
+//! With `--logit` first, fits a logistic regression by Newton's method over the sums one
+//! logistic pass returns (`upshot_fit::logit`), computed here in memory from the centred rows.
+//!
+//! Usage: `fit-cases [--logit] FILE.csv OUTCOME COVARIATE...`; prints one JSON object.
 
+use nalgebra::DMatrix;
 use serde_json::json;
-use upshot_fit::{ols, Moments};
+use upshot_fit::{logit, logit_sums_from_rows, ols, Moments, NewtonOptions};
 
 fn fail(msg: String) -> ! {
     eprintln!("fit-cases: {msg}");
@@ -14,7 +18,11 @@ fn fail(msg: String) -> ! {
 }
 
 fn main() {
-    let args: Vec<String> = std::env::args().skip(1).collect();
+    let mut args: Vec<String> = std::env::args().skip(1).collect();
+    let logistic = args.first().is_some_and(|a| a == "--logit");
+    if logistic {
+        args.remove(0);
+    }
     if args.len() < 2 {
         fail("usage: fit-cases FILE.csv OUTCOME COVARIATE...".into());
     }
@@ -60,6 +68,45 @@ fn main() {
         })
         .collect();
     let names: Vec<String> = wanted.iter().map(|s| s.to_string()).collect();
+    if logistic {
+        let v: Vec<Vec<f64>> = rows
+            .iter()
+            .map(|r| {
+                let mut v: Vec<f64> = (0..k - 1).map(|j| (r[j] - mean[j]) / sd[j]).collect();
+                v.push(r[k - 1]);
+                v
+            })
+            .collect();
+        let mut coef_names = vec!["(intercept)".to_string()];
+        coef_names.extend(names[..k - 1].iter().cloned());
+        let fit = logit::<(), _>(
+            &coef_names,
+            |c| Ok(logit_sums_from_rows(&v, c)),
+            NewtonOptions::default(),
+        )
+        .unwrap();
+        match fit {
+            Ok(f) => {
+                // Back to original units: beta = A b.
+                let mut a = DMatrix::zeros(k, k);
+                a[(0, 0)] = 1.0;
+                for j in 1..k {
+                    a[(0, j)] = -mean[j - 1] / sd[j - 1];
+                    a[(j, j)] = 1.0 / sd[j - 1];
+                }
+                let b = nalgebra::DVector::from_vec(f.coef.clone());
+                let beta = &a * b;
+                let cov = &a * &f.covariance * a.transpose();
+                let se: Vec<f64> = (0..k).map(|i| cov[(i, i)].sqrt()).collect();
+                println!(
+                    "{}",
+                    json!({"coef": beta.iter().collect::<Vec<_>>(), "std_error": se, "loglik": f.loglik, "iterations": f.iterations})
+                );
+            }
+            Err(e) => println!("{}", json!({"error": e.to_string()})),
+        }
+        return;
+    }
     let m = Moments::from_rows(names, mean, sd, &rows).unwrap_or_else(|e| fail(e.to_string()));
     let x: Vec<usize> = (0..k - 1).collect();
     match ols(&m, k - 1, &x) {

@@ -3,7 +3,9 @@
 //! The primary type is [`Moments`]: the count, sums and sums of products of a centred and
 //! scaled design vector, exactly what a Gram pass returns. From it [`ols`] fits least squares
 //! with an intercept, undoing the centring and scaling, after a conditioning check that names
-//! the collinear or constant columns instead of returning noise.
+//! the collinear or constant columns instead of returning noise; [`logit`] drives Newton's
+//! method for logistic regression over one aggregate pass per iteration, with step halving and
+//! a separation check.
 //!
 //! Key design decision: everything is solved in the centred, scaled coordinates the pass used
 //! (a correlation-matrix problem), because forming raw sums of products of uncentred columns
@@ -12,9 +14,11 @@
 //! This crate does no I/O and knows nothing of SQL: it sees only numbers.
 #![deny(missing_docs)]
 
+mod logit;
 mod moments;
 mod ols;
 
+pub use logit::{logit, logit_sums_from_rows, Logit, LogitSums, NewtonOptions};
 pub use moments::Moments;
 pub use ols::{ols, Ols};
 
@@ -37,6 +41,20 @@ pub enum FitError {
     Constant {
         /// The column.
         column: String,
+    },
+    /// The outcome is perfectly (or almost perfectly) predicted: no finite maximum likelihood.
+    #[error("perfect separation: the outcome is (almost) perfectly predicted, mostly by {}; fitted probabilities reach {:.1e} and 1 - {:.1e}; drop or coarsen those columns, or restrict the rows to where both outcomes occur", columns.iter().map(|c| format!("`{c}`")).collect::<Vec<_>>().join(", "), p_range.0, 1.0 - p_range.1)]
+    Separation {
+        /// Columns with the largest standardised coefficients.
+        columns: Vec<String>,
+        /// Smallest and largest fitted probability when stopped.
+        p_range: (f64, f64),
+    },
+    /// Newton's method did not converge.
+    #[error("the logistic fit did not converge in {iterations} iterations")]
+    NotConverged {
+        /// Iterations run.
+        iterations: usize,
     },
     /// Columns that are (nearly) linear combinations of each other.
     #[error("columns {} are collinear (condition number {condition:.3e}); drop one of them", columns.iter().map(|c| format!("`{c}`")).collect::<Vec<_>>().join(", "))]
