@@ -1,8 +1,8 @@
 //! SQL passes for upshot, built as sqlparser ASTs and rendered per dialect.
 //!
 //! An estimator never sees rows: it asks for grouped sufficient statistics. This crate builds
-//! each such request — a [`Pass`] — as a sqlparser `Query`: the profile pass, the cell table and
-//! the centred Gram matrix so far. User input enters only as AST nodes: identifiers as quoted
+//! each such request — a [`Pass`] — as a sqlparser `Query`: the profile pass, the cell table, the
+//! centred Gram matrix and the logistic Newton step so far. User input enters only as AST nodes: identifiers as quoted
 //! [`sqlparser::ast::Ident`]s, category levels as string literals, a source query parsed and
 //! checked to be one SELECT, a filter parsed and checked to be one expression ([`Source`],
 //! [`parse_filter`]).
@@ -23,5 +23,5 @@ mod template;
 
 pub use dialect::{dialect_by_name, Dialect, DuckDb, Postgres, DIALECTS};
 pub use error::SqlError;
-pub use pass::{cells, gram, profile, DesignTerm, Pass, ProfileColumn};
+pub use pass::{cells, gram, logistic_step, profile, DesignTerm, Pass, ProfileColumn};
 pub use source::{parse_filter, Source};

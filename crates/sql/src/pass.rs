@@ -177,18 +177,16 @@ impl DesignTerm {
     }
 }
 
-/// The centred Gram pass: per group, `n`, `s{i} = Σ v_i` and `g{i}_{j} = Σ v_i v_j` (i ≤ j) of
-/// the design vector `v`. Centring with the profile means keeps the sums well conditioned.
-/// Rows with NULL in a group key or a term's column are excluded. The terms are computed once
-/// per row in a derived table, then summed.
-pub fn gram(
+/// The derived table of design rows shared by the Gram and logistic passes: group keys `k{i}`,
+/// centred and scaled terms `v{i}`, and optionally the outcome as a float `y`. Rows with NULL
+/// in any used column are excluded.
+fn design_rows(
+    t: &mut Text,
     d: &dyn Dialect,
-    source: &Source,
-    filter: Option<&Expr>,
     groups: &[String],
     terms: &[DesignTerm],
-) -> Result<Pass, SqlError> {
-    let mut t = Text::new();
+    outcome: Option<&str>,
+) -> Result<String, SqlError> {
     let f = d.float_type();
     let mut inner = Vec::new();
     let mut used: Vec<String> = groups.to_vec();
@@ -224,7 +222,50 @@ pub fn gram(
         let s = t.bind(Bind::Number(scale));
         inner.push(format!("({raw} - {m}) / {s} AS v{i}"));
     }
-    let w = not_null(&mut t, &used);
+    if let Some(y) = outcome {
+        used.push(y.to_string());
+        let p = t.bind(Bind::Column(y.to_string()));
+        inner.push(format!("CAST({p} AS {f}) AS y"));
+    }
+    let w = not_null(t, &used);
+    let items = if inner.is_empty() {
+        "1 AS one".to_string()
+    } else {
+        inner.join(", ")
+    };
+    Ok(format!("SELECT {items} FROM __src AS src WHERE {w}"))
+}
+
+fn group_tail(groups: &[String]) -> String {
+    if groups.is_empty() {
+        String::new()
+    } else {
+        let keys: Vec<String> = (0..groups.len()).map(|i| format!("k{i}")).collect();
+        format!(" GROUP BY {k} ORDER BY {k}", k = keys.join(", "))
+    }
+}
+
+fn per(groups: &[String]) -> String {
+    if groups.is_empty() {
+        String::new()
+    } else {
+        format!(" per ({})", groups.join(", "))
+    }
+}
+
+/// The centred Gram pass: per group, `n`, `s{i} = Σ v_i` and `g{i}_{j} = Σ v_i v_j` (i ≤ j) of
+/// the design vector `v`. Centring with the profile means keeps the sums well conditioned.
+/// Rows with NULL in a group key or a term's column are excluded. The terms are computed once
+/// per row in a derived table, then summed.
+pub fn gram(
+    d: &dyn Dialect,
+    source: &Source,
+    filter: Option<&Expr>,
+    groups: &[String],
+    terms: &[DesignTerm],
+) -> Result<Pass, SqlError> {
+    let mut t = Text::new();
+    let rows = design_rows(&mut t, d, groups, terms, None)?;
     let mut outer: Vec<String> = (0..groups.len()).map(|i| format!("k{i}")).collect();
     outer.push("COUNT(*) AS n".into());
     for i in 0..terms.len() {
@@ -235,30 +276,82 @@ pub fn gram(
             outer.push(format!("SUM(v{i} * v{j}) AS g{i}_{j}"));
         }
     }
-    let inner_sql = if inner.is_empty() {
-        "1 AS one".to_string()
-    } else {
-        inner.join(", ")
-    };
-    let mut sql = format!(
-        "SELECT {} FROM (SELECT {inner_sql} FROM __src AS src WHERE {w}) AS rows_",
-        outer.join(", ")
+    t.sql = format!(
+        "SELECT {} FROM ({rows}) AS rows_{}",
+        outer.join(", "),
+        group_tail(groups)
     );
-    if !groups.is_empty() {
-        let keys: Vec<String> = (0..groups.len()).map(|i| format!("k{i}")).collect();
-        sql.push_str(&format!(" GROUP BY {k} ORDER BY {k}", k = keys.join(", ")));
-    }
-    t.sql = sql;
     Ok(Pass {
         name: "gram".into(),
         purpose: format!(
             "centred Gram matrix of {} terms{}",
             terms.len(),
-            if groups.is_empty() {
-                String::new()
-            } else {
-                format!(" per ({})", groups.join(", "))
-            }
+            per(groups)
+        ),
+        query: template::query(d, &t.sql, &t.binds, source, filter)?,
+    })
+}
+
+/// One Newton step of a logistic regression of the 0/1 column `outcome` on the design terms,
+/// with the current coefficients `coef` (intercept first, on the centred, scaled terms) inlined
+/// as literals. Per group: `n`; the score `u{i} = Σ v_i (y - p)`; the information
+/// `h{i}_{j} = Σ p (1 - p) v_i v_j` (i ≤ j); `loglik`; `min_p`, `max_p`. Index 0 is the
+/// intercept (`v_0 = 1`), index `i + 1` the term `i`. Probabilities and the log-likelihood are
+/// written so that `EXP` only ever sees a non-positive argument (no overflow).
+pub fn logistic_step(
+    d: &dyn Dialect,
+    source: &Source,
+    filter: Option<&Expr>,
+    groups: &[String],
+    terms: &[DesignTerm],
+    outcome: &str,
+    coef: &[f64],
+) -> Result<Pass, SqlError> {
+    assert_eq!(
+        coef.len(),
+        terms.len() + 1,
+        "one coefficient per term plus the intercept"
+    );
+    let mut t = Text::new();
+    let rows = design_rows(&mut t, d, groups, terms, Some(outcome))?;
+    for (i, c) in coef.iter().enumerate() {
+        template::number(*c, &format!("coefficient {i}"))?;
+    }
+    let mut eta = t.bind(Bind::Number(coef[0]));
+    for (i, c) in coef[1..].iter().enumerate() {
+        let b = t.bind(Bind::Number(*c));
+        eta.push_str(&format!(" + {b} * v{i}"));
+    }
+    let v = |i: usize| {
+        if i == 0 {
+            String::new()
+        } else {
+            format!(" * v{}", i - 1)
+        }
+    };
+    let mut outer: Vec<String> = (0..groups.len()).map(|i| format!("k{i}")).collect();
+    outer.push("COUNT(*) AS n".into());
+    for i in 0..=terms.len() {
+        outer.push(format!("SUM((y - p){}) AS u{i}", v(i)));
+    }
+    for i in 0..=terms.len() {
+        for j in i..=terms.len() {
+            outer.push(format!("SUM(p * (1.0 - p){}{}) AS h{i}_{j}", v(i), v(j)));
+        }
+    }
+    outer.push("SUM(y * eta - CASE WHEN eta > 0 THEN eta + LN(1.0 + EXP(-eta)) ELSE LN(1.0 + EXP(eta)) END) AS loglik".into());
+    outer.push("MIN(p) AS min_p".into());
+    outer.push("MAX(p) AS max_p".into());
+    t.sql = format!(
+        "SELECT {} FROM (SELECT *, CASE WHEN eta >= 0 THEN 1.0 / (1.0 + EXP(-eta)) ELSE EXP(eta) / (1.0 + EXP(eta)) END AS p FROM (SELECT *, {eta} AS eta FROM ({rows}) AS rows_) AS linear_) AS fitted_{}",
+        outer.join(", "),
+        group_tail(groups)
+    );
+    Ok(Pass {
+        name: "logistic-step".into(),
+        purpose: format!(
+            "score, information and log-likelihood of a logistic model for {outcome} at the current coefficients{}",
+            per(groups)
         ),
         query: template::query(d, &t.sql, &t.binds, source, filter)?,
     })

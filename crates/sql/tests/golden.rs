@@ -8,8 +8,8 @@
 use sqlparser::parser::Parser;
 use std::path::PathBuf;
 use upshot_sql::{
-    cells, dialect_by_name, gram, parse_filter, profile, DesignTerm, Dialect, Pass, ProfileColumn,
-    Source, SqlError, DIALECTS,
+    cells, dialect_by_name, gram, logistic_step, parse_filter, profile, DesignTerm, Dialect, Pass,
+    ProfileColumn, Source, SqlError, DIALECTS,
 };
 
 fn golden_dir() -> PathBuf {
@@ -69,6 +69,28 @@ fn passes(d: &dyn Dialect) -> Vec<Pass> {
                     scale: 3.0,
                 },
             ],
+        )
+        .unwrap(),
+        logistic_step(
+            d,
+            &src,
+            None,
+            &[],
+            &[
+                DesignTerm::Numeric {
+                    column: "prior_orders".into(),
+                    centre: 2.65,
+                    scale: 1.7,
+                },
+                DesignTerm::Level {
+                    column: "zone".into(),
+                    level: "Old Town".into(),
+                    centre: 0.17,
+                    scale: 0.375,
+                },
+            ],
+            "voucher",
+            &[0.25, -0.75, 1.0 / 3.0],
         )
         .unwrap(),
     ]
