@@ -6,7 +6,8 @@ against outside references.
    ships with statsmodels (`statsmodels.datasets.longley`). Required: at least 9 correct
    significant digits (log relative error, LRE, as NIST reports it) for every coefficient.
 2. statsmodels OLS on the same rows (Longley; the committed demo sample): coefficients to a
-   relative 1e-8, classical standard errors to a relative 1e-6.
+   relative 1e-8, classical and HC1 standard errors (statsmodels `cov_type="HC1"`) to a
+   relative 1e-6.
 3. A perfectly collinear design must be refused with the columns named.
 4. Logistic regression by Newton's method over aggregate sums (`upshot_fit::logit`) against
    statsmodels Logit (maximum likelihood) on the demo sample's voucher targeting:
@@ -72,9 +73,12 @@ def compare_statsmodels(binary, frame, outcome, covariates, label):
     params = [got["intercept"], *got["coef"]]
     worst_b = max(rel(a, b) for a, b in zip(params, ref.params))
     worst_se = max(rel(a, b) for a, b in zip(got["std_error"], ref.bse))
-    print(f"{label}: statsmodels OLS agreement: coefficients rel {worst_b:.1e}, std errors rel {worst_se:.1e}")
+    hc1 = sm.OLS(frame[outcome].astype(float), sm.add_constant(frame[covariates].astype(float))).fit(cov_type="HC1")
+    worst_hc1 = max(rel(a, b) for a, b in zip(got["hc1"], hc1.bse))
+    print(f"{label}: statsmodels OLS agreement: coefficients rel {worst_b:.1e}, std errors rel {worst_se:.1e}, HC1 std errors rel {worst_hc1:.1e}")
     check(worst_b < 1e-8, f"{label} coefficients vs statsmodels: {worst_b}")
     check(worst_se < 1e-6, f"{label} standard errors vs statsmodels: {worst_se}")
+    check(worst_hc1 < 1e-6, f"{label} HC1 standard errors vs statsmodels: {worst_hc1}")
     return got
 
 

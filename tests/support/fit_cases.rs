@@ -10,7 +10,9 @@
 
 use nalgebra::DMatrix;
 use serde_json::json;
-use upshot_fit::{logit, logit_sums_from_rows, ols, Moments, NewtonOptions};
+use upshot_fit::{
+    logit, logit_sums_from_rows, ols, residual_moments_from_rows, Moments, NewtonOptions,
+};
 
 fn fail(msg: String) -> ! {
     eprintln!("fit-cases: {msg}");
@@ -110,10 +112,26 @@ fn main() {
     let m = Moments::from_rows(names, mean, sd, &rows).unwrap_or_else(|e| fail(e.to_string()));
     let x: Vec<usize> = (0..k - 1).collect();
     match ols(&m, k - 1, &x) {
-        Ok(f) => println!(
-            "{}",
-            json!({"intercept": f.intercept, "coef": f.coef, "std_error": f.std_error, "condition": f.condition, "rss": f.rss, "r2": f.r2})
-        ),
+        Ok(f) => {
+            // Residual pass: Σ e² w wᵀ with the design coefficients inlined.
+            let c = f.design_coefficients(&m, &x);
+            let v: Vec<Vec<f64>> = rows
+                .iter()
+                .map(|r| {
+                    let mut v: Vec<f64> = (0..k - 1)
+                        .map(|j| (r[j] - m.centre[j]) / m.scale[j])
+                        .collect();
+                    v.push(r[k - 1]);
+                    v
+                })
+                .collect();
+            let meat = residual_moments_from_rows(&v, &c);
+            let hc1 = f.hc1(&m, &x, &meat).unwrap_or_else(|e| fail(e.to_string()));
+            println!(
+                "{}",
+                json!({"intercept": f.intercept, "coef": f.coef, "std_error": f.std_error, "hc1": hc1, "condition": f.condition, "rss": f.rss, "r2": f.r2})
+            )
+        }
         Err(e) => println!("{}", json!({"error": e.to_string()})),
     }
 }

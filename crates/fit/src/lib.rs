@@ -20,7 +20,7 @@ mod ols;
 
 pub use logit::{logit, logit_sums_from_rows, Logit, LogitSums, NewtonOptions};
 pub use moments::Moments;
-pub use ols::{ols, Ols};
+pub use ols::{ols, residual_moments_from_rows, Ols};
 
 /// Why a fit cannot be made.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]

@@ -27,6 +27,79 @@ pub struct Ols {
     pub std_error: Vec<f64>,
 }
 
+impl Ols {
+    /// The coefficients on `(1, v)`, the centred and scaled design of the pass: what a residual
+    /// pass inlines to compute `e = y - (c_0 + Σ c_i v_i)`. `x` as given to [`ols`].
+    pub fn design_coefficients(&self, m: &Moments, x: &[usize]) -> Vec<f64> {
+        let mut c = vec![
+            self.intercept
+                + x.iter()
+                    .zip(&self.coef)
+                    .map(|(&i, b)| b * m.centre[i])
+                    .sum::<f64>(),
+        ];
+        c.extend(x.iter().zip(&self.coef).map(|(&i, b)| b * m.scale[i]));
+        c
+    }
+
+    /// HC1 heteroskedasticity-robust standard errors (White 1980 with the n / (n - p) factor of
+    /// MacKinnon & White 1985), intercept first. `meat` is `Σ e² w wᵀ` over rows for
+    /// `w = (1, v_x...)`, as a residual pass returns it.
+    pub fn hc1(&self, m: &Moments, x: &[usize], meat: &DMatrix<f64>) -> Result<Vec<f64>, FitError> {
+        let p = x.len() + 1;
+        if meat.nrows() != p || meat.ncols() != p {
+            return Err(FitError::Shape(format!(
+                "residual moments are {}x{}, expected {p}x{p}",
+                meat.nrows(),
+                meat.ncols()
+            )));
+        }
+        // Bread: (WᵀW)⁻¹ with W = (1, v) from the Gram moments.
+        let mut wtw = DMatrix::zeros(p, p);
+        wtw[(0, 0)] = m.n;
+        for (a, &i) in x.iter().enumerate() {
+            wtw[(0, a + 1)] = m.sum[i];
+            wtw[(a + 1, 0)] = m.sum[i];
+            for (b, &j) in x.iter().enumerate() {
+                wtw[(a + 1, b + 1)] = m.gram[(i, j)];
+            }
+        }
+        let bread = wtw.cholesky().ok_or_else(|| FitError::Collinear {
+            columns: x.iter().map(|&i| m.names[i].clone()).collect(),
+            condition: f64::INFINITY,
+        })?;
+        let inv = bread.inverse();
+        let cov_c = &inv * meat * &inv * (m.n / (m.n - p as f64));
+        // Original coefficients: beta_j = c_j / s_j, beta_0 = c_0 - Σ c_j m_j / s_j.
+        let mut a = DMatrix::zeros(p, p);
+        a[(0, 0)] = 1.0;
+        for (k, &i) in x.iter().enumerate() {
+            a[(0, k + 1)] = -m.centre[i] / m.scale[i];
+            a[(k + 1, k + 1)] = 1.0 / m.scale[i];
+        }
+        let cov = &a * cov_c * a.transpose();
+        Ok((0..p).map(|i| cov[(i, i)].sqrt()).collect())
+    }
+}
+
+/// `Σ e² w wᵀ` for `w = (1, v...)` from rows `[v_1, ..., v_k, y]` and design coefficients `c`:
+/// what the residual pass returns, computed in memory (tests, export-and-fit baseline).
+pub fn residual_moments_from_rows(rows: &[Vec<f64>], c: &[f64]) -> DMatrix<f64> {
+    let p = c.len();
+    let mut out = DMatrix::zeros(p, p);
+    let mut w = vec![1.0; p];
+    for r in rows {
+        w[1..p].copy_from_slice(&r[..p - 1]);
+        let e = r[p - 1] - w.iter().zip(c).map(|(a, b)| a * b).sum::<f64>();
+        for i in 0..p {
+            for j in 0..p {
+                out[(i, j)] += e * e * w[i] * w[j];
+            }
+        }
+    }
+    out
+}
+
 /// Regresses column `y` on columns `x` (with an intercept) using the moments of a Gram pass.
 pub fn ols(m: &Moments, y: usize, x: &[usize]) -> Result<Ols, FitError> {
     let p = x.len() + 1;

@@ -2,7 +2,7 @@
 //!
 //! An estimator never sees rows: it asks for grouped sufficient statistics. This crate builds
 //! each such request — a [`Pass`] — as a sqlparser `Query`: the profile pass, the cell table, the
-//! centred Gram matrix and the logistic Newton step so far. User input enters only as AST nodes: identifiers as quoted
+//! centred Gram matrix, the residual moments of a linear fit and the logistic Newton step so far. User input enters only as AST nodes: identifiers as quoted
 //! [`sqlparser::ast::Ident`]s, category levels as string literals, a source query parsed and
 //! checked to be one SELECT, a filter parsed and checked to be one expression ([`Source`],
 //! [`parse_filter`]).
@@ -23,5 +23,7 @@ mod template;
 
 pub use dialect::{dialect_by_name, Dialect, DuckDb, Postgres, DIALECTS};
 pub use error::SqlError;
-pub use pass::{cells, gram, logistic_step, profile, DesignTerm, Pass, ProfileColumn};
+pub use pass::{
+    cells, gram, logistic_step, profile, residual_moments, DesignTerm, Pass, ProfileColumn,
+};
 pub use source::{parse_filter, Source};

@@ -356,3 +356,60 @@ pub fn logistic_step(
         query: template::query(d, &t.sql, &t.binds, source, filter)?,
     })
 }
+
+/// The residual pass of a linear fit: with the design coefficients `coef` on `(1, v)` inlined
+/// as literals and `e = y - (c_0 + Σ c_i v_i)`, per group `n` and `r{i}_{j} = Σ e² w_i w_j`
+/// (i ≤ j) for `w = (1, v...)`: the meat of HC1 sandwich errors (`r0_0` is the residual sum of
+/// squares).
+pub fn residual_moments(
+    d: &dyn Dialect,
+    source: &Source,
+    filter: Option<&Expr>,
+    groups: &[String],
+    terms: &[DesignTerm],
+    outcome: &str,
+    coef: &[f64],
+) -> Result<Pass, SqlError> {
+    assert_eq!(
+        coef.len(),
+        terms.len() + 1,
+        "one coefficient per term plus the intercept"
+    );
+    let mut t = Text::new();
+    let rows = design_rows(&mut t, d, groups, terms, Some(outcome))?;
+    for (i, c) in coef.iter().enumerate() {
+        template::number(*c, &format!("coefficient {i}"))?;
+    }
+    let mut fitted = t.bind(Bind::Number(coef[0]));
+    for (i, c) in coef[1..].iter().enumerate() {
+        let b = t.bind(Bind::Number(*c));
+        fitted.push_str(&format!(" + {b} * v{i}"));
+    }
+    let w = |i: usize| {
+        if i == 0 {
+            String::new()
+        } else {
+            format!(" * v{}", i - 1)
+        }
+    };
+    let mut outer: Vec<String> = (0..groups.len()).map(|i| format!("k{i}")).collect();
+    outer.push("COUNT(*) AS n".into());
+    for i in 0..=terms.len() {
+        for j in i..=terms.len() {
+            outer.push(format!("SUM(e * e{}{}) AS r{i}_{j}", w(i), w(j)));
+        }
+    }
+    t.sql = format!(
+        "SELECT {} FROM (SELECT *, y - ({fitted}) AS e FROM ({rows}) AS rows_) AS residuals_{}",
+        outer.join(", "),
+        group_tail(groups)
+    );
+    Ok(Pass {
+        name: "residuals".into(),
+        purpose: format!(
+            "residual moments of a linear model for {outcome} (HC1 meat){}",
+            per(groups)
+        ),
+        query: template::query(d, &t.sql, &t.binds, source, filter)?,
+    })
+}

@@ -8,8 +8,8 @@
 use sqlparser::parser::Parser;
 use std::path::PathBuf;
 use upshot_sql::{
-    cells, dialect_by_name, gram, logistic_step, parse_filter, profile, DesignTerm, Dialect, Pass,
-    ProfileColumn, Source, SqlError, DIALECTS,
+    cells, dialect_by_name, gram, logistic_step, parse_filter, profile, residual_moments,
+    DesignTerm, Dialect, Pass, ProfileColumn, Source, SqlError, DIALECTS,
 };
 
 fn golden_dir() -> PathBuf {
@@ -91,6 +91,20 @@ fn passes(d: &dyn Dialect) -> Vec<Pass> {
             ],
             "voucher",
             &[0.25, -0.75, 1.0 / 3.0],
+        )
+        .unwrap(),
+        residual_moments(
+            d,
+            &src,
+            None,
+            &["tenure_band".into()],
+            &[DesignTerm::Numeric {
+                column: "app_sessions".into(),
+                centre: 3.5,
+                scale: 2.0,
+            }],
+            "spend_30d",
+            &[80.5, 8.0],
         )
         .unwrap(),
     ]
