@@ -24,6 +24,7 @@ mod template;
 pub use dialect::{dialect_by_name, Dialect, DuckDb, Postgres, DIALECTS};
 pub use error::SqlError;
 pub use pass::{
-    cells, gram, logistic_step, profile, residual_moments, DesignTerm, Pass, ProfileColumn,
+    cells, gram, logistic_step, profile, residual_moments, schema_probe, DesignTerm, Pass,
+    ProfileColumn,
 };
 pub use source::{parse_filter, Source};

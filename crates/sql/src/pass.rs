@@ -413,3 +413,12 @@ pub fn residual_moments(
         query: template::query(d, &t.sql, &t.binds, source, filter)?,
     })
 }
+
+/// A query returning the source's columns and no rows (`LIMIT 0`), for schema checks.
+pub fn schema_probe(d: &dyn Dialect, source: &Source) -> Result<Pass, SqlError> {
+    Ok(Pass {
+        name: "schema".into(),
+        purpose: "the source's column names and types (reads no rows)".into(),
+        query: template::query(d, "SELECT * FROM __src AS src LIMIT 0", &[], source, None)?,
+    })
+}

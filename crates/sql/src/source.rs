@@ -2,7 +2,10 @@
 
 use crate::dialect::Dialect;
 use crate::error::SqlError;
-use sqlparser::ast::{Expr, Ident, ObjectName, Query, SetExpr, Statement, TableAlias, TableFactor};
+use sqlparser::ast::{
+    Expr, FunctionArg, FunctionArgExpr, Ident, ObjectName, Query, SetExpr, Statement, TableAlias,
+    TableFactor, Value,
+};
 use sqlparser::parser::Parser;
 use sqlparser::tokenizer::Token;
 
@@ -13,6 +16,8 @@ pub enum Source {
     Table(Vec<String>),
     /// A user query, parsed.
     Query(Box<Query>),
+    /// A CSV file read by the engine (DuckDB's `read_csv_auto`); the path is a string literal.
+    Csv(String),
 }
 
 impl Source {
@@ -65,6 +70,7 @@ impl Source {
             match self {
                 Source::Table(_) => "SELECT 1 FROM t AS src",
                 Source::Query(_) => "SELECT 1 FROM (SELECT 1) AS src",
+                Source::Csv(_) => "SELECT 1 FROM read_csv_auto('file') AS src",
             },
         )
         .expect("fixed text parses");
@@ -92,6 +98,19 @@ impl Source {
                 Source::Query(q),
             ) => {
                 *subquery = q.clone();
+                *a = alias;
+            }
+            (
+                TableFactor::Table {
+                    args: Some(args),
+                    alias: a,
+                    ..
+                },
+                Source::Csv(path),
+            ) => {
+                args.args = vec![FunctionArg::Unnamed(FunctionArgExpr::Expr(Expr::value(
+                    Value::SingleQuotedString(path.clone()),
+                )))];
                 *a = alias;
             }
             _ => unreachable!("template matches the source kind"),

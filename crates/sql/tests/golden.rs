@@ -211,6 +211,18 @@ fn user_sql_must_be_one_select_or_one_expression() {
 }
 
 #[test]
+fn csv_sources_are_string_literals() {
+    let d = dialect_by_name("duckdb").unwrap();
+    let src = Source::Csv("demo-data/it's here.csv".into());
+    let sql = upshot_sql::schema_probe(d, &src).unwrap().sql();
+    assert!(
+        sql.contains("read_csv_auto('demo-data/it''s here.csv') AS src"),
+        "{sql}"
+    );
+    assert!(sql.contains("LIMIT 0"), "{sql}");
+}
+
+#[test]
 fn bad_numbers_are_refused() {
     let d = dialect_by_name("duckdb").unwrap();
     let src = Source::table("t").unwrap();
