@@ -61,9 +61,10 @@ fn not_null(t: &mut Text, columns: &[String]) -> String {
     w
 }
 
-/// The profile pass: row count, and per column non-NULL count, minimum, maximum, mean (numeric
-/// columns) and distinct count (approximate where the engine has it). Output aliases:
-/// `n_rows`, then `c{i}_n`, `c{i}_min`, `c{i}_max`, `c{i}_mean`, `c{i}_distinct`.
+/// The profile pass: row count, and per column non-NULL count, minimum, maximum, mean and
+/// population standard deviation (numeric columns) and distinct count (approximate where the
+/// engine has it). Output aliases: `n_rows`, then `c{i}_n`, `c{i}_min`, `c{i}_max`, `c{i}_mean`,
+/// `c{i}_sd`, `c{i}_distinct`. Means and deviations centre and scale the later passes.
 pub fn profile(
     d: &dyn Dialect,
     source: &Source,
@@ -79,6 +80,7 @@ pub fn profile(
         items.push(format!("MAX({p}) AS c{i}_max"));
         if c.numeric {
             items.push(format!("AVG(CAST({p} AS {})) AS c{i}_mean", d.float_type()));
+            items.push(format!("STDDEV_POP(CAST({p} AS {})) AS c{i}_sd", d.float_type()));
         }
         items.push(match d.approx_distinct() {
             Some(f) => format!("{f}({p}) AS c{i}_distinct"),
@@ -91,7 +93,7 @@ pub fn profile(
     );
     Ok(Pass {
         name: "profile".into(),
-        purpose: "row count; per column: non-NULL count, min, max, mean, distinct count".into(),
+        purpose: "row count; per column: non-NULL count, min, max, mean, standard deviation, distinct count".into(),
         query: template::query(d, &t.sql, &t.binds, source, filter)?,
     })
 }
