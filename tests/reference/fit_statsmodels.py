@@ -1,5 +1,7 @@
-"""Least squares through upshot's finisher (profile pass, centred Gram pass, `upshot_fit::ols`)
-against outside references.
+"""Least squares and logistic regression through upshot against outside references, twice:
+through the finisher alone (sums formed in memory by the `fit-cases` binary) and through the
+in-database path (`fit-cases --in-db`: profile, centred Gram, residual and logistic passes built by
+upshot_sql and run by DuckDB on a CSV file, then finished by upshot_fit).
 
 1. NIST Statistical Reference Datasets, linear regression, Longley (1967): certified coefficients
    (quoted in shared/references.md from memory and reproduced there with statsmodels). The data
@@ -51,12 +53,16 @@ def check(ok, what):
         print("FAIL", what)
 
 
+MODES = [[], ["--in-db"]]
+MODE = []
+
+
 def run(binary, frame, outcome, covariates, logistic=False):
     with tempfile.NamedTemporaryFile("w", suffix=".csv", delete=False) as f:
         frame.to_csv(f, index=False, float_format="%.17g")
         path = f.name
     try:
-        flags = ["--logit"] if logistic else []
+        flags = MODE + (["--logit"] if logistic else [])
         out = subprocess.run([binary, *flags, path, outcome, *covariates], check=True, capture_output=True, text=True)
     finally:
         os.unlink(path)
@@ -83,6 +89,15 @@ def compare_statsmodels(binary, frame, outcome, covariates, label):
 
 
 def main(binary):
+    global MODE
+    for MODE in MODES:
+        print("== " + ("in-database path (DuckDB)" if MODE else "finisher on in-memory sums"))
+        checks(binary)
+    print(f"{passed} passed, {failed} failed")
+    return 1 if failed else 0
+
+
+def checks(binary):
     data = longley.load_pandas().data
     cov = ["GNPDEFL", "GNP", "UNEMP", "ARMED", "POP", "YEAR"]
     got = compare_statsmodels(binary, data, "TOTEMP", cov, "Longley")
@@ -117,9 +132,6 @@ def main(binary):
     sep = pd.DataFrame({"x": np.arange(40) / 10.0, "y": (np.arange(40) >= 20).astype(float)})
     got = run(binary, sep, "y", ["x"], logistic=True)
     check("separation" in got.get("error", "") and "`x`" in got["error"], f"separated data: {got}")
-
-    print(f"{passed} passed, {failed} failed")
-    return 1 if failed else 0
 
 
 if __name__ == "__main__":

@@ -6,7 +6,12 @@
 //! With `--logit` first, fits a logistic regression by Newton's method over the sums one
 //! logistic pass returns (`upshot_fit::logit`), computed here in memory from the centred rows.
 //!
-//! Usage: `fit-cases [--logit] FILE.csv OUTCOME COVARIATE...`; prints one JSON object.
+//! With `--in-db`, the same fit runs through the in-database path instead: passes built by
+//! `upshot_sql`, run by DuckDB on the CSV file, finished by `upshot_fit` (see `db_fit.rs`).
+//!
+//! Usage: `fit-cases [--in-db] [--logit] FILE.csv OUTCOME COVARIATE...`; prints one JSON object.
+
+mod db_fit;
 
 use nalgebra::DMatrix;
 use serde_json::json;
@@ -21,12 +26,20 @@ fn fail(msg: String) -> ! {
 
 fn main() {
     let mut args: Vec<String> = std::env::args().skip(1).collect();
+    let in_db = args.first().is_some_and(|a| a == "--in-db");
+    if in_db {
+        args.remove(0);
+    }
     let logistic = args.first().is_some_and(|a| a == "--logit");
     if logistic {
         args.remove(0);
     }
     if args.len() < 2 {
-        fail("usage: fit-cases FILE.csv OUTCOME COVARIATE...".into());
+        fail("usage: fit-cases [--in-db] [--logit] FILE.csv OUTCOME COVARIATE...".into());
+    }
+    if in_db {
+        println!("{}", db_fit::fit(&args[0], &args[1], &args[2..], logistic));
+        return;
     }
     let text =
         std::fs::read_to_string(&args[0]).unwrap_or_else(|e| fail(format!("{}: {e}", args[0])));

@@ -80,7 +80,10 @@ pub fn profile(
         items.push(format!("MAX({p}) AS c{i}_max"));
         if c.numeric {
             items.push(format!("AVG(CAST({p} AS {})) AS c{i}_mean", d.float_type()));
-            items.push(format!("STDDEV_POP(CAST({p} AS {})) AS c{i}_sd", d.float_type()));
+            items.push(format!(
+                "STDDEV_POP(CAST({p} AS {})) AS c{i}_sd",
+                d.float_type()
+            ));
         }
         items.push(match d.approx_distinct() {
             Some(f) => format!("{f}({p}) AS c{i}_distinct"),

@@ -1,0 +1,157 @@
+//! The embedded DuckDB engine.
+
+use crate::{Aggregates, Cell, Column, Engine, EngineError};
+use duckdb::arrow::array::{Array, AsArray};
+use duckdb::arrow::compute::cast;
+use duckdb::arrow::datatypes::DataType;
+use duckdb::arrow::record_batch::RecordBatch;
+use duckdb::arrow::util::display::{ArrayFormatter, FormatOptions};
+use duckdb::{AccessMode, Config, Connection};
+use upshot_sql::{Dialect, DuckDb, Pass, Source};
+
+/// DuckDB, embedded in the process.
+pub struct DuckDbEngine {
+    conn: Connection,
+}
+
+/// The location string of a fresh in-memory database.
+pub const MEMORY: &str = "duckdb::memory:";
+
+impl DuckDbEngine {
+    /// Opens `location`: [`MEMORY`], or a database file (opened read-only unless `write`).
+    pub fn open(location: &str, write: bool) -> Result<Self, EngineError> {
+        let err = |e: duckdb::Error| EngineError::Open {
+            location: location.to_string(),
+            message: e.to_string(),
+        };
+        let conn = if location == MEMORY {
+            Connection::open_in_memory().map_err(err)?
+        } else {
+            let mode = if write {
+                AccessMode::ReadWrite
+            } else {
+                AccessMode::ReadOnly
+            };
+            let config = Config::default().access_mode(mode).map_err(err)?;
+            Connection::open_with_flags(location, config).map_err(err)?
+        };
+        Ok(DuckDbEngine { conn })
+    }
+
+    /// Runs statements of upshot's own (setting up test tables); never user text.
+    pub fn execute_batch(&self, sql: &str) -> Result<(), EngineError> {
+        self.conn
+            .execute_batch(sql)
+            .map_err(|e| EngineError::Query {
+                pass: "setup".into(),
+                message: e.to_string(),
+            })
+    }
+
+    fn query(&self, name: &str, sql: &str) -> Result<Vec<RecordBatch>, EngineError> {
+        let err = |e: duckdb::Error| EngineError::Query {
+            pass: name.to_string(),
+            message: e.to_string(),
+        };
+        let mut stmt = self.conn.prepare(sql).map_err(err)?;
+        let batches: Vec<RecordBatch> = stmt.query_arrow([]).map_err(err)?.collect();
+        Ok(batches)
+    }
+}
+
+fn cells(pass: &str, batches: &[RecordBatch]) -> Result<Aggregates, EngineError> {
+    let names: Vec<String> = match batches.first() {
+        Some(b) => b
+            .schema()
+            .fields()
+            .iter()
+            .map(|f| f.name().clone())
+            .collect(),
+        None => Vec::new(),
+    };
+    let mut rows = Vec::new();
+    for b in batches {
+        let mut cols: Vec<Vec<Cell>> = Vec::new();
+        for a in b.columns() {
+            let numeric = a.data_type().is_numeric() || matches!(a.data_type(), DataType::Boolean);
+            let col: Vec<Cell> = if numeric {
+                let f = cast(a, &DataType::Float64).map_err(|e| EngineError::Query {
+                    pass: pass.to_string(),
+                    message: e.to_string(),
+                })?;
+                let f = f.as_primitive::<duckdb::arrow::datatypes::Float64Type>();
+                (0..f.len())
+                    .map(|i| {
+                        if f.is_null(i) {
+                            Cell::Null
+                        } else {
+                            Cell::Number(f.value(i))
+                        }
+                    })
+                    .collect()
+            } else {
+                let fmt = ArrayFormatter::try_new(a.as_ref(), &FormatOptions::default()).map_err(
+                    |e| EngineError::Query {
+                        pass: pass.to_string(),
+                        message: e.to_string(),
+                    },
+                )?;
+                (0..a.len())
+                    .map(|i| {
+                        if a.is_null(i) {
+                            Cell::Null
+                        } else {
+                            Cell::Text(fmt.value(i).to_string())
+                        }
+                    })
+                    .collect()
+            };
+            cols.push(col);
+        }
+        for r in 0..b.num_rows() {
+            rows.push(cols.iter().map(|c| c[r].clone()).collect());
+        }
+    }
+    Ok(Aggregates {
+        pass: pass.to_string(),
+        names,
+        rows,
+    })
+}
+
+impl Engine for DuckDbEngine {
+    fn dialect(&self) -> &'static dyn Dialect {
+        &DuckDb
+    }
+
+    fn run(&self, pass: &Pass) -> Result<Aggregates, EngineError> {
+        let sql = pass.query.to_string();
+        let batches = self.query(&pass.name, &sql)?;
+        cells(&pass.name, &batches)
+    }
+
+    fn columns(&self, source: &Source) -> Result<Vec<Column>, EngineError> {
+        let pass =
+            upshot_sql::schema_probe(self.dialect(), source).map_err(|e| EngineError::Query {
+                pass: "schema".into(),
+                message: e.to_string(),
+            })?;
+        let sql = pass.query.to_string();
+        let err = |e: duckdb::Error| EngineError::Query {
+            pass: "schema".into(),
+            message: e.to_string(),
+        };
+        let mut stmt = self.conn.prepare(&sql).map_err(err)?;
+        let arrow = stmt.query_arrow([]).map_err(err)?;
+        let schema = arrow.get_schema();
+        Ok(schema
+            .fields()
+            .iter()
+            .map(|f| Column {
+                name: f.name().clone(),
+                type_name: f.data_type().to_string(),
+                numeric: f.data_type().is_numeric(),
+            })
+            .collect())
+    }
+}

@@ -1,0 +1,179 @@
+//! The DuckDB engine on the committed demo sample: passes run in the database and return only
+//! aggregates; results agree with the generator's own figures (demo-data/sample/*.truth.json).
+
+use upshot_engine::{Cell, DuckDbEngine, Engine, EngineError, MEMORY};
+use upshot_sql::{cells, gram, parse_filter, profile, DesignTerm, ProfileColumn, Source};
+
+fn sample() -> String {
+    format!(
+        "{}/../../demo-data/sample/customers.csv",
+        env!("CARGO_MANIFEST_DIR")
+    )
+}
+
+fn truth() -> String {
+    std::fs::read_to_string(format!(
+        "{}/../../demo-data/sample/customers.truth.json",
+        env!("CARGO_MANIFEST_DIR")
+    ))
+    .unwrap()
+}
+
+fn json_number(text: &str, after: &str, key: &str) -> f64 {
+    let start = text.find(after).unwrap_or_else(|| panic!("no {after}"));
+    let rest = &text[start..];
+    let k = rest
+        .find(&format!("\"{key}\": "))
+        .unwrap_or_else(|| panic!("no {key}"))
+        + key.len()
+        + 4;
+    rest[k..]
+        .split([',', '\n'])
+        .next()
+        .unwrap()
+        .trim()
+        .parse()
+        .unwrap()
+}
+
+#[test]
+fn schema_of_a_csv_source() {
+    let e = DuckDbEngine::open(MEMORY, false).unwrap();
+    let cols = e.columns(&Source::Csv(sample())).unwrap();
+    let names: Vec<&str> = cols.iter().map(|c| c.name.as_str()).collect();
+    assert_eq!(
+        names,
+        [
+            "customer_id",
+            "zone",
+            "tenure_band",
+            "prior_orders",
+            "household_size",
+            "mail_wave",
+            "voucher",
+            "app_sessions",
+            "spend_30d",
+            "reordered_30d"
+        ]
+    );
+    assert!(cols.iter().find(|c| c.name == "spend_30d").unwrap().numeric);
+    assert!(!cols.iter().find(|c| c.name == "zone").unwrap().numeric);
+}
+
+#[test]
+fn profile_and_cells_match_the_generator() {
+    let e = DuckDbEngine::open(MEMORY, false).unwrap();
+    let d = e.dialect();
+    let src = Source::Csv(sample());
+    let p = e
+        .run(
+            &profile(
+                d,
+                &src,
+                None,
+                &[
+                    ProfileColumn {
+                        name: "voucher".into(),
+                        numeric: true,
+                    },
+                    ProfileColumn {
+                        name: "zone".into(),
+                        numeric: false,
+                    },
+                ],
+            )
+            .unwrap(),
+        )
+        .unwrap();
+    assert_eq!(p.number(0, "n_rows").unwrap(), 5000.0);
+    let t = truth();
+    let treated = json_number(&t, "\"rows\"", "treated");
+    assert_eq!(p.number(0, "c0_mean").unwrap(), treated / 5000.0);
+    assert_eq!(
+        p.rows[0][p.names.iter().position(|n| n == "c1_min").unwrap()],
+        Cell::Text("Eastfield".into())
+    );
+    // Naive difference of means from the cell table (CSV spend is rounded to cents, so allow 0.01).
+    let c = e
+        .run(&cells(d, &src, None, &["voucher".into()], "spend_30d").unwrap())
+        .unwrap();
+    assert_eq!(c.rows.len(), 2);
+    let mean = |r: usize| c.number(r, "sy").unwrap() / c.number(r, "n").unwrap();
+    let naive = mean(1) - mean(0);
+    let want = json_number(&t, "\"spend_30d\"", "naive_difference");
+    assert!(
+        (naive - want).abs() < 0.01,
+        "naive {naive} vs truth file {want}"
+    );
+}
+
+#[test]
+fn quoted_names_filters_and_groups() {
+    let e = DuckDbEngine::open(MEMORY, false).unwrap();
+    e.execute_batch("CREATE TABLE \"order lines\" (\"spend 30d\" DOUBLE, \"select\" VARCHAR, g INTEGER); INSERT INTO \"order lines\" VALUES (1, 'a', 0), (2, 'b', 0), (4, 'a', 1), (NULL, 'a', 1)").unwrap();
+    let d = e.dialect();
+    let src = Source::table("order lines").unwrap();
+    let f = parse_filter("\"select\" = 'a'", d).unwrap();
+    let g = e
+        .run(
+            &gram(
+                d,
+                &src,
+                Some(&f),
+                &["g".into()],
+                &[DesignTerm::Numeric {
+                    column: "spend 30d".into(),
+                    centre: 2.0,
+                    scale: 1.0,
+                }],
+            )
+            .unwrap(),
+        )
+        .unwrap();
+    // Group 0: one row (1 - 2 = -1); group 1: one row (4 - 2 = 2), the NULL row excluded.
+    assert_eq!(g.rows.len(), 2);
+    assert_eq!(
+        (
+            g.number(0, "n").unwrap(),
+            g.number(0, "s0").unwrap(),
+            g.number(0, "g0_0").unwrap()
+        ),
+        (1.0, -1.0, 1.0)
+    );
+    assert_eq!(
+        (
+            g.number(1, "n").unwrap(),
+            g.number(1, "s0").unwrap(),
+            g.number(1, "g0_0").unwrap()
+        ),
+        (1.0, 2.0, 4.0)
+    );
+}
+
+#[test]
+fn database_errors_name_the_pass() {
+    let e = DuckDbEngine::open(MEMORY, false).unwrap();
+    let d = e.dialect();
+    let err = e
+        .run(
+            &profile(
+                d,
+                &Source::table("no_such_table").unwrap(),
+                None,
+                &[ProfileColumn {
+                    name: "x".into(),
+                    numeric: true,
+                }],
+            )
+            .unwrap(),
+        )
+        .unwrap_err();
+    assert!(
+        matches!(&err, EngineError::Query { pass, message } if pass == "profile" && message.contains("no_such_table")),
+        "{err}"
+    );
+    let err = DuckDbEngine::open("/no/such/dir/db.duckdb", false)
+        .err()
+        .unwrap();
+    assert!(err.to_string().contains("/no/such/dir/db.duckdb"), "{err}");
+}

@@ -1,0 +1,138 @@
+//! The in-database path of the reference checks: profile, Gram, residual and logistic passes
+//! built by `upshot_sql`, run by DuckDB on a CSV source, finished by `upshot_fit`. Only the
+//! aggregates leave the database.
+
+use nalgebra::{DMatrix, DVector};
+use serde_json::{json, Value};
+use upshot_engine::{DuckDbEngine, Engine, MEMORY};
+use upshot_fit::{logit, ols, LogitSums, Moments, NewtonOptions};
+use upshot_sql::{
+    gram, logistic_step, profile, residual_moments, DesignTerm, ProfileColumn, Source,
+};
+
+fn fail(msg: String) -> ! {
+    eprintln!("fit-cases: {msg}");
+    std::process::exit(2)
+}
+
+/// Least squares (`logistic = false`) or logistic regression of `outcome` on `covariates`.
+pub fn fit(path: &str, outcome: &str, covariates: &[String], logistic: bool) -> Value {
+    let e = DuckDbEngine::open(MEMORY, false).unwrap_or_else(|e| fail(e.to_string()));
+    let d = e.dialect();
+    let src = Source::Csv(path.to_string());
+    let mut cols: Vec<String> = covariates.to_vec();
+    cols.push(outcome.to_string());
+    let k = cols.len();
+    let pc: Vec<ProfileColumn> = cols
+        .iter()
+        .map(|c| ProfileColumn {
+            name: c.clone(),
+            numeric: true,
+        })
+        .collect();
+    let prof = e
+        .run(&profile(d, &src, None, &pc).unwrap())
+        .unwrap_or_else(|e| fail(e.to_string()));
+    let num = |a: &upshot_engine::Aggregates, name: &str| {
+        a.number(0, name).unwrap_or_else(|e| fail(e.to_string()))
+    };
+    let centre: Vec<f64> = (0..k).map(|i| num(&prof, &format!("c{i}_mean"))).collect();
+    let scale: Vec<f64> = (0..k)
+        .map(|i| num(&prof, &format!("c{i}_sd")).max(f64::MIN_POSITIVE))
+        .collect();
+    let terms: Vec<DesignTerm> = (0..k)
+        .map(|i| DesignTerm::Numeric {
+            column: cols[i].clone(),
+            centre: centre[i],
+            scale: scale[i],
+        })
+        .collect();
+    if logistic {
+        let x_terms = &terms[..k - 1];
+        let mut names = vec!["(intercept)".to_string()];
+        names.extend(covariates.iter().cloned());
+        let mut passes = 0;
+        let result = logit::<String, _>(
+            &names,
+            |c| {
+                passes += 1;
+                let a = e
+                    .run(
+                        &logistic_step(d, &src, None, &[], x_terms, outcome, c)
+                            .map_err(|e| e.to_string())?,
+                    )
+                    .map_err(|e| e.to_string())?;
+                let p = c.len();
+                let g = |n: &str| a.number(0, n).map_err(|e| e.to_string());
+                let mut info = DMatrix::zeros(p, p);
+                for i in 0..p {
+                    for j in i..p {
+                        let v = g(&format!("h{i}_{j}"))?;
+                        info[(i, j)] = v;
+                        info[(j, i)] = v;
+                    }
+                }
+                Ok(LogitSums {
+                    n: g("n")?,
+                    score: DVector::from_iterator(
+                        p,
+                        (0..p).map(|i| g(&format!("u{i}")).unwrap_or(f64::NAN)),
+                    ),
+                    information: info,
+                    loglik: g("loglik")?,
+                    min_p: g("min_p")?,
+                    max_p: g("max_p")?,
+                })
+            },
+            NewtonOptions::default(),
+        )
+        .unwrap_or_else(|e| fail(e));
+        return match result {
+            Ok(f) => {
+                let mut a = DMatrix::zeros(k, k);
+                a[(0, 0)] = 1.0;
+                for j in 1..k {
+                    a[(0, j)] = -centre[j - 1] / scale[j - 1];
+                    a[(j, j)] = 1.0 / scale[j - 1];
+                }
+                let beta = &a * DVector::from_vec(f.coef.clone());
+                let cov = &a * &f.covariance * a.transpose();
+                json!({"coef": beta.iter().collect::<Vec<_>>(), "std_error": (0..k).map(|i| cov[(i, i)].sqrt()).collect::<Vec<_>>(),
+                       "loglik": f.loglik, "iterations": f.iterations, "passes": passes + 1})
+            }
+            Err(err) => json!({"error": err.to_string()}),
+        };
+    }
+    let g = e
+        .run(&gram(d, &src, None, &[], &terms).unwrap())
+        .unwrap_or_else(|e| fail(e.to_string()));
+    let sum: Vec<f64> = (0..k).map(|i| num(&g, &format!("s{i}"))).collect();
+    let mut upper = Vec::new();
+    for i in 0..k {
+        for j in i..k {
+            upper.push(num(&g, &format!("g{i}_{j}")));
+        }
+    }
+    let m = Moments::from_upper(cols.clone(), num(&g, "n"), centre, scale, sum, &upper)
+        .unwrap_or_else(|e| fail(e.to_string()));
+    let x: Vec<usize> = (0..k - 1).collect();
+    match ols(&m, k - 1, &x) {
+        Ok(f) => {
+            let c = f.design_coefficients(&m, &x);
+            let r = e
+                .run(&residual_moments(d, &src, None, &[], &terms[..k - 1], outcome, &c).unwrap())
+                .unwrap_or_else(|e| fail(e.to_string()));
+            let mut meat = DMatrix::zeros(k, k);
+            for i in 0..k {
+                for j in i..k {
+                    let v = num(&r, &format!("r{i}_{j}"));
+                    meat[(i, j)] = v;
+                    meat[(j, i)] = v;
+                }
+            }
+            let hc1 = f.hc1(&m, &x, &meat).unwrap_or_else(|e| fail(e.to_string()));
+            json!({"intercept": f.intercept, "coef": f.coef, "std_error": f.std_error, "hc1": hc1, "condition": f.condition, "passes": 3})
+        }
+        Err(err) => json!({"error": err.to_string()}),
+    }
+}
