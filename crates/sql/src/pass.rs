@@ -258,6 +258,19 @@ fn per(groups: &[String]) -> String {
     }
 }
 
+/// `c_0 + c_1 v0 + ...` with the coefficients inlined as numeric literals.
+fn linear_predictor(t: &mut Text, coef: &[f64]) -> Result<String, SqlError> {
+    for (i, c) in coef.iter().enumerate() {
+        template::number(*c, &format!("coefficient {i}"))?;
+    }
+    let mut out = t.bind(Bind::Number(coef[0]));
+    for (i, c) in coef[1..].iter().enumerate() {
+        let b = t.bind(Bind::Number(*c));
+        out.push_str(&format!(" + {b} * v{i}"));
+    }
+    Ok(out)
+}
+
 /// The centred Gram pass: per group, `n`, `s{i} = Σ v_i` and `g{i}_{j} = Σ v_i v_j` (i ≤ j) of
 /// the design vector `v`. Centring with the profile means keeps the sums well conditioned.
 /// Rows with NULL in a group key or a term's column are excluded. The terms are computed once
@@ -319,14 +332,7 @@ pub fn logistic_step(
     );
     let mut t = Text::new();
     let rows = design_rows(&mut t, d, groups, terms, Some(outcome))?;
-    for (i, c) in coef.iter().enumerate() {
-        template::number(*c, &format!("coefficient {i}"))?;
-    }
-    let mut eta = t.bind(Bind::Number(coef[0]));
-    for (i, c) in coef[1..].iter().enumerate() {
-        let b = t.bind(Bind::Number(*c));
-        eta.push_str(&format!(" + {b} * v{i}"));
-    }
+    let eta = linear_predictor(&mut t, coef)?;
     let v = |i: usize| {
         if i == 0 {
             String::new()
@@ -382,14 +388,7 @@ pub fn residual_moments(
     );
     let mut t = Text::new();
     let rows = design_rows(&mut t, d, groups, terms, Some(outcome))?;
-    for (i, c) in coef.iter().enumerate() {
-        template::number(*c, &format!("coefficient {i}"))?;
-    }
-    let mut fitted = t.bind(Bind::Number(coef[0]));
-    for (i, c) in coef[1..].iter().enumerate() {
-        let b = t.bind(Bind::Number(*c));
-        fitted.push_str(&format!(" + {b} * v{i}"));
-    }
+    let fitted = linear_predictor(&mut t, coef)?;
     let w = |i: usize| {
         if i == 0 {
             String::new()
