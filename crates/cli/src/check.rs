@@ -51,6 +51,62 @@ pub struct Args {
     /// Output format: text or json.
     #[arg(long, default_value = "text")]
     format: String,
+    /// Do not open the study's source: check names against the diagram only.
+    #[arg(long)]
+    offline: bool,
+}
+
+/// Checks that every observed variable of the diagram is a column of the study's source, when
+/// the source is a CSV file or a table in a DuckDB file. Reads the schema only, no rows.
+fn check_columns(study: &Study) -> Result<(), Failure> {
+    use upshot_engine::{DuckDbEngine, Engine, MEMORY};
+    use upshot_study::SourceKind;
+    let label = study
+        .path
+        .as_ref()
+        .map(|p| p.display().to_string())
+        .unwrap_or_default();
+    let (source, what, location) = match (&study.source.rows, &study.source.database) {
+        (Some(SourceKind::File(p)), db) => {
+            if !p.is_file() {
+                return Err(Failure::input(format!("{label}: [source].file: no file {}; fix the path (relative to the study file) or use --offline", p.display())));
+            }
+            (
+                upshot_sql::Source::Csv(p.display().to_string()),
+                p.display().to_string(),
+                db.clone().unwrap_or_else(|| MEMORY.into()),
+            )
+        }
+        (Some(SourceKind::Table(t)), Some(db)) => (
+            upshot_sql::Source::table(t)
+                .map_err(|e| Failure::input(format!("{label}: [source].table: {e}")))?,
+            format!("table {t}"),
+            db.clone(),
+        ),
+        (Some(SourceKind::Query(q)), Some(db)) => (
+            upshot_sql::Source::query(q, &upshot_sql::DuckDb)
+                .map_err(|e| Failure::input(format!("{label}: [source].query: {e}")))?,
+            "the source query".to_string(),
+            db.clone(),
+        ),
+        _ => return Ok(()),
+    };
+    let engine = DuckDbEngine::open(&location, false)
+        .map_err(|e| Failure::input(format!("{label}: [source]: {e}")))?;
+    let columns = engine
+        .columns(&source)
+        .map_err(|e| Failure::input(format!("{label}: [source]: cannot read {what}: {e}")))?;
+    let names: Vec<&str> = columns.iter().map(|c| c.name.as_str()).collect();
+    for n in study.diagram.nodes() {
+        if n.role == Role::Observed && n.confounds.is_none() && !names.contains(&n.name.as_str()) {
+            return Err(Failure::input(format!(
+                "{label}: the diagram's observed variable `{}` is not a column of {what}; columns: {}. Rename it, or declare it `latent` if it is not recorded",
+                n.name,
+                names.join(", ")
+            )));
+        }
+    }
+    Ok(())
 }
 
 fn clean(v: Vec<String>) -> Vec<String> {
@@ -414,6 +470,9 @@ pub fn run(a: Args) -> Result<i32, Failure> {
             ))
         }
     };
+    if !a.offline {
+        check_columns(&study)?;
+    }
     let mut questions: Vec<&Question> = study.questions.iter().collect();
     if let Some(name) = &a.question {
         questions.retain(|q| &q.name == name);

@@ -310,6 +310,23 @@ fn bad_input_is_located_and_exits_2() {
         "no question `nope`",
     );
     fails(&["check"], 2, "nothing to check");
+    // Names are checked against the source's columns (schema only) unless --offline.
+    let sample = repo().join("demo-data/sample/customers.csv");
+    let typo = write(
+        "typo.toml",
+        &format!("[source]\nfile = '{}'\n[diagram]\ntext = 'voucher -> spend_3Od'\n[[question]]\ntreatment = \"voucher\"\noutcome = \"spend_3Od\"\n", sample.display()),
+    );
+    fails(
+        &["check", &typo],
+        2,
+        "observed variable `spend_3Od` is not a column of",
+    );
+    assert_eq!(
+        upshot(&["check", &typo, "--offline"]).status.code(),
+        Some(0)
+    );
+    let nofile = write("nofile.toml", "[source]\nfile = 'missing.csv'\n[diagram]\ntext = 'a -> b'\n[[question]]\ntreatment = \"a\"\noutcome = \"b\"\n");
+    fails(&["check", &nofile], 2, "no file");
     fails(
         &[
             "check",
