@@ -34,8 +34,12 @@ pub fn run(a: Args) -> Result<i32, Failure> {
     if a.rows == 0 {
         return Err(Failure::input("--rows: must be at least 1"));
     }
-    fs::create_dir_all(&a.out)
-        .map_err(|e| Failure::internal(format!("cannot create {}: {e}", a.out.display())))?;
+    fs::create_dir_all(&a.out).map_err(|e| {
+        Failure::input(format!(
+            "--out: cannot create {}: {e}; choose a writable folder",
+            a.out.display()
+        ))
+    })?;
     for v in variants {
         let stem = match v {
             Variant::Observed => "customers",

@@ -391,4 +391,9 @@ fn demo_writes_rows_and_truth() {
         "unknown variant `sideways`",
     );
     assert!(!bad.exists(), "a rejected run must write nothing");
+    fails(
+        &["demo", "--out", "/proc/upshot-cannot-write-here"],
+        2,
+        "--out: cannot create /proc/upshot-cannot-write-here",
+    );
 }
