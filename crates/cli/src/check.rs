@@ -7,7 +7,7 @@ use std::path::{Path, PathBuf};
 use upshot_graph::report::{
     self, Declared, Identification, NamedIndependence, NamedMarkovStatement,
 };
-use upshot_graph::{Diagram, Kind, Role};
+use upshot_graph::{Kind, Role};
 use upshot_study::{Method, Question, QuestionInput, Route, Study};
 
 /// Flags of `upshot check`.
@@ -549,7 +549,7 @@ pub fn run(a: Args) -> Result<i32, Failure> {
     let out = if json {
         serde_json::to_string_pretty(&doc).map_err(|e| Failure::internal(e.to_string()))? + "\n"
     } else {
-        render(&doc, d)
+        render(&doc)
     };
     print!("{out}");
     Ok(code)
@@ -559,7 +559,7 @@ fn set(s: &[String]) -> String {
     format!("{{{}}}", s.join(", "))
 }
 
-fn render(doc: &Document, d: &Diagram) -> String {
+fn render(doc: &Document) -> String {
     use std::fmt::Write;
     let mut o = String::new();
     let latent = doc
@@ -567,8 +567,7 @@ fn render(doc: &Document, d: &Diagram) -> String {
         .variables
         .iter()
         .filter(|v| v.role == Role::Latent)
-        .count()
-        + doc.diagram.latent_common_causes.len();
+        .count();
     let _ = writeln!(
         o,
         "upshot check · {}{}",
@@ -583,7 +582,7 @@ fn render(doc: &Document, d: &Diagram) -> String {
         o,
         "diagram: {} variables ({} latent), {} edge{}{}",
         doc.diagram.variables.len(),
-        latent - pairs,
+        latent,
         doc.diagram.edges.len(),
         if doc.diagram.edges.len() == 1 {
             ""
@@ -596,7 +595,6 @@ fn render(doc: &Document, d: &Diagram) -> String {
             String::new()
         }
     );
-    let _ = d;
     for q in &doc.questions {
         let id = &q.identification;
         let _ = writeln!(o);

@@ -11,29 +11,12 @@ fn sample() -> String {
     )
 }
 
-fn truth() -> String {
-    std::fs::read_to_string(format!(
+fn truth() -> serde_json::Value {
+    let path = format!(
         "{}/../../demo-data/sample/customers.truth.json",
         env!("CARGO_MANIFEST_DIR")
-    ))
-    .unwrap()
-}
-
-fn json_number(text: &str, after: &str, key: &str) -> f64 {
-    let start = text.find(after).unwrap_or_else(|| panic!("no {after}"));
-    let rest = &text[start..];
-    let k = rest
-        .find(&format!("\"{key}\": "))
-        .unwrap_or_else(|| panic!("no {key}"))
-        + key.len()
-        + 4;
-    rest[k..]
-        .split([',', '\n'])
-        .next()
-        .unwrap()
-        .trim()
-        .parse()
-        .unwrap()
+    );
+    serde_json::from_str(&std::fs::read_to_string(path).unwrap()).unwrap()
 }
 
 #[test]
@@ -87,7 +70,7 @@ fn profile_and_cells_match_the_generator() {
         .unwrap();
     assert_eq!(p.number(0, "n_rows").unwrap(), 5000.0);
     let t = truth();
-    let treated = json_number(&t, "\"rows\"", "treated");
+    let treated = t["treated"].as_f64().unwrap();
     assert_eq!(p.number(0, "c0_mean").unwrap(), treated / 5000.0);
     assert_eq!(
         p.rows[0][p.names.iter().position(|n| n == "c1_min").unwrap()],
@@ -100,7 +83,9 @@ fn profile_and_cells_match_the_generator() {
     assert_eq!(c.rows.len(), 2);
     let mean = |r: usize| c.number(r, "sy").unwrap() / c.number(r, "n").unwrap();
     let naive = mean(1) - mean(0);
-    let want = json_number(&t, "\"spend_30d\"", "naive_difference");
+    let want = t["outcomes"]["spend_30d"]["naive_difference"]
+        .as_f64()
+        .unwrap();
     assert!(
         (naive - want).abs() < 0.01,
         "naive {naive} vs truth file {want}"

@@ -284,8 +284,7 @@ pub fn gram(
 ) -> Result<Pass, SqlError> {
     let mut t = Text::new();
     let rows = design_rows(&mut t, d, groups, terms, None)?;
-    let mut outer: Vec<String> = (0..groups.len()).map(|i| format!("k{i}")).collect();
-    outer.push("COUNT(*) AS n".into());
+    let mut outer = keys_and_count(groups);
     for i in 0..terms.len() {
         outer.push(format!("SUM(v{i}) AS s{i}"));
     }
@@ -310,6 +309,56 @@ pub fn gram(
     })
 }
 
+/// The factor `v_{i-1}` of the design `(1, v...)` at index `i`, as ` * v{i-1}` (empty for the
+/// intercept).
+fn factor(i: usize) -> String {
+    if i == 0 {
+        String::new()
+    } else {
+        format!(" * v{}", i - 1)
+    }
+}
+
+/// Group keys and the row count, the first outputs of every grouped pass.
+fn keys_and_count(groups: &[String]) -> Vec<String> {
+    let mut out: Vec<String> = (0..groups.len()).map(|i| format!("k{i}")).collect();
+    out.push("COUNT(*) AS n".into());
+    out
+}
+
+/// `SUM({weight} w_i w_j) AS {alias}{i}_{j}` for i ≤ j over the design `w = (1, v_0..v_{k-1})`.
+fn weighted_products(out: &mut Vec<String>, weight: &str, alias: &str, k: usize) {
+    for i in 0..=k {
+        for j in i..=k {
+            out.push(format!(
+                "SUM({weight}{}{}) AS {alias}{i}_{j}",
+                factor(i),
+                factor(j)
+            ));
+        }
+    }
+}
+
+/// Design rows with the outcome and the linear predictor `c_0 + Σ c_i v_i` of the inlined
+/// coefficients (intercept first): the shared start of passes evaluated at a current fit.
+fn rows_at_fit(
+    t: &mut Text,
+    d: &dyn Dialect,
+    groups: &[String],
+    terms: &[DesignTerm],
+    outcome: &str,
+    coef: &[f64],
+) -> Result<(String, String), SqlError> {
+    assert_eq!(
+        coef.len(),
+        terms.len() + 1,
+        "one coefficient per term plus the intercept"
+    );
+    let rows = design_rows(t, d, groups, terms, Some(outcome))?;
+    let linear = linear_predictor(t, coef)?;
+    Ok((rows, linear))
+}
+
 /// One Newton step of a logistic regression of the 0/1 column `outcome` on the design terms,
 /// with the current coefficients `coef` (intercept first, on the centred, scaled terms) inlined
 /// as literals. Per group: `n`; the score `u{i} = Σ v_i (y - p)`; the information
@@ -325,31 +374,13 @@ pub fn logistic_step(
     outcome: &str,
     coef: &[f64],
 ) -> Result<Pass, SqlError> {
-    assert_eq!(
-        coef.len(),
-        terms.len() + 1,
-        "one coefficient per term plus the intercept"
-    );
     let mut t = Text::new();
-    let rows = design_rows(&mut t, d, groups, terms, Some(outcome))?;
-    let eta = linear_predictor(&mut t, coef)?;
-    let v = |i: usize| {
-        if i == 0 {
-            String::new()
-        } else {
-            format!(" * v{}", i - 1)
-        }
-    };
-    let mut outer: Vec<String> = (0..groups.len()).map(|i| format!("k{i}")).collect();
-    outer.push("COUNT(*) AS n".into());
+    let (rows, eta) = rows_at_fit(&mut t, d, groups, terms, outcome, coef)?;
+    let mut outer = keys_and_count(groups);
     for i in 0..=terms.len() {
-        outer.push(format!("SUM((y - p){}) AS u{i}", v(i)));
+        outer.push(format!("SUM((y - p){}) AS u{i}", factor(i)));
     }
-    for i in 0..=terms.len() {
-        for j in i..=terms.len() {
-            outer.push(format!("SUM(p * (1.0 - p){}{}) AS h{i}_{j}", v(i), v(j)));
-        }
-    }
+    weighted_products(&mut outer, "p * (1.0 - p)", "h", terms.len());
     outer.push("SUM(y * eta - CASE WHEN eta > 0 THEN eta + LN(1.0 + EXP(-eta)) ELSE LN(1.0 + EXP(eta)) END) AS loglik".into());
     outer.push("MIN(p) AS min_p".into());
     outer.push("MAX(p) AS max_p".into());
@@ -381,28 +412,10 @@ pub fn residual_moments(
     outcome: &str,
     coef: &[f64],
 ) -> Result<Pass, SqlError> {
-    assert_eq!(
-        coef.len(),
-        terms.len() + 1,
-        "one coefficient per term plus the intercept"
-    );
     let mut t = Text::new();
-    let rows = design_rows(&mut t, d, groups, terms, Some(outcome))?;
-    let fitted = linear_predictor(&mut t, coef)?;
-    let w = |i: usize| {
-        if i == 0 {
-            String::new()
-        } else {
-            format!(" * v{}", i - 1)
-        }
-    };
-    let mut outer: Vec<String> = (0..groups.len()).map(|i| format!("k{i}")).collect();
-    outer.push("COUNT(*) AS n".into());
-    for i in 0..=terms.len() {
-        for j in i..=terms.len() {
-            outer.push(format!("SUM(e * e{}{}) AS r{i}_{j}", w(i), w(j)));
-        }
-    }
+    let (rows, fitted) = rows_at_fit(&mut t, d, groups, terms, outcome, coef)?;
+    let mut outer = keys_and_count(groups);
+    weighted_products(&mut outer, "e * e", "r", terms.len());
     t.sql = format!(
         "SELECT {} FROM (SELECT *, y - ({fitted}) AS e FROM ({rows}) AS rows_) AS residuals_{}",
         outer.join(", "),
