@@ -14,6 +14,7 @@
 mod duck;
 
 pub use duck::{DuckDbEngine, MEMORY};
+pub use upshot_sql::{Aggregates, Cell};
 use upshot_sql::{Dialect, Pass, Source};
 
 /// An error from the database, with the pass that failed.
@@ -36,64 +37,8 @@ pub enum EngineError {
         message: String,
     },
     /// A result value of an unexpected type.
-    #[error("the {pass} pass returned {found} for `{column}`, expected {expected}")]
-    Type {
-        /// Pass name.
-        pass: String,
-        /// Output column.
-        column: String,
-        /// What was found.
-        found: String,
-        /// What was expected.
-        expected: &'static str,
-    },
-}
-
-/// One value of a pass result.
-#[derive(Clone, Debug, PartialEq)]
-pub enum Cell {
-    /// SQL NULL.
-    Null,
-    /// A number (integers are converted).
-    Number(f64),
-    /// Text, or any other type rendered as text.
-    Text(String),
-}
-
-/// The few rows a pass returns. Invariant: every row has one cell per name.
-#[derive(Clone, Debug, PartialEq)]
-pub struct Aggregates {
-    /// The pass name, for messages.
-    pub pass: String,
-    /// Output column names.
-    pub names: Vec<String>,
-    /// Rows.
-    pub rows: Vec<Vec<Cell>>,
-}
-
-impl Aggregates {
-    /// The number in column `name` of row `row`; NULL (an empty group's sum) is an error.
-    pub fn number(&self, row: usize, name: &str) -> Result<f64, EngineError> {
-        let i = self
-            .names
-            .iter()
-            .position(|n| n == name)
-            .ok_or_else(|| EngineError::Type {
-                pass: self.pass.clone(),
-                column: name.to_string(),
-                found: "no such column".into(),
-                expected: "a number",
-            })?;
-        match &self.rows[row][i] {
-            Cell::Number(x) => Ok(*x),
-            other => Err(EngineError::Type {
-                pass: self.pass.clone(),
-                column: name.to_string(),
-                found: format!("{other:?}"),
-                expected: "a number",
-            }),
-        }
-    }
+    #[error(transparent)]
+    Result(#[from] upshot_sql::ResultError),
 }
 
 /// A column of a source, as the engine reports it.

@@ -15,16 +15,24 @@
 //! This crate does no I/O: it runs no query and reads no file.
 #![deny(missing_docs)]
 
+mod design;
 mod dialect;
 mod error;
 mod pass;
+mod result;
 mod source;
 mod template;
 
+pub use design::{
+    augmented_sums, design_gram, design_residuals, fold_of, levels, logistic_fits,
+    partial_out_sums, weighting_sums, Design, Fold, Key, KeyValue, Model, Models, Selector, Target,
+    Variants, FOLD_PRIME,
+};
 pub use dialect::{dialect_by_name, Dialect, DuckDb, Postgres, DIALECTS};
 pub use error::SqlError;
 pub use pass::{
     cells, gram, logistic_step, profile, residual_moments, schema_probe, DesignTerm, Pass,
     ProfileColumn,
 };
+pub use result::{Aggregates, Cell, ResultError};
 pub use source::{parse_filter, Source};

@@ -106,16 +106,28 @@ pub(crate) fn query(
 
 /// Replaces the relation `__src` anywhere in the query's FROM clauses.
 fn place_source(q: &mut Query, source: &Source, d: &dyn Dialect) {
-    if let SetExpr::Select(s) = q.body.as_mut() {
-        for twj in &mut s.from {
-            match &mut twj.relation {
-                TableFactor::Table { name, alias, .. } if name.to_string() == "__src" => {
-                    let alias = alias.take();
-                    twj.relation = source.relation(d, alias);
+    place_in_body(q.body.as_mut(), source, d);
+}
+
+fn place_in_body(body: &mut SetExpr, source: &Source, d: &dyn Dialect) {
+    match body {
+        SetExpr::Select(s) => {
+            for twj in &mut s.from {
+                match &mut twj.relation {
+                    TableFactor::Table { name, alias, .. } if name.to_string() == "__src" => {
+                        let alias = alias.take();
+                        twj.relation = source.relation(d, alias);
+                    }
+                    TableFactor::Derived { subquery, .. } => place_source(subquery, source, d),
+                    _ => {}
                 }
-                TableFactor::Derived { subquery, .. } => place_source(subquery, source, d),
-                _ => {}
             }
         }
+        SetExpr::SetOperation { left, right, .. } => {
+            place_in_body(left, source, d);
+            place_in_body(right, source, d);
+        }
+        SetExpr::Query(q) => place_source(q, source, d),
+        _ => {}
     }
 }

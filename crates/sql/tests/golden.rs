@@ -8,9 +8,131 @@
 use sqlparser::parser::Parser;
 use std::path::PathBuf;
 use upshot_sql::{
-    cells, dialect_by_name, gram, logistic_step, parse_filter, profile, residual_moments,
-    DesignTerm, Dialect, Pass, ProfileColumn, Source, SqlError, DIALECTS,
+    augmented_sums, cells, dialect_by_name, gram, levels, logistic_fits, logistic_step,
+    parse_filter, partial_out_sums, profile, residual_moments, weighting_sums, Design, DesignTerm,
+    Dialect, Fold, Key, KeyValue, Model, Models, Pass, ProfileColumn, Selector, Source, SqlError,
+    Target, Variants, DIALECTS,
 };
+
+/// A cross-fitting design: segment and fold keys, one numeric and one squared term, the
+/// treatment and outcome as extras.
+fn fold_design() -> Design {
+    let x = DesignTerm::Numeric {
+        column: "prior orders".into(),
+        centre: 2.5,
+        scale: 1.5,
+    };
+    Design {
+        keys: vec![Key::Column("tenure_band".into())],
+        terms: vec![
+            x.clone(),
+            DesignTerm::Product {
+                factors: vec![x.clone(), x],
+                centre: 1.0,
+                scale: 1.0,
+            },
+        ],
+        extras: vec![("t", "voucher".into()), ("y", "spend_30d".into())],
+        fold: Some(Fold {
+            unit: "customer_id".into(),
+            folds: 2,
+        }),
+    }
+}
+
+/// Models per tenure band and fold.
+fn fold_models(offset: f64) -> Models {
+    let mut models = Vec::new();
+    for band in ["new", "1y"] {
+        for f in 0..2 {
+            models.push(Model {
+                key: vec![KeyValue::Text(band.into()), KeyValue::Number(f as f64)],
+                coef: vec![offset + f as f64, 0.5, -0.25],
+            });
+        }
+    }
+    Models {
+        selector: Selector {
+            keys: vec![0],
+            fold: true,
+        },
+        models,
+    }
+}
+
+/// The passes of estimators: levels, cross-fitted logistic step, weighting, augmented and
+/// partialled-out scores (file names carry a prefix to keep them apart from the basic passes).
+fn method_passes(d: &dyn Dialect) -> Vec<(String, Pass)> {
+    let src = Source::table("customers").unwrap();
+    let design = fold_design();
+    let mut one_model = design.clone();
+    one_model.fold = None;
+    vec![
+        (
+            "levels".into(),
+            levels(
+                d,
+                &src,
+                None,
+                &["zone".into(), "mail wave".into()],
+                &["zone".into(), "mail wave".into(), "voucher".into()],
+            )
+            .unwrap(),
+        ),
+        (
+            "logistic-crossfit".into(),
+            logistic_fits(
+                d,
+                &src,
+                None,
+                &design,
+                &fold_models(0.0),
+                Variants::Complement(2),
+            )
+            .unwrap(),
+        ),
+        (
+            "weights".into(),
+            weighting_sums(
+                d,
+                &src,
+                None,
+                &one_model,
+                &Models::single(vec![0.1, 0.2, 0.3]),
+                Target::Ate,
+                0.01,
+            )
+            .unwrap(),
+        ),
+        (
+            "augmented".into(),
+            augmented_sums(
+                d,
+                &src,
+                None,
+                &design,
+                &fold_models(0.0),
+                &fold_models(50.0),
+                &fold_models(40.0),
+                Target::Att,
+                0.01,
+            )
+            .unwrap(),
+        ),
+        (
+            "partial-out".into(),
+            partial_out_sums(
+                d,
+                &src,
+                None,
+                &design,
+                &fold_models(0.3),
+                &fold_models(60.0),
+            )
+            .unwrap(),
+        ),
+    ]
+}
 
 fn golden_dir() -> PathBuf {
     PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("../../sql/golden")
@@ -114,9 +236,12 @@ fn passes(d: &dyn Dialect) -> Vec<Pass> {
 fn golden_plans_render_and_round_trip() {
     let bless = std::env::var_os("UPSHOT_BLESS").is_some();
     for d in DIALECTS {
-        for p in passes(d) {
+        let mut all: Vec<(String, Pass)> =
+            passes(d).into_iter().map(|p| (p.name.clone(), p)).collect();
+        all.extend(method_passes(d));
+        for (name, p) in all {
             let sql = p.sql() + "\n";
-            let path = golden_dir().join(d.name()).join(format!("{}.sql", p.name));
+            let path = golden_dir().join(d.name()).join(format!("{name}.sql"));
             if bless {
                 std::fs::create_dir_all(path.parent().unwrap()).unwrap();
                 std::fs::write(&path, &sql).unwrap();

@@ -9,7 +9,8 @@ SELECT
   COUNT("select") AS c1_n,
   MIN("select") AS c1_min,
   MAX("select") AS c1_max,
-  approx_count_distinct("select") AS c1_distinct
+  approx_count_distinct("select") AS c1_distinct,
+  SUM(CASE WHEN "spend 30d" IS NOT NULL AND "select" IS NOT NULL THEN 1 ELSE 0 END) AS n_complete
 FROM
   "main"."order lines" AS src
 WHERE

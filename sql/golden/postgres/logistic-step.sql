@@ -1,15 +1,15 @@
 SELECT
   COUNT(*) AS n,
-  SUM((y - p)) AS u0,
-  SUM((y - p) * v0) AS u1,
-  SUM((y - p) * v1) AS u2,
+  SUM((t - p)) AS u0,
+  SUM((t - p) * v0) AS u1,
+  SUM((t - p) * v1) AS u2,
   SUM(p * (1.0 - p)) AS h0_0,
   SUM(p * (1.0 - p) * v0) AS h0_1,
   SUM(p * (1.0 - p) * v1) AS h0_2,
   SUM(p * (1.0 - p) * v0 * v0) AS h1_1,
   SUM(p * (1.0 - p) * v0 * v1) AS h1_2,
   SUM(p * (1.0 - p) * v1 * v1) AS h2_2,
-  SUM(y * eta - CASE WHEN eta > 0 THEN eta + LN(1.0 + EXP(-eta)) ELSE LN(1.0 + EXP(eta)) END) AS loglik,
+  SUM(t * eta - CASE WHEN eta > 0 THEN eta + LN(1.0 + EXP(-eta)) ELSE LN(1.0 + EXP(eta)) END) AS loglik,
   MIN(p) AS min_p,
   MAX(p) AS max_p
 FROM
@@ -32,7 +32,7 @@ FROM
             SELECT
               (CAST("prior_orders" AS DOUBLE PRECISION) - 2.65) / 1.7 AS v0,
               (CASE WHEN CAST("zone" AS VARCHAR) = 'Old Town' THEN 1.0 ELSE 0.0 END - 0.17) / 0.375 AS v1,
-              CAST("voucher" AS DOUBLE PRECISION) AS y
+              CAST("voucher" AS DOUBLE PRECISION) AS t
             FROM
               "main"."order lines" AS src
             WHERE

@@ -1,0 +1,781 @@
+//! Passes over a design with per-group fitted models: the building blocks of estimators that
+//! group by segment, treatment arm and cross-fitting fold, and evaluate models whose
+//! coefficients are inlined as literals and selected per row with `CASE`.
+
+use crate::dialect::Dialect;
+use crate::error::SqlError;
+use crate::pass::{factor, not_null, DesignTerm, Pass, Text};
+use crate::source::Source;
+use crate::template::{self, Bind};
+use sqlparser::ast::Expr;
+
+/// The modulus of the fold hash: the Mersenne prime 2³¹ − 1, so every product below stays
+/// under 2⁶² and fits a signed 64-bit integer in any SQL engine.
+pub const FOLD_PRIME: i64 = 2_147_483_647;
+
+/// The fold of an integer unit key, exactly as the SQL of [`Fold`] computes it: a non-linear
+/// arithmetic hash (multiply, square, multiply-add, all modulo 2³¹ − 1), then modulo `folds`.
+/// Portable: only `%`, `*` and `+` on 64-bit integers.
+pub fn fold_of(key: i64, folds: u32) -> u32 {
+    let p = FOLD_PRIME;
+    let a = ((key % p) + p) % p;
+    let h1 = (a * 48_271 + 11) % p;
+    let h2 = (h1 * h1) % p;
+    let h3 = (h2 * 16_807 + h1) % p;
+    (h3 % i64::from(folds)) as u32
+}
+
+/// Cross-fitting folds from a hash of an integer unit key.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct Fold {
+    /// The unit key column (integer).
+    pub unit: String,
+    /// Number of folds (≥ 1).
+    pub folds: u32,
+}
+
+/// A group key of a design pass.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub enum Key {
+    /// A column's value.
+    Column(String),
+    /// The row's fold (the design must have a [`Fold`]).
+    Fold,
+}
+
+/// A design: group keys (`k0`, `k1`, ... in the pass), centred and scaled terms (`v0`, ...),
+/// extra float columns under aliases of ours (`t`, `y`), and an optional fold (`f`).
+#[derive(Clone, Debug, PartialEq)]
+pub struct Design {
+    /// Group keys.
+    pub keys: Vec<Key>,
+    /// Terms.
+    pub terms: Vec<DesignTerm>,
+    /// `(alias, column)`: the column cast to a float under the alias.
+    pub extras: Vec<(&'static str, String)>,
+    /// Cross-fitting folds.
+    pub fold: Option<Fold>,
+}
+
+/// A group key value, as a pass returned it.
+#[derive(Clone, Debug, PartialEq)]
+pub enum KeyValue {
+    /// A number.
+    Number(f64),
+    /// Text.
+    Text(String),
+}
+
+impl std::fmt::Display for KeyValue {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            KeyValue::Number(x) if x.fract() == 0.0 && x.abs() < 1e15 => write!(f, "{}", *x as i64),
+            KeyValue::Number(x) => write!(f, "{x}"),
+            KeyValue::Text(s) => f.write_str(s),
+        }
+    }
+}
+
+/// What selects a model for a row: group key values and, optionally, the row's fold.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Selector {
+    /// Indices into the design's keys whose values a model is chosen by.
+    pub keys: Vec<usize>,
+    /// Whether the row's fold also chooses the model (its last key value is then the fold).
+    pub fold: bool,
+}
+
+impl Selector {
+    /// No selection: one model for all rows.
+    pub fn single() -> Selector {
+        Selector {
+            keys: vec![],
+            fold: false,
+        }
+    }
+}
+
+/// One fitted linear model: the selector values it applies to and its coefficients on the
+/// design `(1, v0, v1, ...)` (intercept first).
+#[derive(Clone, Debug, PartialEq)]
+pub struct Model {
+    /// Values of the selector's keys (then the fold, if the selector uses it).
+    pub key: Vec<KeyValue>,
+    /// Coefficients, intercept first.
+    pub coef: Vec<f64>,
+}
+
+/// A family of models and how rows choose among them.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Models {
+    /// How a row picks its model.
+    pub selector: Selector,
+    /// The models.
+    pub models: Vec<Model>,
+}
+
+impl Models {
+    /// One model for every row.
+    pub fn single(coef: Vec<f64>) -> Models {
+        Models {
+            selector: Selector::single(),
+            models: vec![Model { key: vec![], coef }],
+        }
+    }
+}
+
+/// The SQL expression of one term, centred and scaled, reading the source's columns.
+pub(crate) fn term_sql(
+    t: &mut Text,
+    d: &dyn Dialect,
+    term: &DesignTerm,
+) -> Result<String, SqlError> {
+    let f = d.float_type();
+    let (centre, scale) = term.centre_scale();
+    if !(scale.is_finite() && scale > 0.0) {
+        return Err(SqlError::BadScale {
+            column: term.column().to_string(),
+            scale,
+        });
+    }
+    template::number(centre, &format!("the centre of `{}`", term.column()))?;
+    let raw = match term {
+        DesignTerm::Numeric { column, .. } => {
+            let c = t.bind(Bind::Column(column.clone()));
+            format!("CAST({c} AS {f})")
+        }
+        DesignTerm::Level { column, level, .. } => {
+            let c = t.bind(Bind::Column(column.clone()));
+            let l = t.bind(Bind::Text(level.clone()));
+            format!("CASE WHEN CAST({c} AS VARCHAR) = {l} THEN 1.0 ELSE 0.0 END")
+        }
+        DesignTerm::Product { factors, .. } => {
+            let parts = factors
+                .iter()
+                .map(|x| term_sql(t, d, x).map(|s| format!("({s})")))
+                .collect::<Result<Vec<_>, _>>()?;
+            parts.join(" * ")
+        }
+    };
+    let m = t.bind(Bind::Number(centre));
+    let s = t.bind(Bind::Number(scale));
+    Ok(format!("({raw} - {m}) / {s}"))
+}
+
+/// The fold expression of an integer unit key (see [`fold_of`]).
+fn fold_sql(t: &mut Text, fold: &Fold) -> String {
+    let u = t.bind(Bind::Column(fold.unit.clone()));
+    let p = FOLD_PRIME;
+    let a = format!("((CAST({u} AS BIGINT) % {p}) + {p}) % {p}");
+    let h1 = format!("(({a}) * 48271 + 11) % {p}");
+    let h2 = format!("(({h1}) * ({h1})) % {p}");
+    let h3 = format!("(({h2}) * 16807 + ({h1})) % {p}");
+    format!("({h3}) % {}", fold.folds)
+}
+
+impl Design {
+    fn columns(&self) -> Vec<String> {
+        let mut used: Vec<String> = Vec::new();
+        let mut add = |c: &str| {
+            if !used.iter().any(|u| u == c) {
+                used.push(c.to_string());
+            }
+        };
+        for k in &self.keys {
+            if let Key::Column(c) = k {
+                add(c);
+            }
+        }
+        fn walk(term: &DesignTerm, add: &mut dyn FnMut(&str)) {
+            match term {
+                DesignTerm::Product { factors, .. } => factors.iter().for_each(|f| walk(f, add)),
+                other => add(other.column()),
+            }
+        }
+        for term in &self.terms {
+            walk(term, &mut add);
+        }
+        for (_, c) in &self.extras {
+            add(c);
+        }
+        if let Some(f) = &self.fold {
+            add(&f.unit);
+        }
+        used
+    }
+
+    /// The derived table of design rows; NULLs in any used column excluded.
+    fn rows(&self, t: &mut Text, d: &dyn Dialect) -> Result<String, SqlError> {
+        let f = d.float_type();
+        let mut items = Vec::new();
+        for (i, k) in self.keys.iter().enumerate() {
+            match k {
+                Key::Column(c) => {
+                    let p = t.bind(Bind::Column(c.clone()));
+                    items.push(format!("{p} AS k{i}"));
+                }
+                Key::Fold => {
+                    let fold = self
+                        .fold
+                        .as_ref()
+                        .expect("a fold key needs the design's fold");
+                    items.push(format!("{} AS k{i}", fold_sql(t, fold)));
+                }
+            }
+        }
+        if let Some(fold) = &self.fold {
+            items.push(format!("{} AS f", fold_sql(t, fold)));
+        }
+        for (i, term) in self.terms.iter().enumerate() {
+            items.push(format!("{} AS v{i}", term_sql(t, d, term)?));
+        }
+        for (alias, c) in &self.extras {
+            let p = t.bind(Bind::Column(c.clone()));
+            items.push(format!("CAST({p} AS {f}) AS {alias}"));
+        }
+        if items.is_empty() {
+            items.push("1 AS one".into());
+        }
+        let w = not_null(t, &self.columns());
+        Ok(format!(
+            "SELECT {} FROM __src AS src WHERE {w}",
+            items.join(", ")
+        ))
+    }
+
+    fn group_tail(&self) -> String {
+        if self.keys.is_empty() {
+            String::new()
+        } else {
+            let keys: Vec<String> = (0..self.keys.len()).map(|i| format!("k{i}")).collect();
+            format!(" GROUP BY {k} ORDER BY {k}", k = keys.join(", "))
+        }
+    }
+
+    fn keys_and_count(&self) -> Vec<String> {
+        let mut out: Vec<String> = (0..self.keys.len()).map(|i| format!("k{i}")).collect();
+        out.push("COUNT(*) AS n".into());
+        out
+    }
+
+    fn per(&self) -> String {
+        if self.keys.is_empty() {
+            return String::new();
+        }
+        let names: Vec<String> = self
+            .keys
+            .iter()
+            .map(|k| match k {
+                Key::Column(c) => c.clone(),
+                Key::Fold => "fold".into(),
+            })
+            .collect();
+        format!(" per ({})", names.join(", "))
+    }
+}
+
+fn linear(t: &mut Text, coef: &[f64], terms: usize) -> Result<String, SqlError> {
+    assert_eq!(
+        coef.len(),
+        terms + 1,
+        "one coefficient per term plus the intercept"
+    );
+    for (i, c) in coef.iter().enumerate() {
+        template::number(*c, &format!("coefficient {i}"))?;
+    }
+    let mut out = t.bind(Bind::Number(coef[0]));
+    for (i, c) in coef[1..].iter().enumerate() {
+        let b = t.bind(Bind::Number(*c));
+        out.push_str(&format!(" + {b} * v{i}"));
+    }
+    Ok(out)
+}
+
+fn key_literal(t: &mut Text, v: &KeyValue) -> Result<String, SqlError> {
+    Ok(match v {
+        KeyValue::Number(x) => {
+            template::number(*x, "a group key")?;
+            t.bind(Bind::Number(*x))
+        }
+        KeyValue::Text(s) => t.bind(Bind::Text(s.clone())),
+    })
+}
+
+/// The linear predictor of each row's model: `CASE WHEN k0 = .. AND f = .. THEN c0 + c1 * v0
+/// ... END`, or the plain predictor when there is one unselected model.
+fn predictor(t: &mut Text, models: &Models, terms: usize) -> Result<String, SqlError> {
+    let sel = &models.selector;
+    if sel.keys.is_empty() && !sel.fold {
+        let m = models.models.first().expect("at least one model");
+        return linear(t, &m.coef, terms);
+    }
+    let mut out = String::from("CASE");
+    for m in &models.models {
+        let mut conds = Vec::new();
+        for (pos, &k) in sel.keys.iter().enumerate() {
+            conds.push(format!("k{k} = {}", key_literal(t, &m.key[pos])?));
+        }
+        if sel.fold {
+            conds.push(format!("f = {}", key_literal(t, &m.key[sel.keys.len()])?));
+        }
+        out.push_str(&format!(
+            " WHEN {} THEN {}",
+            conds.join(" AND "),
+            linear(t, &m.coef, terms)?
+        ));
+    }
+    out.push_str(" END");
+    Ok(out)
+}
+
+/// The overflow-free logistic function of `eta`.
+const SIGMOID: &str =
+    "CASE WHEN eta >= 0 THEN 1.0 / (1.0 + EXP(-eta)) ELSE EXP(eta) / (1.0 + EXP(eta)) END";
+
+/// The centred Gram pass of a design: per group `n`, `s{i} = Σ v_i`, `g{i}_{j} = Σ v_i v_j`.
+pub fn design_gram(
+    d: &dyn Dialect,
+    source: &Source,
+    filter: Option<&Expr>,
+    design: &Design,
+) -> Result<Pass, SqlError> {
+    let mut t = Text::new();
+    let rows = design.rows(&mut t, d)?;
+    let k = design.terms.len();
+    let mut outer = design.keys_and_count();
+    for i in 0..k {
+        outer.push(format!("SUM(v{i}) AS s{i}"));
+    }
+    for i in 0..k {
+        for j in i..k {
+            outer.push(format!("SUM(v{i} * v{j}) AS g{i}_{j}"));
+        }
+    }
+    t.sql = format!(
+        "SELECT {} FROM ({rows}) AS rows_{}",
+        outer.join(", "),
+        design.group_tail()
+    );
+    Ok(Pass {
+        name: "gram".into(),
+        purpose: format!("centred Gram matrix of {k} terms{}", design.per()),
+        query: template::query(d, &t.sql, &t.binds, source, filter)?,
+    })
+}
+
+/// How many logistic fits a pass evaluates per group.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Variants {
+    /// One fit over all the group's rows; outputs unprefixed (`u0`, `h0_0`, `loglik`, ...).
+    Single,
+    /// Cross-fitting: fit `m` uses the rows whose fold is not `m`, for `m` in `0..folds`;
+    /// outputs prefixed `m{m}_` (`m0_u0`, ...). The models' selector must end with the fold,
+    /// whose value then names the held-out fold.
+    Complement(u32),
+}
+
+/// One Newton step of logistic regressions of the 0/1 extra `t` on the design terms, with each
+/// model's coefficients inlined. Per group and variant: `u{i} = Σ w_i (t - p)`,
+/// `h{i}_{j} = Σ p (1 - p) w_i w_j` (i ≤ j) for `w = (1, v...)`, `loglik`, `min_p`, `max_p`;
+/// for [`Variants::Complement`] the sums are prefixed `m{m}_` and restricted to `f <> m`.
+pub fn logistic_fits(
+    d: &dyn Dialect,
+    source: &Source,
+    filter: Option<&Expr>,
+    design: &Design,
+    models: &Models,
+    variants: Variants,
+) -> Result<Pass, SqlError> {
+    let mut t = Text::new();
+    let rows = design.rows(&mut t, d)?;
+    let k = design.terms.len();
+    let mut outer = design.keys_and_count();
+    let mut etas = Vec::new();
+    let list: Vec<(String, Option<u32>)> = match variants {
+        Variants::Single => {
+            etas.push(format!("{} AS eta", predictor(&mut t, models, k)?));
+            vec![(String::new(), None)]
+        }
+        Variants::Complement(folds) => {
+            let sel = &models.selector;
+            assert!(
+                sel.fold,
+                "complement fits select their model by the held-out fold"
+            );
+            for m in 0..folds {
+                let own = Models {
+                    selector: Selector {
+                        keys: sel.keys.clone(),
+                        fold: false,
+                    },
+                    models: models
+                        .models
+                        .iter()
+                        .filter(|x| x.key.last() == Some(&KeyValue::Number(f64::from(m))))
+                        .map(|x| Model {
+                            key: x.key[..x.key.len() - 1].to_vec(),
+                            coef: x.coef.clone(),
+                        })
+                        .collect(),
+                };
+                etas.push(format!("{} AS eta{m}", predictor(&mut t, &own, k)?));
+            }
+            (0..folds).map(|m| (format!("m{m}_"), Some(m))).collect()
+        }
+    };
+    let mut probs = Vec::new();
+    for (pre, m) in &list {
+        let (eta, p) = match m {
+            None => ("eta".to_string(), "p".to_string()),
+            Some(m) => (format!("eta{m}"), format!("p{m}")),
+        };
+        probs.push(format!("{} AS {p}", SIGMOID.replace("eta", &eta)));
+        let keep = |e: &str| match m {
+            None => e.to_string(),
+            Some(m) => format!("CASE WHEN f <> {m} THEN {e} ELSE 0.0 END"),
+        };
+        let only = |e: &str| match m {
+            None => e.to_string(),
+            Some(m) => format!("CASE WHEN f <> {m} THEN {e} END"),
+        };
+        for i in 0..=k {
+            outer.push(format!(
+                "SUM({}) AS {pre}u{i}",
+                keep(&format!("(t - {p}){}", factor(i)))
+            ));
+        }
+        for i in 0..=k {
+            for j in i..=k {
+                outer.push(format!(
+                    "SUM({}) AS {pre}h{i}_{j}",
+                    keep(&format!("{p} * (1.0 - {p}){}{}", factor(i), factor(j)))
+                ));
+            }
+        }
+        outer.push(format!(
+            "SUM({}) AS {pre}loglik",
+            keep(&format!("t * {eta} - CASE WHEN {eta} > 0 THEN {eta} + LN(1.0 + EXP(-{eta})) ELSE LN(1.0 + EXP({eta})) END"))
+        ));
+        outer.push(format!("MIN({}) AS {pre}min_p", only(&p)));
+        outer.push(format!("MAX({}) AS {pre}max_p", only(&p)));
+    }
+    t.sql = format!(
+        "SELECT {} FROM (SELECT *, {} FROM (SELECT *, {} FROM ({rows}) AS rows_) AS linear_) AS fitted_{}",
+        outer.join(", "),
+        probs.join(", "),
+        etas.join(", "),
+        design.group_tail()
+    );
+    let what = match variants {
+        Variants::Single => String::new(),
+        Variants::Complement(k) => format!(", {k} cross-fitting fits (each leaving one fold out)"),
+    };
+    Ok(Pass {
+        name: "logistic-step".into(),
+        purpose: format!(
+            "one Newton step of the propensity model: score, information and log-likelihood at the current coefficients{}{what}",
+            design.per()
+        ),
+        query: template::query(d, &t.sql, &t.binds, source, filter)?,
+    })
+}
+
+/// Residual moments of per-group linear models of the extra `y`: with each row's model
+/// inlined and `e = y - fitted`, per group `n` and `r{i}_{j} = Σ e² w_i w_j` for
+/// `w = (1, v...)` (the HC1 meat; `r0_0` is the residual sum of squares).
+pub fn design_residuals(
+    d: &dyn Dialect,
+    source: &Source,
+    filter: Option<&Expr>,
+    design: &Design,
+    models: &Models,
+) -> Result<Pass, SqlError> {
+    let mut t = Text::new();
+    let rows = design.rows(&mut t, d)?;
+    let k = design.terms.len();
+    let fitted = predictor(&mut t, models, k)?;
+    let mut outer = design.keys_and_count();
+    for i in 0..=k {
+        for j in i..=k {
+            outer.push(format!("SUM(e * e{}{}) AS r{i}_{j}", factor(i), factor(j)));
+        }
+    }
+    t.sql = format!(
+        "SELECT {} FROM (SELECT *, y - ({fitted}) AS e FROM ({rows}) AS rows_) AS residuals_{}",
+        outer.join(", "),
+        design.group_tail()
+    );
+    Ok(Pass {
+        name: "residuals".into(),
+        purpose: format!(
+            "residual moments of the outcome models at their fitted coefficients (HC1 meat){}",
+            design.per()
+        ),
+        query: template::query(d, &t.sql, &t.binds, source, filter)?,
+    })
+}
+
+/// Which average effect a weighting or augmented pass targets.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Target {
+    /// All units.
+    Ate,
+    /// Treated units.
+    Att,
+    /// Control units.
+    Atc,
+}
+
+/// Row expressions of the propensity `e` (fitted, clipped to `[clip, 1 - clip]`) and `e_raw`
+/// (fitted), with `inside` = 1 where no clipping happened.
+fn propensity_columns(
+    t: &mut Text,
+    models: &Models,
+    terms: usize,
+    clip: f64,
+) -> Result<(String, String), SqlError> {
+    let eta = predictor(t, models, terms)?;
+    template::number(clip, "the propensity clip")?;
+    let lo = t.bind(Bind::Number(clip));
+    let hi = t.bind(Bind::Number(1.0 - clip));
+    let lo2 = t.bind(Bind::Number(clip));
+    let hi2 = t.bind(Bind::Number(1.0 - clip));
+    Ok((
+        format!("{eta} AS eta"),
+        format!(
+            "{SIGMOID} AS e_raw, CASE WHEN ({SIGMOID}) < {lo} THEN {lo2} WHEN ({SIGMOID}) > {hi} THEN {hi2} ELSE {SIGMOID} END AS e, CASE WHEN ({SIGMOID}) < {lo} OR ({SIGMOID}) > {hi} THEN 0.0 ELSE 1.0 END AS inside"
+        ),
+    ))
+}
+
+/// The weighting pass (Hajek estimator with stacked-equation variance): per group, with the
+/// propensity model inlined, sums of the weighted outcome by arm, of squared weights, the
+/// derivative terms of the weighted means with respect to the propensity coefficients
+/// (`d1_{i}`, `d1y_{i}`, `d0_{i}`, `d0y_{i}`), the cross terms with the logistic score
+/// (`c1_{i}`, `c1y_{i}`, `c0_{i}`, `c0y_{i}`), the score's outer product `s{i}_{j}`, and
+/// counts of clipped rows by arm. `w = (1, v...)` as in [`logistic_fits`].
+pub fn weighting_sums(
+    d: &dyn Dialect,
+    source: &Source,
+    filter: Option<&Expr>,
+    design: &Design,
+    propensity: &Models,
+    target: Target,
+    clip: f64,
+) -> Result<Pass, SqlError> {
+    let mut t = Text::new();
+    let rows = design.rows(&mut t, d)?;
+    let k = design.terms.len();
+    let (eta, e) = propensity_columns(&mut t, propensity, k, clip)?;
+    // Weights of each arm and the derivative factor dw/deta = w'(e) e (1 - e), zero where clipped.
+    let (w1, w1d, w0, w0d) = match target {
+        Target::Ate => (
+            "1.0 / e",
+            "-(1.0 - e) / e * inside",
+            "1.0 / (1.0 - e)",
+            "e / (1.0 - e) * inside",
+        ),
+        Target::Att => ("1.0", "0.0", "e / (1.0 - e)", "e / (1.0 - e) * inside"),
+        Target::Atc => ("(1.0 - e) / e", "-(1.0 - e) / e * inside", "1.0", "0.0"),
+    };
+    let mut outer = design.keys_and_count();
+    let sums: Vec<(String, String)> = vec![
+        ("n1".into(), "t".into()),
+        ("a1".into(), "t * w1".into()),
+        ("b1".into(), "t * w1 * y".into()),
+        ("q1".into(), "t * w1 * w1".into()),
+        ("q1y".into(), "t * w1 * w1 * y".into()),
+        ("q1yy".into(), "t * w1 * w1 * y * y".into()),
+        ("a0".into(), "(1.0 - t) * w0".into()),
+        ("b0".into(), "(1.0 - t) * w0 * y".into()),
+        ("q0".into(), "(1.0 - t) * w0 * w0".into()),
+        ("q0y".into(), "(1.0 - t) * w0 * w0 * y".into()),
+        ("q0yy".into(), "(1.0 - t) * w0 * w0 * y * y".into()),
+        ("clipped1".into(), "t * (1.0 - inside)".into()),
+        ("clipped0".into(), "(1.0 - t) * (1.0 - inside)".into()),
+    ];
+    for (alias, e) in sums {
+        outer.push(format!("SUM({e}) AS {alias}"));
+    }
+    outer.push("MIN(e_raw) AS min_e".into());
+    outer.push("MAX(e_raw) AS max_e".into());
+    for i in 0..=k {
+        let w = factor(i);
+        outer.push(format!("SUM(t * w1d{w}) AS d1_{i}"));
+        outer.push(format!("SUM(t * w1d * y{w}) AS d1y_{i}"));
+        outer.push(format!("SUM((1.0 - t) * w0d{w}) AS d0_{i}"));
+        outer.push(format!("SUM((1.0 - t) * w0d * y{w}) AS d0y_{i}"));
+        outer.push(format!("SUM(t * w1 * (1.0 - e_raw){w}) AS c1_{i}"));
+        outer.push(format!("SUM(t * w1 * (1.0 - e_raw) * y{w}) AS c1y_{i}"));
+        outer.push(format!("SUM((1.0 - t) * w0 * e_raw{w}) AS c0_{i}"));
+        outer.push(format!("SUM((1.0 - t) * w0 * e_raw * y{w}) AS c0y_{i}"));
+    }
+    for i in 0..=k {
+        for j in i..=k {
+            outer.push(format!(
+                "SUM((t - e_raw) * (t - e_raw){}{}) AS s{i}_{j}",
+                factor(i),
+                factor(j)
+            ));
+        }
+    }
+    t.sql = format!(
+        "SELECT {} FROM (SELECT *, {w1} AS w1, {w1d} AS w1d, {w0} AS w0, {w0d} AS w0d FROM (SELECT *, {e} FROM (SELECT *, {eta} FROM ({rows}) AS rows_) AS linear_) AS propensity_) AS weighted_{}",
+        outer.join(", "),
+        design.group_tail()
+    );
+    Ok(Pass {
+        name: "weights".into(),
+        purpose: format!(
+            "inverse-probability-weighted outcome sums by arm, with the terms of their stacked-equation variance{}",
+            design.per()
+        ),
+        query: template::query(d, &t.sql, &t.binds, source, filter)?,
+    })
+}
+
+/// The augmented (doubly robust) score pass: with each row's cross-fitted propensity and arm
+/// outcome models inlined, per group `n`, `n1` (treated rows), `sn = Σ num`, `snn = Σ num²`,
+/// `sdn = Σ d·num`, `sd = Σ d` and clipped-row counts, where `num` is the row's score and
+/// `d` its weight in the target population (1, `t` or `1 - t`): the estimate is `sn / sd`.
+pub fn augmented_sums(
+    d: &dyn Dialect,
+    source: &Source,
+    filter: Option<&Expr>,
+    design: &Design,
+    propensity: &Models,
+    treated: &Models,
+    control: &Models,
+    target: Target,
+    clip: f64,
+) -> Result<Pass, SqlError> {
+    let mut t = Text::new();
+    let rows = design.rows(&mut t, d)?;
+    let k = design.terms.len();
+    let (eta, e) = propensity_columns(&mut t, propensity, k, clip)?;
+    let m1 = predictor(&mut t, treated, k)?;
+    let m0 = predictor(&mut t, control, k)?;
+    let (num, den) = match target {
+        Target::Ate => (
+            "m1 - m0 + t * (y - m1) / e - (1.0 - t) * (y - m0) / (1.0 - e)",
+            "1.0",
+        ),
+        Target::Att => ("t * (y - m0) - (1.0 - t) * e / (1.0 - e) * (y - m0)", "t"),
+        Target::Atc => (
+            "(1.0 - t) * (m1 - y) + t * (1.0 - e) / e * (y - m1)",
+            "(1.0 - t)",
+        ),
+    };
+    let mut outer = design.keys_and_count();
+    outer.push("SUM(t) AS n1".into());
+    outer.push("SUM(num) AS sn".into());
+    outer.push("SUM(num * num) AS snn".into());
+    outer.push("SUM(den * num) AS sdn".into());
+    outer.push("SUM(den) AS sd".into());
+    outer.push("SUM(t * (1.0 - inside)) AS clipped1".into());
+    outer.push("SUM((1.0 - t) * (1.0 - inside)) AS clipped0".into());
+    outer.push("MIN(e_raw) AS min_e".into());
+    outer.push("MAX(e_raw) AS max_e".into());
+    t.sql = format!(
+        "SELECT {} FROM (SELECT *, {num} AS num, {den} AS den FROM (SELECT *, {e}, {m1} AS m1, {m0} AS m0 FROM (SELECT *, {eta} FROM ({rows}) AS rows_) AS linear_) AS nuisance_) AS scores_{}",
+        outer.join(", "),
+        design.group_tail()
+    );
+    Ok(Pass {
+        name: "scores".into(),
+        purpose: format!(
+            "augmented inverse-probability-weighted scores from the cross-fitted propensity and outcome models: sum and sum of squares{}",
+            design.per()
+        ),
+        query: template::query(d, &t.sql, &t.binds, source, filter)?,
+    })
+}
+
+/// The partialled-out score pass: with each row's cross-fitted linear models of the treatment
+/// (`gt`) and the outcome (`gy`) inlined and residuals `rt = t - gt`, `ry = y - gy`, per group
+/// `n`, `stt = Σ rt²`, `sty = Σ rt ry`, `s22 = Σ rt² ry²`, `s31 = Σ rt³ ry`, `s40 = Σ rt⁴`.
+pub fn partial_out_sums(
+    d: &dyn Dialect,
+    source: &Source,
+    filter: Option<&Expr>,
+    design: &Design,
+    treatment: &Models,
+    outcome: &Models,
+) -> Result<Pass, SqlError> {
+    let mut t = Text::new();
+    let rows = design.rows(&mut t, d)?;
+    let k = design.terms.len();
+    let gt = predictor(&mut t, treatment, k)?;
+    let gy = predictor(&mut t, outcome, k)?;
+    let mut outer = design.keys_and_count();
+    for (alias, e) in [
+        ("stt", "rt * rt"),
+        ("sty", "rt * ry"),
+        ("s22", "rt * rt * ry * ry"),
+        ("s31", "rt * rt * rt * ry"),
+        ("s40", "rt * rt * rt * rt"),
+    ] {
+        outer.push(format!("SUM({e}) AS {alias}"));
+    }
+    t.sql = format!(
+        "SELECT {} FROM (SELECT *, t - ({gt}) AS rt, y - ({gy}) AS ry FROM ({rows}) AS rows_) AS residuals_{}",
+        outer.join(", "),
+        design.group_tail()
+    );
+    Ok(Pass {
+        name: "scores".into(),
+        purpose: format!(
+            "residuals of treatment and outcome on the covariates (cross-fitted models): their sums of products{}",
+            design.per()
+        ),
+        query: template::query(d, &t.sql, &t.binds, source, filter)?,
+    })
+}
+
+/// Levels of categorical columns: `which` (the column's index), `level` (as text) and `n`,
+/// ordered; rows with NULL in any of `complete` are excluded so the levels match the rows
+/// every later pass reads.
+pub fn levels(
+    d: &dyn Dialect,
+    source: &Source,
+    filter: Option<&Expr>,
+    columns: &[String],
+    complete: &[String],
+) -> Result<Pass, SqlError> {
+    let mut t = Text::new();
+    let mut branches = Vec::new();
+    for (i, c) in columns.iter().enumerate() {
+        let p = t.bind(Bind::Column(c.clone()));
+        let w = not_null(&mut t, complete);
+        branches.push(format!(
+            "SELECT {i} AS which, CAST({p} AS VARCHAR) AS level, COUNT(*) AS n FROM __src AS src WHERE {w} GROUP BY {p}"
+        ));
+    }
+    t.sql = format!(
+        "SELECT which, level, n FROM ({}) AS levels_ ORDER BY which, level",
+        branches.join(" UNION ALL ")
+    );
+    Ok(Pass {
+        name: "levels".into(),
+        purpose: format!("the levels of {} and their row counts", columns.join(", ")),
+        query: template::query(d, &t.sql, &t.binds, source, filter)?,
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn folds_are_balanced_and_stable() {
+        let mut count = [0u32; 5];
+        for id in 100_001..120_001 {
+            count[fold_of(id, 5) as usize] += 1;
+        }
+        for c in count {
+            assert!((3800..4200).contains(&c), "{count:?}");
+        }
+        assert_eq!(fold_of(-7, 5), fold_of(FOLD_PRIME - 7, 5));
+        assert_eq!(fold_of(12345, 1), 0);
+    }
+}
