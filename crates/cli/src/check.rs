@@ -109,14 +109,14 @@ fn check_columns(study: &Study) -> Result<(), Failure> {
     Ok(())
 }
 
-fn clean(v: Vec<String>) -> Vec<String> {
+pub(crate) fn clean(v: Vec<String>) -> Vec<String> {
     v.into_iter()
         .map(|s| s.trim().to_string())
         .filter(|s| !s.is_empty())
         .collect()
 }
 
-fn read_graph(value: &str) -> Result<(String, String), Failure> {
+pub(crate) fn read_graph(value: &str) -> Result<(String, String), Failure> {
     if value == "-" {
         let mut s = String::new();
         std::io::stdin()
@@ -144,14 +144,14 @@ fn read_graph(value: &str) -> Result<(String, String), Failure> {
 
 /// The route upshot would use for a question, and the set it would use.
 #[derive(Serialize, Clone, Debug)]
-struct Chosen {
-    route: Route,
+pub(crate) struct Chosen {
+    pub route: Route,
     /// Adjustment set, mediators, or instrument.
-    set: Vec<String>,
+    pub set: Vec<String>,
     /// Conditioning set of an instrument.
     #[serde(skip_serializing_if = "Vec::is_empty")]
-    given: Vec<String>,
-    why: String,
+    pub given: Vec<String>,
+    pub why: String,
 }
 
 #[derive(Serialize)]
@@ -212,7 +212,7 @@ fn usable(id: &Identification) -> Vec<Route> {
 }
 
 /// Decides the question's status from the routes and what it declares.
-fn assess(q: &Question, id: &Identification) -> (bool, Option<Chosen>, Vec<String>) {
+pub(crate) fn assess(q: &Question, id: &Identification) -> (bool, Option<Chosen>, Vec<String>) {
     let mut problems = Vec::new();
     // With `auto`, a declared set says which route the user means.
     let wanted = q.method.route().or(if q.adjust.is_some() {
@@ -408,7 +408,7 @@ fn route_word(r: Route) -> &'static str {
     }
 }
 
-fn assumptions(c: &Option<Chosen>, method: Method) -> Vec<String> {
+pub(crate) fn assumptions(c: &Option<Chosen>, method: Method) -> Vec<String> {
     let mut a = vec![
         "the diagram is complete: no unmeasured common cause beyond the latent variables it declares".to_string(),
         "consistency and no interference: each unit's outcome depends only on its own treatment, which is well defined".to_string(),
@@ -434,6 +434,30 @@ fn assumptions(c: &Option<Chosen>, method: Method) -> Vec<String> {
     a
 }
 
+/// Loads a study file, or builds one from --graph and the question flags; flags override.
+pub(crate) fn load_study(
+    study: Option<&Path>,
+    graph: Option<&str>,
+    overrides: QuestionInput,
+    verb: &str,
+) -> Result<Study, Failure> {
+    Ok(match (study, graph) {
+        (Some(_), Some(_)) => {
+            return Err(Failure::input("give either a study file or --graph, not both"));
+        }
+        (Some(path), None) => Study::load(path)?.with_overrides(&overrides)?,
+        (None, Some(g)) => {
+            let (text, label) = read_graph(g)?;
+            Study::from_parts(&text, &label, overrides)?
+        }
+        (None, None) => {
+            return Err(Failure::input(format!(
+                "nothing to {verb}: give a study file (upshot {verb} demo-data/voucher-backdoor.toml) or --graph with --treatment and --outcome"
+            )))
+        }
+    })
+}
+
 pub fn run(a: Args) -> Result<i32, Failure> {
     let json = match a.format.as_str() {
         "text" => false,
@@ -455,21 +479,7 @@ pub fn run(a: Args) -> Result<i32, Failure> {
         instruments: a.instruments.map(clean),
         instrument_given: clean(a.instrument_given),
     };
-    let study = match (&a.study, &a.graph) {
-        (Some(_), Some(_)) => {
-            return Err(Failure::input("give either a study file or --graph, not both"));
-        }
-        (Some(path), None) => Study::load(path)?.with_overrides(&overrides)?,
-        (None, Some(g)) => {
-            let (text, label) = read_graph(g)?;
-            Study::from_parts(&text, &label, overrides)?
-        }
-        (None, None) => {
-            return Err(Failure::input(
-                "nothing to check: give a study file (upshot check demo-data/voucher-backdoor.toml) or --graph with --treatment and --outcome",
-            ))
-        }
-    };
+    let study = load_study(a.study.as_deref(), a.graph.as_deref(), overrides, "check")?;
     if !a.offline {
         check_columns(&study)?;
     }

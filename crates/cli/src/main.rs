@@ -4,6 +4,7 @@
 
 mod check;
 mod demo;
+mod estimate;
 mod exit;
 
 use clap::{Parser, Subcommand};
@@ -20,6 +21,10 @@ struct Cli {
 enum Command {
     /// Decide whether each question's effect is identified, and by which routes.
     Check(Box<check::Args>),
+    /// List the SQL passes each question's estimate runs, in order, without running them.
+    Plan(Box<estimate::Args>),
+    /// Estimate each question's effect in the database and report it.
+    Run(Box<estimate::Args>),
     /// Write the demo scenario's rows and truth files.
     Demo(demo::Args),
 }
@@ -28,6 +33,8 @@ fn main() {
     let cli = Cli::parse();
     let result: Result<i32, Failure> = match cli.command {
         Command::Check(a) => check::run(*a),
+        Command::Plan(a) => estimate::run_plan(*a),
+        Command::Run(a) => estimate::run_run(*a),
         Command::Demo(a) => demo::run(a),
     };
     match result {

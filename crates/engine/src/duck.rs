@@ -1,6 +1,6 @@
 //! The embedded DuckDB engine.
 
-use crate::{Aggregates, Cell, Column, Engine, EngineError};
+use crate::{Aggregates, Cell, Column, Engine, EngineError, Param, Write};
 use duckdb::arrow::array::{Array, AsArray};
 use duckdb::arrow::compute::cast;
 use duckdb::arrow::datatypes::DataType;
@@ -46,6 +46,44 @@ impl DuckDbEngine {
                 pass: "setup".into(),
                 message: e.to_string(),
             })
+    }
+
+    /// Runs statements of upshot's own in one transaction: each statement once per row of
+    /// parameters (once without parameters when it has no rows). Either every statement takes
+    /// effect or none does.
+    pub fn write(&self, statements: &[Write]) -> Result<(), EngineError> {
+        let err = |e: duckdb::Error| EngineError::Query {
+            pass: "write".into(),
+            message: e.to_string(),
+        };
+        self.conn.execute_batch("BEGIN TRANSACTION").map_err(err)?;
+        let result = (|| {
+            for w in statements {
+                let mut stmt = self.conn.prepare(&w.sql)?;
+                if w.rows.is_empty() {
+                    stmt.execute([])?;
+                }
+                for row in &w.rows {
+                    let values: Vec<duckdb::types::Value> = row
+                        .iter()
+                        .map(|p| match p {
+                            Param::Null => duckdb::types::Value::Null,
+                            Param::Number(x) => duckdb::types::Value::Double(*x),
+                            Param::Text(t) => duckdb::types::Value::Text(t.clone()),
+                        })
+                        .collect();
+                    stmt.execute(duckdb::params_from_iter(values))?;
+                }
+            }
+            Ok::<(), duckdb::Error>(())
+        })();
+        match result {
+            Ok(()) => self.conn.execute_batch("COMMIT").map_err(err),
+            Err(e) => {
+                let _ = self.conn.execute_batch("ROLLBACK");
+                Err(err(e))
+            }
+        }
     }
 
     fn query(&self, name: &str, sql: &str) -> Result<Vec<RecordBatch>, EngineError> {
@@ -150,7 +188,8 @@ impl Engine for DuckDbEngine {
             .map(|f| Column {
                 name: f.name().clone(),
                 type_name: f.data_type().to_string(),
-                numeric: f.data_type().is_numeric(),
+                numeric: f.data_type().is_numeric() || matches!(f.data_type(), DataType::Boolean),
+                integer: f.data_type().is_integer(),
             })
             .collect())
     }

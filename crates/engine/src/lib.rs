@@ -48,8 +48,30 @@ pub struct Column {
     pub name: String,
     /// The engine's type name.
     pub type_name: String,
-    /// Whether the type is numeric.
+    /// Whether the type is numeric (booleans count, as 0/1).
     pub numeric: bool,
+    /// Whether the type is an integer.
+    pub integer: bool,
+}
+
+/// A parameter of a write statement.
+#[derive(Clone, Debug, PartialEq)]
+pub enum Param {
+    /// NULL.
+    Null,
+    /// A number.
+    Number(f64),
+    /// Text.
+    Text(String),
+}
+
+/// One statement of upshot's own and the rows of parameters it runs with.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Write {
+    /// The statement, with numbered parameters.
+    pub sql: String,
+    /// One execution per row.
+    pub rows: Vec<Vec<Param>>,
 }
 
 /// Runs passes.

@@ -18,7 +18,7 @@ mod logit;
 mod moments;
 mod ols;
 
-pub use logit::{logit, logit_sums_from_rows, Logit, LogitSums, NewtonOptions};
+pub use logit::{logit, logit_many, logit_sums_from_rows, Logit, LogitSums, NewtonOptions};
 pub use moments::Moments;
 pub use ols::{ols, residual_moments_from_rows, Ols};
 

@@ -39,6 +39,8 @@ pub struct Logit {
     pub iterations: usize,
     /// Smallest and largest fitted probability.
     pub p_range: (f64, f64),
+    /// The information matrix `Σ p (1 - p) v vᵀ` at the optimum.
+    pub information: DMatrix<f64>,
 }
 
 /// Options of the Newton driver.
@@ -73,73 +75,151 @@ pub fn logit<E, F>(
 where
     F: FnMut(&[f64]) -> Result<LogitSums, E>,
 {
+    let mut fits = logit_many(names, 1, |coefs| Ok(vec![pass(&coefs[0])?]), opts)?;
+    Ok(fits.pop().expect("one model"))
+}
+
+/// Where one model of [`logit_many`] stands.
+enum State {
+    /// Still iterating: current coefficients and their sums, the Newton step, its scale.
+    Running {
+        coef: Vec<f64>,
+        sums: LogitSums,
+        step: Vec<f64>,
+        scale: f64,
+        iteration: usize,
+    },
+    Done(Result<Logit, FitError>),
+}
+
+/// Fits `models` logistic regressions at once, one pass per iteration for all of them (the
+/// pass evaluates every model at its own coefficients: per segment, per cross-fitting fold).
+/// `pass(coefs)` returns the sums of each model at `coefs[m]`. Each model steps, halves its
+/// step and stops on its own; a model that has stopped keeps being evaluated at its final
+/// coefficients, which costs nothing extra (the pass runs anyway).
+pub fn logit_many<E, F>(
+    names: &[String],
+    models: usize,
+    mut pass: F,
+    opts: NewtonOptions,
+) -> Result<Vec<Result<Logit, FitError>>, E>
+where
+    F: FnMut(&[Vec<f64>]) -> Result<Vec<LogitSums>, E>,
+{
     let k = names.len();
-    let mut coef = vec![0.0; k];
-    let mut sums = pass(&coef)?;
-    for iteration in 1..=opts.max_iterations {
-        let step = match sums.information.clone().cholesky() {
-            Some(c) => c.solve(&sums.score),
-            None => {
-                return Ok(Err(FitError::Collinear {
-                    columns: names[1..].to_vec(),
-                    condition: f64::INFINITY,
-                }))
-            }
-        };
-        // Step halving keeps the likelihood from decreasing.
-        let mut scale = 1.0;
-        let mut next;
-        let mut next_sums;
-        loop {
-            next = coef
-                .iter()
-                .zip(step.iter())
-                .map(|(c, s)| c + scale * s)
-                .collect::<Vec<f64>>();
-            next_sums = pass(&next)?;
-            if next_sums.loglik >= sums.loglik - 1e-12 * sums.loglik.abs() || scale < 1e-6 {
-                break;
-            }
-            scale /= 2.0;
+    let start = vec![vec![0.0; k]; models];
+    let first = pass(&start)?;
+    let mut states: Vec<State> = first
+        .into_iter()
+        .map(|sums| newton_step(names, vec![0.0; k], sums, 0))
+        .collect();
+    loop {
+        if states.iter().all(|s| matches!(s, State::Done(_))) {
+            break;
         }
-        let converged = step
+        let trial: Vec<Vec<f64>> = states
             .iter()
-            .zip(&coef)
-            .all(|(s, c)| (scale * s).abs() <= opts.tolerance * (1.0 + c.abs()));
-        coef = next;
-        sums = next_sums;
-        let separated = coef[1..].iter().any(|c| c.abs() > opts.max_coefficient)
-            || sums.min_p < 1e-12
-            || sums.max_p > 1.0 - 1e-12;
-        if separated {
-            let mut cols: Vec<(f64, String)> = coef[1..]
-                .iter()
-                .zip(&names[1..])
-                .map(|(c, n)| (c.abs(), n.clone()))
-                .collect();
-            cols.sort_by(|a, b| b.0.total_cmp(&a.0));
-            return Ok(Err(FitError::Separation {
-                columns: cols.into_iter().take(3).map(|c| c.1).collect(),
-                p_range: (sums.min_p, sums.max_p),
-            }));
-        }
-        if converged {
-            let covariance = match sums.information.clone().cholesky() {
-                Some(c) => c.inverse(),
-                None => DMatrix::from_element(k, k, f64::NAN),
-            };
-            return Ok(Ok(Logit {
+            .map(|s| match s {
+                State::Running {
+                    coef, step, scale, ..
+                } => coef.iter().zip(step).map(|(c, d)| c + scale * d).collect(),
+                State::Done(Ok(f)) => f.coef.clone(),
+                State::Done(Err(_)) => vec![0.0; k],
+            })
+            .collect();
+        let results = pass(&trial)?;
+        for ((state, next), sums) in states.iter_mut().zip(trial).zip(results) {
+            let State::Running {
                 coef,
-                covariance,
-                loglik: sums.loglik,
-                iterations: iteration,
-                p_range: (sums.min_p, sums.max_p),
-            }));
+                sums: old,
+                step,
+                scale,
+                iteration,
+            } = state
+            else {
+                continue;
+            };
+            // Step halving keeps the likelihood from decreasing.
+            if sums.loglik < old.loglik - 1e-12 * old.loglik.abs() && *scale >= 1e-6 {
+                *scale /= 2.0;
+                continue;
+            }
+            let converged = step
+                .iter()
+                .zip(coef.iter())
+                .all(|(s, c)| (*scale * s).abs() <= opts.tolerance * (1.0 + c.abs()));
+            let iteration = *iteration + 1;
+            let separated = next[1..].iter().any(|c| c.abs() > opts.max_coefficient)
+                || sums.min_p < 1e-12
+                || sums.max_p > 1.0 - 1e-12;
+            *state = if separated {
+                let mut cols: Vec<(f64, String)> = next[1..]
+                    .iter()
+                    .zip(&names[1..])
+                    .map(|(c, n)| (c.abs(), n.clone()))
+                    .collect();
+                cols.sort_by(|a, b| b.0.total_cmp(&a.0));
+                State::Done(Err(FitError::Separation {
+                    columns: cols.into_iter().take(3).map(|c| c.1).collect(),
+                    p_range: (sums.min_p, sums.max_p),
+                }))
+            } else if converged {
+                let covariance = match sums.information.clone().cholesky() {
+                    Some(c) => c.inverse(),
+                    None => DMatrix::from_element(k, k, f64::NAN),
+                };
+                State::Done(Ok(Logit {
+                    coef: next,
+                    covariance,
+                    loglik: sums.loglik,
+                    iterations: iteration,
+                    p_range: (sums.min_p, sums.max_p),
+                    information: sums.information.clone(),
+                }))
+            } else if iteration >= opts.max_iterations {
+                State::Done(Err(FitError::NotConverged {
+                    iterations: opts.max_iterations,
+                }))
+            } else {
+                newton_step(names, next, sums, iteration)
+            };
         }
     }
-    Ok(Err(FitError::NotConverged {
-        iterations: opts.max_iterations,
-    }))
+    Ok(states
+        .into_iter()
+        .map(|s| match s {
+            State::Done(r) => r,
+            State::Running { .. } => unreachable!("loop ends when all are done"),
+        })
+        .collect())
+}
+
+/// The Newton step from `coef` with its sums, or the end of the model when the information
+/// matrix is singular.
+fn newton_step(names: &[String], coef: Vec<f64>, sums: LogitSums, iteration: usize) -> State {
+    match sums.information.clone().cholesky() {
+        Some(c) => {
+            let step = c.solve(&sums.score).iter().copied().collect();
+            State::Running {
+                coef,
+                sums,
+                step,
+                scale: 1.0,
+                iteration,
+            }
+        }
+        None => State::Done(Err(if sums.n == 0.0 {
+            FitError::TooFewRows {
+                n: 0.0,
+                p: names.len(),
+            }
+        } else {
+            FitError::Collinear {
+                columns: names[1..].to_vec(),
+                condition: f64::INFINITY,
+            }
+        })),
+    }
 }
 
 /// The sums of one logistic pass computed in memory from rows `[v_1, ..., v_k, y]` (already

@@ -101,6 +101,41 @@ impl Moments {
         Moments::from_upper(names, rows.len() as f64, centre, scale, sum, &upper)
     }
 
+    /// These moments minus `other`'s (same columns, centres and scales): the sums of the rows
+    /// in `self` but not in `other`, as cross-fitting uses ("all rows but fold k").
+    pub fn minus(&self, other: &Moments) -> Result<Moments, FitError> {
+        if self.names != other.names || self.centre != other.centre || self.scale != other.scale {
+            return Err(FitError::Shape(
+                "moments of different designs cannot be subtracted".into(),
+            ));
+        }
+        Ok(Moments {
+            names: self.names.clone(),
+            n: self.n - other.n,
+            centre: self.centre.clone(),
+            scale: self.scale.clone(),
+            sum: &self.sum - &other.sum,
+            gram: &self.gram - &other.gram,
+        })
+    }
+
+    /// These moments plus `other`'s (same design): the sums over both groups of rows.
+    pub fn plus(&self, other: &Moments) -> Result<Moments, FitError> {
+        if self.names != other.names || self.centre != other.centre || self.scale != other.scale {
+            return Err(FitError::Shape(
+                "moments of different designs cannot be added".into(),
+            ));
+        }
+        Ok(Moments {
+            names: self.names.clone(),
+            n: self.n + other.n,
+            centre: self.centre.clone(),
+            scale: self.scale.clone(),
+            sum: &self.sum + &other.sum,
+            gram: &self.gram + &other.gram,
+        })
+    }
+
     /// Mean of column `i` in original units.
     pub fn mean(&self, i: usize) -> f64 {
         self.centre[i] + self.scale[i] * self.sum[i] / self.n

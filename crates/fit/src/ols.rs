@@ -46,6 +46,17 @@ impl Ols {
     /// MacKinnon & White 1985), intercept first. `meat` is `Σ e² w wᵀ` over rows for
     /// `w = (1, v_x...)`, as a residual pass returns it.
     pub fn hc1(&self, m: &Moments, x: &[usize], meat: &DMatrix<f64>) -> Result<Vec<f64>, FitError> {
+        let cov = self.hc1_covariance(m, x, meat)?;
+        Ok((0..cov.nrows()).map(|i| cov[(i, i)].sqrt()).collect())
+    }
+
+    /// The HC1 covariance matrix of `(intercept, slopes...)` in original units; see [`Ols::hc1`].
+    pub fn hc1_covariance(
+        &self,
+        m: &Moments,
+        x: &[usize],
+        meat: &DMatrix<f64>,
+    ) -> Result<DMatrix<f64>, FitError> {
         let p = x.len() + 1;
         if meat.nrows() != p || meat.ncols() != p {
             return Err(FitError::Shape(format!(
@@ -77,8 +88,7 @@ impl Ols {
             a[(0, k + 1)] = -m.centre[i] / m.scale[i];
             a[(k + 1, k + 1)] = 1.0 / m.scale[i];
         }
-        let cov = &a * cov_c * a.transpose();
-        Ok((0..p).map(|i| cov[(i, i)].sqrt()).collect())
+        Ok(&a * cov_c * a.transpose())
     }
 }
 

@@ -20,6 +20,7 @@ mod dialect;
 mod error;
 mod pass;
 mod result;
+mod results;
 mod source;
 mod template;
 
@@ -35,4 +36,6 @@ pub use pass::{
     ProfileColumn,
 };
 pub use result::{Aggregates, Cell, ResultError};
-pub use source::{parse_filter, Source};
+pub use results::{results_schema_file, results_sql, ResultsSql, RESULT_COLUMNS};
+pub use source::{complete_cases, parse_filter, Source};
+pub use sqlparser::ast::Expr;

@@ -180,3 +180,24 @@ pub fn parse_filter(sql: &str, d: &dyn Dialect) -> Result<Expr, SqlError> {
     }
     Ok(e)
 }
+
+/// The filter of complete cases: `filter` (if any) and every column `IS NOT NULL`, so that all
+/// passes of an estimate read exactly the same rows.
+pub fn complete_cases(d: &dyn Dialect, filter: Option<&Expr>, columns: &[String]) -> Option<Expr> {
+    let mut out = filter.map(|f| Expr::Nested(Box::new(f.clone())));
+    for c in columns {
+        let test = Expr::IsNotNull(Box::new(Expr::Identifier(Ident::with_quote(
+            d.quote(),
+            c.clone(),
+        ))));
+        out = Some(match out {
+            None => test,
+            Some(e) => Expr::BinaryOp {
+                left: Box::new(e),
+                op: sqlparser::ast::BinaryOperator::And,
+                right: Box::new(test),
+            },
+        });
+    }
+    out
+}

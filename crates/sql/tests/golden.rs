@@ -371,3 +371,37 @@ fn bad_numbers_are_refused() {
     ));
     assert!(bad(0.0, 1.0).is_ok());
 }
+
+#[test]
+fn results_schema_file_is_current_and_statements_quote_the_name() {
+    let path = golden_dir().join("../results.sql");
+    let want = upshot_sql::results_schema_file();
+    if std::env::var_os("UPSHOT_BLESS").is_some() {
+        std::fs::write(&path, &want).unwrap();
+    }
+    assert_eq!(
+        std::fs::read_to_string(&path).unwrap(),
+        want,
+        "sql/results.sql is stale; rerun with UPSHOT_BLESS=1"
+    );
+    for d in DIALECTS {
+        let parsed = Parser::parse_sql(d.parser().as_ref(), &want).unwrap();
+        assert_eq!(parsed.len(), 1);
+        let s = upshot_sql::results_sql(d, "analytics.effect results").unwrap();
+        assert!(
+            s.create.contains("\"analytics\".\"effect results\""),
+            "{}",
+            s.create
+        );
+        assert!(s.insert.contains("CURRENT_TIMESTAMP"));
+    }
+    let d = dialect_by_name("duckdb").unwrap();
+    let evil = upshot_sql::results_sql(d, "x\"; DROP TABLE y; --").unwrap();
+    assert!(
+        evil.create
+            .starts_with("CREATE TABLE IF NOT EXISTS \"x\"\"; DROP TABLE y; --\""),
+        "{}",
+        evil.create
+    );
+    assert!(upshot_sql::results_sql(d, "a..b").is_err());
+}

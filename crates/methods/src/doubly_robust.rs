@@ -1,0 +1,376 @@
+//! `doubly-robust`: augmented inverse probability weighting (Robins, Rotnitzky & Zhao 1994)
+//! with K-fold cross-fitting (Chernozhukov et al. 2018). The nuisances are a logistic
+//! propensity and per-arm linear outcome models; the models used for the rows of fold k are
+//! fitted on every other fold. For the outcome models that costs no extra scan: one Gram pass
+//! grouped by fold gives each fold's sums, and "all but fold k" is the total minus fold k. The
+//! K propensity fits run side by side in the same Newton passes. The standard error comes
+//! from the influence function (the score's sample variance).
+
+use crate::combine::{by_segment, finish, keys, logit_sums, moments, segment, segment_label, Part};
+use crate::prepare::{needs_folds, Setup};
+use crate::regress::fit_arm;
+use crate::weight::{check_arms, param_names, propensity_error};
+use crate::{ask, Estimate, MethodError, Outcome, Runner};
+use upshot_fit::{logit_many, LogitSums, Moments, NewtonOptions};
+use upshot_sql::{
+    augmented_sums, design_gram, logistic_fits, Aggregates, Design, Fold, Key, KeyValue, Model,
+    Models, Pass, Selector, Target, Variants,
+};
+
+/// Folds actually used (1 when cross-fitting is off).
+pub(crate) fn folds(s: &Setup) -> u32 {
+    if needs_folds(s.spec) {
+        s.spec.folds
+    } else {
+        1
+    }
+}
+
+fn fold(s: &Setup) -> Option<Fold> {
+    needs_folds(s.spec).then(|| Fold {
+        unit: s.spec.unit.clone().expect("checked with the schema"),
+        folds: s.spec.folds,
+    })
+}
+
+/// The Gram design grouped by segment, fold (when cross-fitting) and, if `by_arm`, arm, over
+/// the covariates and then `last` terms.
+pub(crate) fn fold_gram_design(
+    s: &Setup,
+    by_arm: bool,
+    last: Vec<upshot_sql::DesignTerm>,
+) -> Design {
+    let spec = s.spec;
+    let mut keys: Vec<Key> = spec
+        .segments
+        .iter()
+        .map(|c| Key::Column(c.clone()))
+        .collect();
+    if needs_folds(spec) {
+        keys.push(Key::Fold);
+    }
+    if by_arm {
+        keys.push(Key::Column(spec.treatment.clone()));
+    }
+    let mut terms = s.terms.clone();
+    terms.extend(last);
+    Design {
+        keys,
+        terms,
+        extras: vec![],
+        fold: fold(s),
+    }
+}
+
+/// The row design for passes that evaluate fold-selected models: segment keys, the fold, the
+/// treatment `t` and outcome `y`.
+pub(crate) fn row_design(s: &Setup) -> Design {
+    let spec = s.spec;
+    Design {
+        keys: spec
+            .segments
+            .iter()
+            .map(|c| Key::Column(c.clone()))
+            .collect(),
+        terms: s.terms.clone(),
+        extras: vec![("t", spec.treatment.clone()), ("y", spec.outcome.clone())],
+        fold: fold(s),
+    }
+}
+
+/// Models chosen by segment and (when cross-fitting) the row's fold; `coef[i][j]` belongs to
+/// segment `i` and held-out fold `j`.
+pub(crate) fn fold_models(s: &Setup, segs: &[Vec<KeyValue>], coef: &[Vec<Vec<f64>>]) -> Models {
+    let nseg = s.spec.segments.len();
+    let crossfit = needs_folds(s.spec);
+    let mut models = Vec::new();
+    for (seg, per_fold) in segs.iter().zip(coef) {
+        for (j, c) in per_fold.iter().enumerate() {
+            let mut key = seg.clone();
+            if crossfit {
+                key.push(KeyValue::Number(j as f64));
+            }
+            models.push(Model {
+                key,
+                coef: c.clone(),
+            });
+        }
+    }
+    if nseg == 0 && !crossfit {
+        return Models::single(models.remove(0).coef);
+    }
+    Models {
+        selector: Selector {
+            keys: (0..nseg).collect(),
+            fold: crossfit,
+        },
+        models,
+    }
+}
+
+fn logistic_pass(s: &Setup, models: &Models) -> Result<Pass, MethodError> {
+    let spec = s.spec;
+    let variants = if needs_folds(spec) {
+        Variants::Complement(spec.folds)
+    } else {
+        Variants::Single
+    };
+    Ok(logistic_fits(
+        spec.dialect,
+        &spec.source,
+        s.filter.as_ref(),
+        &row_design(s),
+        models,
+        variants,
+    )?)
+}
+
+fn gram_pass(s: &Setup) -> Result<Pass, MethodError> {
+    let spec = s.spec;
+    Ok(design_gram(
+        spec.dialect,
+        &spec.source,
+        s.filter.as_ref(),
+        &fold_gram_design(s, true, vec![s.outcome_term.clone()]),
+    )?)
+}
+
+fn scores_pass(s: &Setup, e: &Models, m1: &Models, m0: &Models) -> Result<Pass, MethodError> {
+    let spec = s.spec;
+    Ok(augmented_sums(
+        spec.dialect,
+        &spec.source,
+        s.filter.as_ref(),
+        &row_design(s),
+        e,
+        m1,
+        m0,
+        spec.target,
+        spec.clip,
+    )?)
+}
+
+pub(crate) fn placeholder(s: &Setup) -> (Vec<Vec<KeyValue>>, Vec<Vec<Vec<f64>>>) {
+    let segs = crate::weight::placeholder_segments(s);
+    let k = folds(s) as usize;
+    let coef = vec![vec![vec![0.0; s.terms.len() + 1]; k]; segs.len()];
+    (segs, coef)
+}
+
+pub(crate) fn passes(s: &Setup) -> Result<Vec<Pass>, MethodError> {
+    let (segs, coef) = placeholder(s);
+    let m = fold_models(s, &segs, &coef);
+    Ok(vec![
+        gram_pass(s)?,
+        logistic_pass(s, &m)?,
+        scores_pass(s, &m, &m, &m)?,
+    ])
+}
+
+/// Per segment, per held-out fold: the moments of the rows outside that fold (all rows when
+/// cross-fitting is off), for each group value of the last key when `by_arm`.
+pub(crate) fn complement_moments(
+    s: &Setup,
+    g: &Aggregates,
+    names: &[String],
+    terms: &[upshot_sql::DesignTerm],
+    by_arm: bool,
+) -> Result<Vec<(Vec<KeyValue>, Vec<[Option<Moments>; 2]>)>, MethodError> {
+    let nseg = s.spec.segments.len();
+    let k = folds(s) as usize;
+    let crossfit = needs_folds(s.spec);
+    let mut out = Vec::new();
+    for (seg, rows) in by_segment(g, nseg)? {
+        // per fold, per arm
+        let mut fold_m: Vec<[Option<Moments>; 2]> = vec![[None, None]; k];
+        let mut total: [Option<Moments>; 2] = [None, None];
+        for row in rows {
+            let key = keys(
+                g,
+                row,
+                g.names.iter().filter(|n| n.starts_with('k')).count(),
+            )?;
+            let j = if crossfit {
+                match key[nseg] {
+                    KeyValue::Number(x) => x as usize,
+                    _ => 0,
+                }
+            } else {
+                0
+            };
+            let arm = if by_arm {
+                usize::from(key[key.len() - 1] == KeyValue::Number(1.0))
+            } else {
+                0
+            };
+            let m = moments(g, row, names, terms)?;
+            total[arm] = Some(match total[arm].take() {
+                None => m.clone(),
+                Some(t) => t.plus(&m).map_err(|e| MethodError::Engine(e.to_string()))?,
+            });
+            fold_m[j][arm] = Some(m);
+        }
+        let mut comp = Vec::new();
+        for f in fold_m.iter().take(k) {
+            let mut c: [Option<Moments>; 2] = [None, None];
+            for arm in 0..2 {
+                c[arm] = match (&total[arm], &f[arm], crossfit) {
+                    (Some(t), _, false) => Some(t.clone()),
+                    (Some(t), Some(x), true) => {
+                        let m = t.minus(x).map_err(|e| MethodError::Engine(e.to_string()))?;
+                        (m.n > 0.0).then_some(m)
+                    }
+                    (Some(t), None, true) => Some(t.clone()),
+                    (None, _, _) => None,
+                };
+            }
+            comp.push(c);
+        }
+        out.push((seg, comp));
+    }
+    Ok(out)
+}
+
+pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError> {
+    let spec = s.spec;
+    let nseg = spec.segments.len();
+    let p = s.terms.len();
+    let k = folds(s) as usize;
+    let mut names = s.term_names.clone();
+    names.push(spec.outcome.clone());
+    let mut terms = s.terms.clone();
+    terms.push(s.outcome_term.clone());
+    let g = ask(r, &gram_pass(s)?)?;
+    let comp = complement_moments(s, &g, &names, &terms, true)?;
+    let x: Vec<usize> = (0..p).collect();
+    let segs: Vec<Vec<KeyValue>> = comp.iter().map(|c| c.0.clone()).collect();
+    let mut coef1 = Vec::new();
+    let mut coef0 = Vec::new();
+    for (seg, per_fold) in &comp {
+        let label = segment_label(s, seg);
+        let (mut c1, mut c0) = (Vec::new(), Vec::new());
+        for (j, arms) in per_fold.iter().enumerate() {
+            let what = if k > 1 {
+                format!("{label}, rows outside fold {j}")
+            } else {
+                label.clone()
+            };
+            let n1 = arms[1].as_ref().map_or(0.0, |m| m.n);
+            let n0 = arms[0].as_ref().map_or(0.0, |m| m.n);
+            check_arms(s, seg, n1, n0).map_err(|e| match k {
+                1 => e,
+                _ => MethodError::Input(format!("{what}: {e}")),
+            })?;
+            let m1 = arms[1].as_ref().expect("checked");
+            let m0 = arms[0].as_ref().expect("checked");
+            c1.push(fit_arm(s, m1, &format!("{what}, treated"))?.design_coefficients(m1, &x));
+            c0.push(fit_arm(s, m0, &format!("{what}, untreated"))?.design_coefficients(m0, &x));
+        }
+        coef1.push(c1);
+        coef0.push(c0);
+    }
+    // Propensity: nseg × k models, fitted side by side.
+    let param = param_names(s);
+    let kp = p + 1;
+    let fits = logit_many(
+        &param,
+        segs.len() * k,
+        |flat| {
+            let coef: Vec<Vec<Vec<f64>>> = flat.chunks(k).map(|c| c.to_vec()).collect();
+            let a = ask(r, &logistic_pass(s, &fold_models(s, &segs, &coef))?)?;
+            let mut out: Vec<LogitSums> = Vec::new();
+            for seg in &segs {
+                let row = (0..a.rows.len())
+                    .find(|&row| keys(&a, row, nseg).ok().as_ref() == Some(seg))
+                    .ok_or_else(|| {
+                        MethodError::Engine("the logistic pass lost a segment".into())
+                    })?;
+                for j in 0..k {
+                    let prefix = if needs_folds(spec) {
+                        format!("m{j}_")
+                    } else {
+                        String::new()
+                    };
+                    let mut sums = logit_sums(&a, row, &prefix, kp)?;
+                    if needs_folds(spec) {
+                        sums.n = f64::NAN;
+                    }
+                    out.push(sums);
+                }
+            }
+            Ok::<_, MethodError>(out)
+        },
+        NewtonOptions::default(),
+    )?;
+    let mut ecoef = Vec::new();
+    for (i, seg) in segs.iter().enumerate() {
+        let mut per = Vec::new();
+        for j in 0..k {
+            let label = if k > 1 {
+                format!("{}, rows outside fold {j}", segment_label(s, seg))
+            } else {
+                segment_label(s, seg)
+            };
+            let f = fits[i * k + j]
+                .clone()
+                .map_err(|e| propensity_error(&label, e))?;
+            per.push(f.coef);
+        }
+        ecoef.push(per);
+    }
+    let sc = ask(
+        r,
+        &scores_pass(
+            s,
+            &fold_models(s, &segs, &ecoef),
+            &fold_models(s, &segs, &coef1),
+            &fold_models(s, &segs, &coef0),
+        )?,
+    )?;
+    let mut out = Outcome {
+        estimates: vec![],
+        diagnostics: Default::default(),
+    };
+    let mut parts = Vec::new();
+    for seg in &segs {
+        let row = (0..sc.rows.len())
+            .find(|&row| keys(&sc, row, nseg).ok().as_ref() == Some(seg))
+            .ok_or_else(|| MethodError::Engine("the scores pass lost a segment".into()))?;
+        let g = |n: &str| sc.number_or(row, n, 0.0);
+        let (n, n1) = (sc.number(row, "n")?, g("n1")?);
+        let (sn, snn, sdn, sd) = (g("sn")?, g("snn")?, g("sdn")?, g("sd")?);
+        let tau = sn / sd;
+        let var = (snn - 2.0 * tau * sdn + tau * tau * sd) / (sd * sd);
+        let (clipped1, clipped0) = (g("clipped1")?, g("clipped0")?);
+        out.diagnostics.notes.push(format!(
+            "{}: cross-fitted propensity from {:.4} to {:.4}{}",
+            segment_label(s, seg),
+            g("min_e")?,
+            g("max_e")?,
+            if clipped1 + clipped0 > 0.0 {
+                format!(
+                    "; {clipped1} treated and {clipped0} untreated rows had propensities clipped to [{}, {}]",
+                    spec.clip,
+                    1.0 - spec.clip
+                )
+            } else {
+                String::new()
+            }
+        ));
+        let mut e = Estimate::new(spec, &segment(s, seg), tau, var.max(0.0).sqrt());
+        e.n_treated = Some(n1);
+        e.n_control = Some(n - n1);
+        e.n_used = n;
+        let size = match spec.target {
+            Target::Ate => n,
+            Target::Att => n1,
+            Target::Atc => n - n1,
+        };
+        parts.push(Part {
+            estimate: e,
+            target_size: size,
+        });
+    }
+    out.estimates = finish(s, parts);
+    Ok(out)
+}

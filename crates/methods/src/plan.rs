@@ -1,0 +1,71 @@
+//! `plan`: the passes a method would run, in order, without a database.
+
+use crate::prepare::{levels_pass, placeholder, profile_pass};
+use crate::{doubly_robust, partial_out, regress, stratify, weight, Estimator, MethodError, Spec};
+use serde::Serialize;
+
+/// One pass of a plan.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct PlannedPass {
+    /// Pass name.
+    pub name: String,
+    /// What it computes.
+    pub purpose: String,
+    /// Which numbers in it come from earlier passes (shown as placeholders).
+    pub inlines: Option<String>,
+    /// How often it runs, when more than once.
+    pub repeats: Option<String>,
+    /// The SQL, rendered for the spec's dialect.
+    pub sql: String,
+}
+
+/// The passes `spec` runs. Numbers that earlier passes compute appear as placeholders:
+/// centres 0, scales 1, coefficients 0, category levels `'<column level i>'`, segment values
+/// `'<each segment>'`.
+pub fn plan(spec: &Spec) -> Result<Vec<PlannedPass>, MethodError> {
+    let s = placeholder(spec)?;
+    let mut out = Vec::new();
+    let planned = |p: upshot_sql::Pass, inlines: Option<&str>, repeats: Option<&str>| PlannedPass {
+        sql: p.sql(),
+        name: p.name,
+        purpose: p.purpose,
+        inlines: inlines.map(str::to_string),
+        repeats: repeats.map(str::to_string),
+    };
+    out.push(planned(profile_pass(spec)?, None, None));
+    if let Some(p) = levels_pass(spec, s.filter.as_ref())? {
+        out.push(planned(p, None, None));
+    }
+    let centres = "centres and scales from the profile pass (shown as 0 and 1), category levels from the levels pass";
+    let method: Vec<upshot_sql::Pass> = match spec.method {
+        Estimator::Stratify => stratify::passes(&s)?,
+        Estimator::Regress => regress::passes(&s)?,
+        Estimator::Weight => weight::passes(&s)?,
+        Estimator::DoublyRobust => doubly_robust::passes(&s)?,
+        Estimator::PartialOut => partial_out::passes(&s)?,
+    };
+    for p in method {
+        let (inlines, repeats) = match p.name.as_str() {
+            "cells" => (None, None),
+            "gram" => (Some(centres.to_string()), None),
+            "logistic-step" => (
+                Some(format!("{centres}; the current Newton coefficients (shown as 0)")),
+                Some("once per Newton iteration until the coefficients settle (typically 5 to 8 times; at most 50)".to_string()),
+            ),
+            "residuals" => (
+                Some(format!("{centres}; the outcome models' coefficients from the Gram pass (shown as 0)")),
+                None,
+            ),
+            "weights" => (
+                Some(format!("{centres}; the fitted propensity coefficients (shown as 0)")),
+                None,
+            ),
+            _ => (
+                Some(format!("{centres}; the fitted models' coefficients (shown as 0)")),
+                None,
+            ),
+        };
+        out.push(planned(p, inlines.as_deref(), repeats.as_deref()));
+    }
+    Ok(out)
+}

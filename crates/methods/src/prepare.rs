@@ -1,0 +1,509 @@
+//! The passes every method starts with: the profile (counts, NULLs, ranges, centres, scales)
+//! and the levels of categorical covariates; the checks they allow; the design terms.
+
+use crate::{ask, ColumnType, Diagnostics, Estimator, MethodError, NullPolicy, Runner, Spec};
+use serde::Serialize;
+use upshot_sql::{
+    complete_cases, levels, profile, Aggregates, Cell, DesignTerm, Expr, Pass, ProfileColumn,
+};
+
+/// Most levels a categorical covariate may have for one-hot encoding.
+pub const MAX_LEVELS: usize = 100;
+
+/// Basis expansion of the covariates.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize)]
+pub struct Basis {
+    /// Add squares of numeric covariates.
+    pub squares: bool,
+    /// Add products of every pair of covariate terms from different columns.
+    pub interactions: bool,
+}
+
+/// A profiled column.
+#[derive(Clone, Debug, PartialEq)]
+pub(crate) struct Profiled {
+    pub name: String,
+    pub non_null: f64,
+    pub min: Cell,
+    pub max: Cell,
+    pub mean: Option<f64>,
+    pub sd: Option<f64>,
+    pub distinct: f64,
+}
+
+/// Everything a method needs after the first passes.
+pub(crate) struct Setup<'a> {
+    pub spec: &'a Spec,
+    /// The user's filter and "no NULL in a used column".
+    pub filter: Option<Expr>,
+    /// Covariate terms (after one-hot and basis expansion) and their names.
+    pub terms: Vec<DesignTerm>,
+    pub term_names: Vec<String>,
+    /// The treatment and the outcome as centred, scaled terms (for Gram passes).
+    pub treatment_term: DesignTerm,
+    pub outcome_term: DesignTerm,
+    pub profiled: Vec<Profiled>,
+    pub diagnostics: Diagnostics,
+}
+
+impl Setup<'_> {
+    pub fn column(&self, name: &str) -> Option<&Profiled> {
+        self.profiled.iter().find(|p| p.name == name)
+    }
+}
+
+fn edit_distance(a: &str, b: &str) -> usize {
+    let b: Vec<char> = b.chars().collect();
+    let mut prev: Vec<usize> = (0..=b.len()).collect();
+    for (i, ca) in a.chars().enumerate() {
+        let mut cur = vec![i + 1];
+        for (j, cb) in b.iter().enumerate() {
+            let sub = prev[j] + usize::from(ca != *cb);
+            cur.push(sub.min(prev[j + 1] + 1).min(cur[j] + 1));
+        }
+        prev = cur;
+    }
+    prev[b.len()]
+}
+
+fn suggest(name: &str, columns: &[ColumnType]) -> String {
+    let best = columns
+        .iter()
+        .map(|c| {
+            (
+                edit_distance(&name.to_lowercase(), &c.name.to_lowercase()),
+                &c.name,
+            )
+        })
+        .min();
+    match best {
+        Some((d, n)) if d <= 2 + name.len() / 4 => format!("; did you mean `{n}`?"),
+        _ => String::new(),
+    }
+}
+
+/// The columns a spec reads, in a fixed order: treatment, outcome, adjustment set, segments,
+/// unit key (when folds need it).
+pub(crate) fn used_columns(spec: &Spec) -> Vec<String> {
+    let mut used: Vec<String> = Vec::new();
+    let mut add = |c: &String| {
+        if !used.contains(c) {
+            used.push(c.clone());
+        }
+    };
+    add(&spec.treatment);
+    add(&spec.outcome);
+    spec.adjust.iter().for_each(&mut add);
+    spec.segments.iter().for_each(&mut add);
+    if needs_folds(spec) {
+        if let Some(u) = &spec.unit {
+            add(u);
+        }
+    }
+    used
+}
+
+pub(crate) fn needs_folds(spec: &Spec) -> bool {
+    spec.folds > 1 && matches!(spec.method, Estimator::DoublyRobust | Estimator::PartialOut)
+}
+
+/// Whether `name` is one-hot encoded: a non-numeric column, or one declared categorical.
+pub(crate) fn is_categorical(spec: &Spec, name: &str) -> bool {
+    spec.categorical.iter().any(|c| c == name)
+        || spec
+            .columns
+            .as_ref()
+            .and_then(|cs| cs.iter().find(|c| c.name == name))
+            .is_some_and(|c| !c.numeric)
+}
+
+/// Checks names and types against the schema (when known).
+fn check_schema(spec: &Spec) -> Result<(), MethodError> {
+    let Some(columns) = &spec.columns else {
+        return Ok(());
+    };
+    let list = || {
+        columns
+            .iter()
+            .map(|c| c.name.as_str())
+            .collect::<Vec<_>>()
+            .join(", ")
+    };
+    for c in used_columns(spec) {
+        if !columns.iter().any(|k| k.name == c) {
+            return Err(MethodError::Input(format!(
+                "no column `{c}` in the source{}; its columns are: {}",
+                suggest(&c, columns),
+                list()
+            )));
+        }
+    }
+    let col = |n: &str| columns.iter().find(|c| c.name == n).expect("checked");
+    if !col(&spec.outcome).numeric {
+        return Err(MethodError::Input(format!(
+            "outcome `{}` is not numeric; choose a numeric outcome, or convert it in a source query (for example CAST(... AS DOUBLE), or a 0/1 CASE expression)",
+            spec.outcome
+        )));
+    }
+    if !col(&spec.treatment).numeric {
+        return Err(MethodError::Input(format!(
+            "treatment `{}` is not numeric; code it as 0/1 (untreated/treated){}",
+            spec.treatment,
+            if spec.method.binary_treatment() {
+                ""
+            } else {
+                " or as a number"
+            }
+        )));
+    }
+    if needs_folds(spec) {
+        match &spec.unit {
+            None => {
+                return Err(MethodError::Input(format!(
+                    "cross-fitting with {} folds assigns rows to folds by a hash of the unit key; name an integer unit key column with --unit (or [source].unit), or use --folds 1",
+                    spec.folds
+                )))
+            }
+            Some(u) if !col(u).integer => {
+                return Err(MethodError::Input(format!(
+                    "unit key `{u}` is not an integer column; folds are a portable hash of an integer key. Use an integer id, or --folds 1"
+                )))
+            }
+            _ => {}
+        }
+    }
+    Ok(())
+}
+
+fn profiled(a: &Aggregates, i: usize, name: &str, numeric: bool) -> Result<Profiled, MethodError> {
+    Ok(Profiled {
+        name: name.to_string(),
+        non_null: a.number(0, &format!("c{i}_n"))?,
+        min: a.cell(0, &format!("c{i}_min"))?.clone(),
+        max: a.cell(0, &format!("c{i}_max"))?.clone(),
+        mean: if numeric {
+            match a.cell(0, &format!("c{i}_mean"))? {
+                Cell::Number(x) => Some(*x),
+                _ => None,
+            }
+        } else {
+            None
+        },
+        sd: if numeric {
+            match a.cell(0, &format!("c{i}_sd"))? {
+                Cell::Number(x) => Some(*x),
+                _ => None,
+            }
+        } else {
+            None
+        },
+        distinct: a.number_or(0, &format!("c{i}_distinct"), 0.0)?,
+    })
+}
+
+fn show(c: &Cell) -> String {
+    match c {
+        Cell::Null => "NULL".into(),
+        Cell::Number(x) => format!("{x}"),
+        Cell::Text(t) => t.clone(),
+    }
+}
+
+/// The profile pass of a spec.
+pub(crate) fn profile_pass(spec: &Spec) -> Result<Pass, MethodError> {
+    let cols: Vec<ProfileColumn> = used_columns(spec)
+        .into_iter()
+        .map(|c| ProfileColumn {
+            numeric: !is_categorical(spec, &c) || c == spec.treatment || c == spec.outcome,
+            name: c,
+        })
+        .collect();
+    Ok(profile(
+        spec.dialect,
+        &spec.source,
+        spec.filter.as_ref(),
+        &cols,
+    )?)
+}
+
+/// Categorical covariates that need their levels (methods with a design matrix).
+pub(crate) fn categorical_covariates(spec: &Spec) -> Vec<String> {
+    if spec.method == Estimator::Stratify {
+        return vec![];
+    }
+    spec.adjust
+        .iter()
+        .filter(|c| is_categorical(spec, c))
+        .cloned()
+        .collect()
+}
+
+pub(crate) fn levels_pass(spec: &Spec, filter: Option<&Expr>) -> Result<Option<Pass>, MethodError> {
+    let cats = categorical_covariates(spec);
+    if cats.is_empty() {
+        return Ok(None);
+    }
+    Ok(Some(levels(
+        spec.dialect,
+        &spec.source,
+        filter,
+        &cats,
+        &used_columns(spec),
+    )?))
+}
+
+/// Runs the profile (and levels) passes, checks the data, and builds the design terms.
+pub(crate) fn prepare<'a>(spec: &'a Spec, r: &mut dyn Runner) -> Result<Setup<'a>, MethodError> {
+    check_schema(spec)?;
+    let used = used_columns(spec);
+    let prof = ask(r, &profile_pass(spec)?)?;
+    let n_rows = prof.number_or(0, "n_rows", 0.0)?;
+    if n_rows == 0.0 {
+        return Err(MethodError::Input(if spec.filter.is_some() {
+            "no rows: the source is empty after the filter; check the filter and the source".into()
+        } else {
+            "no rows: the source is empty".into()
+        }));
+    }
+    let mut profiled_cols = Vec::new();
+    for (i, c) in used.iter().enumerate() {
+        let numeric = !is_categorical(spec, c) || *c == spec.treatment || *c == spec.outcome;
+        profiled_cols.push(profiled(&prof, i, c, numeric)?);
+    }
+    let n_complete = prof.number_or(0, "n_complete", 0.0)?;
+    let null_columns: Vec<(String, f64)> = profiled_cols
+        .iter()
+        .filter(|p| p.non_null < n_rows)
+        .map(|p| (p.name.clone(), n_rows - p.non_null))
+        .collect();
+    let nulls_text = || {
+        null_columns
+            .iter()
+            .map(|(c, n)| format!("`{c}` {n} NULL"))
+            .collect::<Vec<_>>()
+            .join(", ")
+    };
+    if n_complete == 0.0 {
+        return Err(MethodError::Input(format!(
+            "no usable rows: each of the {n_rows} rows has a NULL in a used column ({}); fill or drop those columns",
+            nulls_text()
+        )));
+    }
+    let excluded = n_rows - n_complete;
+    if excluded > 0.0 && spec.on_null == NullPolicy::Error {
+        return Err(MethodError::Input(format!(
+            "{excluded} of {n_rows} rows have NULL in a used column ({}); with --on-null error nothing is estimated. Filter them out, fill them, or drop --on-null error to exclude and count them",
+            nulls_text()
+        )));
+    }
+    let col = |n: &str| {
+        profiled_cols
+            .iter()
+            .find(|p| p.name == n)
+            .expect("profiled")
+    };
+    let t = col(&spec.treatment);
+    let (tmin, tmax) = (show(&t.min), show(&t.max));
+    if t.sd == Some(0.0) || tmin == tmax {
+        return Err(MethodError::Input(format!(
+            "treatment `{}` is constant ({tmin} in every row used); an effect needs treated and untreated rows — check the filter and the source",
+            spec.treatment
+        )));
+    }
+    if spec.method.binary_treatment() {
+        let zero_one = matches!((&t.min, &t.max), (Cell::Number(a), Cell::Number(b)) if *a == 0.0 && *b == 1.0);
+        if !zero_one || t.distinct > 2.0 {
+            return Err(MethodError::Input(format!(
+                "method `{}` needs a 0/1 treatment, but `{}` ranges from {tmin} to {tmax} with about {} distinct values; recode it as 0/1, or use --method partial-out for a continuous treatment",
+                spec.method.key(),
+                spec.treatment,
+                t.distinct
+            )));
+        }
+    }
+    let filter = complete_cases(spec.dialect, spec.filter.as_ref(), &used);
+    let mut levels_of: Vec<(String, Vec<(String, f64)>)> = Vec::new();
+    if let Some(p) = levels_pass(spec, filter.as_ref())? {
+        let a = ask(r, &p)?;
+        let cats = categorical_covariates(spec);
+        for c in &cats {
+            levels_of.push((c.clone(), Vec::new()));
+        }
+        for row in 0..a.rows.len() {
+            let which = a.number(row, "which")? as usize;
+            let level = match a.cell(row, "level")? {
+                Cell::Text(s) => s.clone(),
+                other => show(other),
+            };
+            levels_of[which].1.push((level, a.number(row, "n")?));
+        }
+        for (c, lv) in &levels_of {
+            if lv.len() > MAX_LEVELS {
+                return Err(MethodError::Input(format!(
+                    "covariate `{c}` has {} levels, too many to one-hot (at most {MAX_LEVELS}); coarsen it in a source query, or treat it as numeric",
+                    lv.len()
+                )));
+            }
+        }
+    }
+    let mut setup = Setup {
+        spec,
+        filter,
+        terms: vec![],
+        term_names: vec![],
+        treatment_term: numeric_term(t)?,
+        outcome_term: numeric_term(col(&spec.outcome))?,
+        profiled: profiled_cols.clone(),
+        diagnostics: Diagnostics {
+            rows_read: n_rows,
+            rows_excluded_null: excluded,
+            null_columns,
+            ..Diagnostics::default()
+        },
+    };
+    if spec.method != Estimator::Stratify {
+        let (terms, names) = covariate_terms(spec, &profiled_cols, &levels_of)?;
+        setup.terms = terms;
+        setup.term_names = names;
+    }
+    Ok(setup)
+}
+
+fn numeric_term(p: &Profiled) -> Result<DesignTerm, MethodError> {
+    let (Some(mean), Some(sd)) = (p.mean, p.sd) else {
+        return Err(MethodError::Input(format!(
+            "column `{}` has no numeric values to centre",
+            p.name
+        )));
+    };
+    Ok(DesignTerm::Numeric {
+        column: p.name.clone(),
+        centre: mean,
+        scale: if sd > 0.0 { sd } else { 1.0 },
+    })
+}
+
+/// The covariate terms: numeric columns centred and scaled; categorical columns one-hot
+/// (every level but the most frequent, which is the reference); then the basis expansion.
+pub(crate) fn covariate_terms(
+    spec: &Spec,
+    profiled: &[Profiled],
+    levels_of: &[(String, Vec<(String, f64)>)],
+) -> Result<(Vec<DesignTerm>, Vec<String>), MethodError> {
+    let mut terms = Vec::new();
+    let mut names = Vec::new();
+    let mut numeric_base = Vec::new();
+    for c in &spec.adjust {
+        if let Some((_, lv)) = levels_of.iter().find(|(n, _)| n == c) {
+            if lv.len() < 2 {
+                return Err(MethodError::Input(format!(
+                    "covariate `{c}` has a single level{} in the rows used; it cannot adjust anything — drop it from the adjustment set",
+                    lv.first().map(|l| format!(" ({})", l.0)).unwrap_or_default()
+                )));
+            }
+            let total: f64 = lv.iter().map(|l| l.1).sum();
+            let reference = lv
+                .iter()
+                .enumerate()
+                .max_by(|a, b| a.1 .1.total_cmp(&b.1 .1).then(b.0.cmp(&a.0)))
+                .map(|x| x.0)
+                .expect("two levels");
+            for (i, (level, n)) in lv.iter().enumerate() {
+                if i == reference {
+                    continue;
+                }
+                let share = n / total;
+                terms.push(DesignTerm::Level {
+                    column: c.clone(),
+                    level: level.clone(),
+                    centre: share,
+                    scale: (share * (1.0 - share)).sqrt(),
+                });
+                names.push(format!("{c}={level}"));
+            }
+        } else {
+            let p = profiled.iter().find(|p| &p.name == c).expect("profiled");
+            if p.sd.unwrap_or(0.0) <= 0.0 {
+                return Err(MethodError::Input(format!(
+                    "covariate `{c}` is constant ({}) in the rows used; it cannot adjust anything — drop it from the adjustment set",
+                    show(&p.min)
+                )));
+            }
+            numeric_base.push(terms.len());
+            terms.push(numeric_term(p)?);
+            names.push(c.clone());
+        }
+    }
+    let base: Vec<(DesignTerm, String)> =
+        terms.iter().cloned().zip(names.iter().cloned()).collect();
+    if spec.basis.squares {
+        for &i in &numeric_base {
+            terms.push(DesignTerm::Product {
+                factors: vec![base[i].0.clone(), base[i].0.clone()],
+                centre: 1.0,
+                scale: 1.0,
+            });
+            names.push(format!("{}^2", base[i].1));
+        }
+    }
+    if spec.basis.interactions {
+        for i in 0..base.len() {
+            for j in i + 1..base.len() {
+                if base[i].0.column() == base[j].0.column() {
+                    continue;
+                }
+                terms.push(DesignTerm::Product {
+                    factors: vec![base[i].0.clone(), base[j].0.clone()],
+                    centre: 0.0,
+                    scale: 1.0,
+                });
+                names.push(format!("{}*{}", base[i].1, base[j].1));
+            }
+        }
+    }
+    Ok((terms, names))
+}
+
+/// A placeholder setup for `plan`: no pass is run; centres 0, scales 1, two placeholder
+/// levels per categorical covariate.
+pub(crate) fn placeholder<'a>(spec: &'a Spec) -> Result<Setup<'a>, MethodError> {
+    check_schema(spec)?;
+    let used = used_columns(spec);
+    let profiled: Vec<Profiled> = used
+        .iter()
+        .map(|c| Profiled {
+            name: c.clone(),
+            non_null: 1.0,
+            min: Cell::Number(0.0),
+            max: Cell::Number(1.0),
+            mean: Some(0.0),
+            sd: Some(1.0),
+            distinct: 2.0,
+        })
+        .collect();
+    let levels_of: Vec<(String, Vec<(String, f64)>)> = categorical_covariates(spec)
+        .into_iter()
+        .map(|c| {
+            let lv = vec![
+                (format!("<{c} level 1>"), 1.0),
+                (format!("<{c} level 2>"), 1.0),
+            ];
+            (c, lv)
+        })
+        .collect();
+    let (terms, term_names) = if spec.method == Estimator::Stratify {
+        (vec![], vec![])
+    } else {
+        covariate_terms(spec, &profiled, &levels_of)?
+    };
+    Ok(Setup {
+        spec,
+        filter: complete_cases(spec.dialect, spec.filter.as_ref(), &used),
+        terms,
+        term_names,
+        treatment_term: numeric_term(&profiled[0])?,
+        outcome_term: numeric_term(&profiled[1])?,
+        profiled,
+        diagnostics: Diagnostics::default(),
+    })
+}

@@ -1,0 +1,155 @@
+//! `stratify`: backdoor adjustment over discrete strata (Pearl 2009, eq. 3.19) from one cell
+//! table. Strata lacking an arm are excluded and reported with their row share.
+
+use crate::combine::{by_segment, finish, key_value, segment, segment_label, Part};
+use crate::prepare::Setup;
+use crate::{ask, Estimate, MethodError, Outcome, Runner};
+use upshot_sql::{cells, KeyValue, Pass, Target};
+
+/// Most distinct values a numeric adjustment column may have to count as discrete.
+pub const MAX_STRATUM_VALUES: f64 = 50.0;
+/// Cell counts beyond this get a warning: most cells then hold a handful of rows.
+pub const MANY_CELLS: usize = 1000;
+
+pub(crate) fn passes(s: &Setup) -> Result<Vec<Pass>, MethodError> {
+    let spec = s.spec;
+    let mut keys = spec.segments.clone();
+    keys.extend(spec.adjust.iter().cloned());
+    keys.push(spec.treatment.clone());
+    Ok(vec![cells(
+        spec.dialect,
+        &spec.source,
+        s.filter.as_ref(),
+        &keys,
+        &spec.outcome,
+    )?])
+}
+
+#[derive(Default, Clone, Copy)]
+struct Arm {
+    n: f64,
+    sy: f64,
+    syy: f64,
+}
+
+impl Arm {
+    fn mean(&self) -> f64 {
+        self.sy / self.n
+    }
+    fn var(&self) -> f64 {
+        (self.syy / self.n - self.mean().powi(2)).max(0.0)
+    }
+}
+
+pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError> {
+    let spec = s.spec;
+    for c in &spec.adjust {
+        if let Some(p) = s.column(c) {
+            if p.mean.is_some() && !spec.categorical.contains(c) && p.distinct > MAX_STRATUM_VALUES
+            {
+                return Err(MethodError::Input(format!(
+                    "adjustment column `{c}` has about {} distinct values: stratify needs discrete strata. Use --method regress, weight or doubly-robust, or bin `{c}` in a source query",
+                    p.distinct
+                )));
+            }
+        }
+    }
+    let a = ask(r, &passes(s)?[0])?;
+    let nseg = spec.segments.len();
+    let nadj = spec.adjust.len();
+    let mut out = Outcome {
+        estimates: vec![],
+        diagnostics: Default::default(),
+    };
+    if a.rows.len() > MANY_CELLS {
+        out.diagnostics.warnings.push(format!(
+            "the cell table has {} cells (strata × arms{}): many strata hold few rows, so estimates are noisy and many strata may lack an arm; consider --method doubly-robust or regress, or coarsen the adjustment columns",
+            a.rows.len(),
+            if nseg > 0 { " × segments" } else { "" }
+        ));
+    }
+    let mut parts = Vec::new();
+    let mut excluded_total = 0.0;
+    for (seg_key, rows) in by_segment(&a, nseg)? {
+        // strata of this segment: key values -> arms
+        let mut strata: Vec<(Vec<KeyValue>, [Arm; 2])> = Vec::new();
+        for row in rows {
+            let mut k = Vec::new();
+            for i in nseg..nseg + nadj {
+                k.push(key_value(a.cell(row, &format!("k{i}"))?));
+            }
+            let arm = a.number(row, &format!("k{}", nseg + nadj))?;
+            let cell = Arm {
+                n: a.number(row, "n")?,
+                sy: a.number(row, "sy")?,
+                syy: a.number(row, "syy")?,
+            };
+            let idx = usize::from(arm == 1.0);
+            match strata.iter_mut().find(|(v, _)| *v == k) {
+                Some((_, arms)) => arms[idx] = cell,
+                None => {
+                    let mut arms = [Arm::default(); 2];
+                    arms[idx] = cell;
+                    strata.push((k, arms));
+                }
+            }
+        }
+        let kept: Vec<&[Arm; 2]> = strata
+            .iter()
+            .filter(|(_, a)| a[0].n > 0.0 && a[1].n > 0.0)
+            .map(|(_, a)| a)
+            .collect();
+        let all_rows: f64 = strata.iter().map(|(_, a)| a[0].n + a[1].n).sum();
+        let kept_rows: f64 = kept.iter().map(|a| a[0].n + a[1].n).sum();
+        let excluded = all_rows - kept_rows;
+        if kept.is_empty() {
+            return Err(MethodError::Input(format!(
+                "{}: no stratum has both treated and untreated rows, so nothing can be compared; check the treatment coding, or use fewer or coarser adjustment columns",
+                segment_label(s, &seg_key)
+            )));
+        }
+        if excluded > 0.0 {
+            excluded_total += excluded;
+            let lacking = strata.len() - kept.len();
+            out.diagnostics.notes.push(format!(
+                "{}: {lacking} of {} strata lack treated or untreated rows and are excluded: {excluded} rows ({:.1}% of its rows); the estimate describes the remaining strata",
+                segment_label(s, &seg_key),
+                strata.len(),
+                100.0 * excluded / all_rows
+            ));
+        }
+        let size = |a: &[Arm; 2]| match spec.target {
+            Target::Ate => a[0].n + a[1].n,
+            Target::Att => a[1].n,
+            Target::Atc => a[0].n,
+        };
+        let total: f64 = kept.iter().map(|a| size(a)).sum();
+        let tau: f64 = kept
+            .iter()
+            .map(|a| size(a) / total * (a[1].mean() - a[0].mean()))
+            .sum();
+        let var: f64 = kept
+            .iter()
+            .map(|a| {
+                let w = size(a) / total;
+                let t = a[1].mean() - a[0].mean();
+                w * w * (a[1].var() / a[1].n + a[0].var() / a[0].n) + w * (t - tau).powi(2) / total
+            })
+            .sum();
+        let mut e = Estimate::new(spec, &segment(s, &seg_key), tau, var.sqrt());
+        e.n_treated = Some(kept.iter().map(|a| a[1].n).sum());
+        e.n_control = Some(kept.iter().map(|a| a[0].n).sum());
+        e.n_used = kept_rows;
+        parts.push(Part {
+            estimate: e,
+            target_size: total,
+        });
+    }
+    if excluded_total > 0.0 {
+        out.diagnostics
+            .rows_excluded_other
+            .push(("in strata lacking an arm".into(), excluded_total));
+    }
+    out.estimates = finish(s, parts);
+    Ok(out)
+}

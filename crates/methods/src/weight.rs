@@ -1,0 +1,255 @@
+//! `weight`: inverse probability weighting with normalised (Hajek) weights and a logistic
+//! propensity fitted by Newton's method over aggregate passes (Lunceford & Davidian 2004).
+//!
+//! The variance treats the propensity as estimated: the weighted arm means and the logistic
+//! score are stacked estimating equations, and the influence function of `τ = μ₁ − μ₀` is
+//! `ψ₁/a₁ − ψ₀/a₀ + gᵀ I⁻¹ w (t − e)` with `ψₐ` the arms' weighted residuals, `aₐ` their weight
+//! sums, `g` the derivative of the means with respect to the propensity coefficients, `I` the
+//! logistic information and `w = (1, v)` the design. One pass after the fit returns every sum
+//! that the square of that influence function expands into.
+
+use crate::combine::{
+    by_segment, finish, keys, logit_sums, segment, segment_label, upper_matrix, vector, Part,
+};
+use crate::prepare::Setup;
+use crate::{ask, Estimate, MethodError, Outcome, Runner};
+use nalgebra::DVector;
+use upshot_fit::{logit_many, FitError, Logit, LogitSums, NewtonOptions};
+use upshot_sql::{
+    logistic_fits, weighting_sums, Aggregates, Design, Key, KeyValue, Model, Models, Pass,
+    Selector, Variants,
+};
+
+pub(crate) fn design(s: &Setup, fold: bool) -> Design {
+    let spec = s.spec;
+    Design {
+        keys: spec
+            .segments
+            .iter()
+            .map(|c| Key::Column(c.clone()))
+            .collect(),
+        terms: s.terms.clone(),
+        extras: vec![("t", spec.treatment.clone()), ("y", spec.outcome.clone())],
+        fold: if fold && crate::prepare::needs_folds(spec) {
+            Some(upshot_sql::Fold {
+                unit: spec.unit.clone().expect("checked with the schema"),
+                folds: spec.folds,
+            })
+        } else {
+            None
+        },
+    }
+}
+
+pub(crate) fn param_names(s: &Setup) -> Vec<String> {
+    let mut names = vec!["(intercept)".to_string()];
+    names.extend(s.term_names.iter().cloned());
+    names
+}
+
+/// Models keyed by segment values.
+pub(crate) fn per_segment(segs: &[Vec<KeyValue>], coefs: &[Vec<f64>]) -> Models {
+    let nseg = segs.first().map_or(0, |k| k.len());
+    if nseg == 0 {
+        return Models::single(coefs[0].clone());
+    }
+    Models {
+        selector: Selector {
+            keys: (0..nseg).collect(),
+            fold: false,
+        },
+        models: segs
+            .iter()
+            .zip(coefs)
+            .map(|(k, c)| Model {
+                key: k.clone(),
+                coef: c.clone(),
+            })
+            .collect(),
+    }
+}
+
+pub(crate) fn placeholder_segments(s: &Setup) -> Vec<Vec<KeyValue>> {
+    vec![s
+        .spec
+        .segments
+        .iter()
+        .map(|_| KeyValue::Text("<each segment>".into()))
+        .collect()]
+}
+
+pub(crate) fn logistic_pass(s: &Setup, models: &Models) -> Result<Pass, MethodError> {
+    let spec = s.spec;
+    Ok(logistic_fits(
+        spec.dialect,
+        &spec.source,
+        s.filter.as_ref(),
+        &design(s, false),
+        models,
+        Variants::Single,
+    )?)
+}
+
+fn weights_pass(s: &Setup, models: &Models) -> Result<Pass, MethodError> {
+    let spec = s.spec;
+    Ok(weighting_sums(
+        spec.dialect,
+        &spec.source,
+        s.filter.as_ref(),
+        &design(s, false),
+        models,
+        spec.target,
+        spec.clip,
+    )?)
+}
+
+pub(crate) fn passes(s: &Setup) -> Result<Vec<Pass>, MethodError> {
+    let segs = placeholder_segments(s);
+    let zero = vec![vec![0.0; s.terms.len() + 1]];
+    let models = per_segment(&segs, &zero);
+    Ok(vec![logistic_pass(s, &models)?, weights_pass(s, &models)?])
+}
+
+/// Maps a propensity fit error to a message naming the segment.
+pub(crate) fn propensity_error(label: &str, e: FitError) -> MethodError {
+    let advice = match &e {
+        FitError::Separation { .. } => " — propensities reach 0 or 1, so some rows have no comparable rows in the other arm (positivity fails); restrict the rows or drop the named columns",
+        _ => "",
+    };
+    MethodError::Input(format!(
+        "{label}: the propensity model cannot be fitted: {e}{advice}"
+    ))
+}
+
+/// Fits one propensity model per segment; returns the segments, the treated counts and fits.
+pub(crate) fn fit_propensity(
+    s: &Setup,
+    r: &mut dyn Runner,
+) -> Result<(Vec<Vec<KeyValue>>, Vec<Logit>), MethodError> {
+    let nseg = s.spec.segments.len();
+    let k = s.terms.len() + 1;
+    let first = ask(r, &logistic_pass(s, &Models::single(vec![0.0; k]))?)?;
+    let segs: Vec<Vec<KeyValue>> = by_segment(&first, nseg)?.into_iter().map(|x| x.0).collect();
+    // At zero coefficients p = 1/2, so the intercept's score is n₁ − n/2.
+    for (row, key) in segs.iter().enumerate() {
+        let n = first.number(row, "n")?;
+        let n1 = first.number(row, "u0")? + n / 2.0;
+        check_arms(s, key, n1.round(), (n - n1).round())?;
+    }
+    let names = param_names(s);
+    let mut cached = Some(first);
+    let fits = logit_many(
+        &names,
+        segs.len(),
+        |coefs| {
+            let a: Aggregates = match cached.take() {
+                Some(a) if coefs.iter().all(|c| c.iter().all(|x| *x == 0.0)) => a,
+                _ => ask(r, &logistic_pass(s, &per_segment(&segs, coefs))?)?,
+            };
+            (0..segs.len())
+                .map(|row| logit_sums(&a, row, "", k))
+                .collect::<Result<Vec<LogitSums>, MethodError>>()
+        },
+        NewtonOptions::default(),
+    )?;
+    let mut out = Vec::new();
+    for (key, f) in segs.iter().zip(fits) {
+        out.push(f.map_err(|e| propensity_error(&segment_label(s, key), e))?);
+    }
+    Ok((segs, out))
+}
+
+pub(crate) fn check_arms(s: &Setup, key: &[KeyValue], n1: f64, n0: f64) -> Result<(), MethodError> {
+    for (n, word) in [(n1, "treated"), (n0, "untreated (control)")] {
+        if n == 0.0 {
+            return Err(MethodError::Input(format!(
+                "{} has no {word} rows; an effect there cannot be estimated — drop the segment column, or filter the segment out",
+                segment_label(s, key)
+            )));
+        }
+    }
+    Ok(())
+}
+
+pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError> {
+    let spec = s.spec;
+    let nseg = spec.segments.len();
+    let k = s.terms.len() + 1;
+    let (segs, fits) = fit_propensity(s, r)?;
+    let coefs: Vec<Vec<f64>> = fits.iter().map(|f| f.coef.clone()).collect();
+    let w = ask(r, &weights_pass(s, &per_segment(&segs, &coefs))?)?;
+    let mut out = Outcome {
+        estimates: vec![],
+        diagnostics: Default::default(),
+    };
+    let mut parts = Vec::new();
+    for (key, fit) in segs.iter().zip(&fits) {
+        let row = (0..w.rows.len())
+            .find(|&row| keys(&w, row, nseg).ok().as_ref() == Some(key))
+            .ok_or_else(|| MethodError::Engine("the weights pass lost a segment".into()))?;
+        let g = |n: &str| w.number_or(row, n, 0.0);
+        let (n, n1) = (w.number(row, "n")?, g("n1")?);
+        let (a1, b1, a0, b0) = (g("a1")?, g("b1")?, g("a0")?, g("b0")?);
+        let (mu1, mu0) = (b1 / a1, b0 / a0);
+        let tau = mu1 - mu0;
+        let d1 = vector(&w, row, "d1_", k)?;
+        let d1y = vector(&w, row, "d1y_", k)?;
+        let d0 = vector(&w, row, "d0_", k)?;
+        let d0y = vector(&w, row, "d0y_", k)?;
+        let c1 = vector(&w, row, "c1_", k)?;
+        let c1y = vector(&w, row, "c1y_", k)?;
+        let c0 = vector(&w, row, "c0_", k)?;
+        let c0y = vector(&w, row, "c0y_", k)?;
+        let ss = upper_matrix(&w, row, "s", k)?;
+        let gvec: DVector<f64> = (&d1y - &d1 * mu1) / a1 - (&d0y - &d0 * mu0) / a0;
+        let h = fit
+            .information
+            .clone()
+            .cholesky()
+            .map(|c| c.solve(&gvec))
+            .ok_or_else(|| {
+                MethodError::Input(format!(
+                    "{}: the propensity model's information matrix is singular",
+                    segment_label(s, key)
+                ))
+            })?;
+        let psi1 = g("q1yy")? - 2.0 * mu1 * g("q1y")? + mu1 * mu1 * g("q1")?;
+        let psi0 = g("q0yy")? - 2.0 * mu0 * g("q0y")? + mu0 * mu0 * g("q0")?;
+        let cross1 = &c1y - &c1 * mu1;
+        let cross0 = -(&c0y - &c0 * mu0);
+        let var = psi1 / (a1 * a1)
+            + psi0 / (a0 * a0)
+            + (h.transpose() * &ss * &h)[0]
+            + 2.0 * h.dot(&cross1) / a1
+            - 2.0 * h.dot(&cross0) / a0;
+        let label = segment_label(s, key);
+        let (clipped1, clipped0) = (g("clipped1")?, g("clipped0")?);
+        let (min_e, max_e) = (g("min_e")?, g("max_e")?);
+        out.diagnostics.notes.push(format!(
+            "{label}: propensity from {min_e:.4} to {max_e:.4}; effective sample size of the weights: treated {:.0} of {n1}, untreated {:.0} of {}{}",
+            a1 * a1 / g("q1")?,
+            a0 * a0 / g("q0")?,
+            n - n1,
+            if clipped1 + clipped0 > 0.0 {
+                format!("; {clipped1} treated and {clipped0} untreated rows had propensities clipped to [{}, {}]", spec.clip, 1.0 - spec.clip)
+            } else {
+                String::new()
+            }
+        ));
+        let mut e = Estimate::new(spec, &segment(s, key), tau, var.max(0.0).sqrt());
+        e.n_treated = Some(n1);
+        e.n_control = Some(n - n1);
+        e.n_used = n;
+        let size = match spec.target {
+            upshot_sql::Target::Ate => n,
+            upshot_sql::Target::Att => n1,
+            upshot_sql::Target::Atc => n - n1,
+        };
+        parts.push(Part {
+            estimate: e,
+            target_size: size,
+        });
+    }
+    out.estimates = finish(s, parts);
+    Ok(out)
+}

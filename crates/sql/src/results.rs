@@ -1,0 +1,170 @@
+//! The results table: where `upshot run --into` appends estimates. Its schema is
+//! `sql/results.sql` (rendered for the table name `upshot_results`); statements here are built
+//! from the same column list, with the user's table name as quoted identifiers.
+
+use crate::dialect::Dialect;
+use crate::error::SqlError;
+use sqlparser::ast::{Ident, ObjectName, Statement};
+use sqlparser::parser::Parser;
+
+/// Columns of the results table: name, SQL type, meaning.
+pub const RESULT_COLUMNS: [(&str, &str, &str); 24] = [
+    (
+        "run_id",
+        "VARCHAR",
+        "identifies one run: the run key, or one made from the time and plan hash",
+    ),
+    (
+        "run_key",
+        "VARCHAR",
+        "the --run-key given (NULL without one); rerunning with it replaces the run's rows",
+    ),
+    (
+        "run_at",
+        "TIMESTAMP",
+        "when the run wrote its rows (the transaction's time)",
+    ),
+    ("tool_version", "VARCHAR", "upshot's version"),
+    ("study", "VARCHAR", "study name"),
+    ("question", "VARCHAR", "question name"),
+    (
+        "plan_hash",
+        "VARCHAR",
+        "hash of the plan's SQL: equal hashes ran the same passes",
+    ),
+    ("treatment", "VARCHAR", "treatment column"),
+    ("outcome", "VARCHAR", "outcome column"),
+    ("segment", "VARCHAR", "`all`, or `column=value, ...`"),
+    ("estimand", "VARCHAR", "ATE, ATT or ATC"),
+    ("method", "VARCHAR", "method key"),
+    ("estimate", "DOUBLE", "point estimate"),
+    ("std_error", "DOUBLE", "standard error"),
+    ("ci_low", "DOUBLE", "lower end of the 95% interval"),
+    ("ci_high", "DOUBLE", "upper end of the 95% interval"),
+    (
+        "n_treated",
+        "DOUBLE",
+        "treated rows used (NULL for a continuous treatment)",
+    ),
+    (
+        "n_control",
+        "DOUBLE",
+        "control rows used (NULL for a continuous treatment)",
+    ),
+    ("n_used", "DOUBLE", "rows used"),
+    ("rows_read", "DOUBLE", "rows after the filter"),
+    (
+        "rows_excluded_null",
+        "DOUBLE",
+        "rows excluded for NULL in a used column",
+    ),
+    (
+        "rows_excluded_other",
+        "DOUBLE",
+        "rows excluded otherwise (strata lacking an arm)",
+    ),
+    (
+        "adjustment_set",
+        "VARCHAR",
+        "adjustment columns, comma-separated",
+    ),
+    ("source", "VARCHAR", "the rows read: table, file or `query`"),
+];
+
+/// The statements that write one run.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct ResultsSql {
+    /// `CREATE TABLE IF NOT EXISTS`.
+    pub create: String,
+    /// `DELETE ... WHERE run_key = $1` (replaces a rerun's rows).
+    pub delete: String,
+    /// `INSERT ... VALUES ($1, $2, CURRENT_TIMESTAMP, ...)`, one numbered parameter per column but `run_at`.
+    pub insert: String,
+}
+
+fn table_name(d: &dyn Dialect, table: &str) -> Result<ObjectName, SqlError> {
+    let parts: Vec<&str> = table.split('.').collect();
+    if parts.iter().any(|p| p.is_empty()) {
+        return Err(SqlError::Empty {
+            what: "a part of the results table name",
+        });
+    }
+    Ok(ObjectName::from(
+        parts
+            .iter()
+            .map(|p| Ident::with_quote(d.quote(), p.to_string()))
+            .collect::<Vec<_>>(),
+    ))
+}
+
+fn checked(d: &dyn Dialect, sql: String) -> Result<String, SqlError> {
+    let stmts = Parser::parse_sql(d.parser().as_ref(), &sql).map_err(|e| SqlError::Parse {
+        what: "a results-table statement",
+        message: e.to_string(),
+    })?;
+    match stmts.as_slice() {
+        [Statement::CreateTable(_)] | [Statement::Delete(_)] | [Statement::Insert(_)] => {
+            Ok(format!("{}", stmts[0]))
+        }
+        _ => Err(SqlError::NotOneStatement { count: stmts.len() }),
+    }
+}
+
+/// The create, delete and insert statements for the results table `table` (`schema.table`
+/// allowed), the name quoted part by part.
+pub fn results_sql(d: &dyn Dialect, table: &str) -> Result<ResultsSql, SqlError> {
+    let name = table_name(d, table)?.to_string();
+    let cols: Vec<String> = RESULT_COLUMNS
+        .iter()
+        .map(|(c, t, _)| {
+            let t = if *t == "DOUBLE" { d.float_type() } else { t };
+            format!("{c} {t}")
+        })
+        .collect();
+    let mut next = 0;
+    let values: Vec<String> = RESULT_COLUMNS
+        .iter()
+        .map(|(c, _, _)| {
+            if *c == "run_at" {
+                "CURRENT_TIMESTAMP".to_string()
+            } else {
+                next += 1;
+                format!("${next}")
+            }
+        })
+        .collect();
+    let names: Vec<&str> = RESULT_COLUMNS.iter().map(|c| c.0).collect();
+    Ok(ResultsSql {
+        create: checked(
+            d,
+            format!("CREATE TABLE IF NOT EXISTS {name} ({})", cols.join(", ")),
+        )?,
+        delete: checked(d, format!("DELETE FROM {name} WHERE run_key = $1"))?,
+        insert: checked(
+            d,
+            format!(
+                "INSERT INTO {name} ({}) VALUES ({})",
+                names.join(", "),
+                values.join(", ")
+            ),
+        )?,
+    })
+}
+
+/// The schema file `sql/results.sql`: the create statement for `upshot_results`, one column
+/// per line with its meaning.
+pub fn results_schema_file() -> String {
+    let mut out = String::from(
+        "-- The results table of `upshot run --into upshot_results` (DuckDB types).\n-- Generated from upshot-sql's RESULT_COLUMNS; a test keeps it in step.\nCREATE TABLE IF NOT EXISTS upshot_results (\n",
+    );
+    for (i, (c, t, what)) in RESULT_COLUMNS.iter().enumerate() {
+        let comma = if i + 1 < RESULT_COLUMNS.len() {
+            ","
+        } else {
+            ""
+        };
+        out.push_str(&format!("  {c} {t}{comma} -- {what}\n"));
+    }
+    out.push_str(");\n");
+    out
+}
