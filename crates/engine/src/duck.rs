@@ -86,6 +86,23 @@ impl DuckDbEngine {
         }
     }
 
+    /// Runs a query of upshot's own (tests, benchmarks) and returns its first cell as a number.
+    pub fn query_number(&self, sql: &str) -> Result<f64, EngineError> {
+        let batches = self.query("query", sql)?;
+        cells("query", &batches)?
+            .rows
+            .first()
+            .and_then(|r| r.first())
+            .and_then(|c| match c {
+                Cell::Number(x) => Some(*x),
+                _ => None,
+            })
+            .ok_or_else(|| EngineError::Query {
+                pass: "query".into(),
+                message: "no number in the first cell".into(),
+            })
+    }
+
     fn query(&self, name: &str, sql: &str) -> Result<Vec<RecordBatch>, EngineError> {
         let err = |e: duckdb::Error| EngineError::Query {
             pass: name.to_string(),

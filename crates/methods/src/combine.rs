@@ -161,11 +161,11 @@ pub(crate) fn finish(s: &Setup, parts: Vec<Part>) -> Vec<Estimate> {
     out
 }
 
+/// A segment's key values and the result rows that belong to it.
+pub(crate) type Grouped = (Vec<KeyValue>, Vec<usize>);
+
 /// Groups the rows of a result by their first `n` keys, in order of appearance.
-pub(crate) fn by_segment(
-    a: &Aggregates,
-    n: usize,
-) -> Result<Vec<(Vec<KeyValue>, Vec<usize>)>, MethodError> {
+pub(crate) fn by_segment(a: &Aggregates, n: usize) -> Result<Vec<Grouped>, MethodError> {
     let mut out: Vec<(Vec<KeyValue>, Vec<usize>)> = Vec::new();
     for row in 0..a.rows.len() {
         let k = keys(a, row, n)?;

@@ -14,7 +14,7 @@ use crate::{ask, Estimate, MethodError, Outcome, Runner};
 use upshot_fit::{logit_many, LogitSums, Moments, NewtonOptions};
 use upshot_sql::{
     augmented_sums, design_gram, logistic_fits, Aggregates, Design, Fold, Key, KeyValue, Model,
-    Models, Pass, Selector, Target, Variants,
+    Models, Nuisances, Pass, Selector, Target, Variants,
 };
 
 /// Folds actually used (1 when cross-fitting is off).
@@ -142,11 +142,13 @@ fn scores_pass(s: &Setup, e: &Models, m1: &Models, m0: &Models) -> Result<Pass, 
         &spec.source,
         s.filter.as_ref(),
         &row_design(s),
-        e,
-        m1,
-        m0,
-        spec.target,
-        spec.clip,
+        &Nuisances {
+            propensity: e,
+            treated: m1,
+            control: m0,
+            target: spec.target,
+            clip: spec.clip,
+        },
     )?)
 }
 
@@ -167,6 +169,9 @@ pub(crate) fn passes(s: &Setup) -> Result<Vec<Pass>, MethodError> {
     ])
 }
 
+/// A segment's key values and, per held-out fold, the moments of each arm outside the fold.
+pub(crate) type Complements = (Vec<KeyValue>, Vec<[Option<Moments>; 2]>);
+
 /// Per segment, per held-out fold: the moments of the rows outside that fold (all rows when
 /// cross-fitting is off), for each group value of the last key when `by_arm`.
 pub(crate) fn complement_moments(
@@ -175,7 +180,7 @@ pub(crate) fn complement_moments(
     names: &[String],
     terms: &[upshot_sql::DesignTerm],
     by_arm: bool,
-) -> Result<Vec<(Vec<KeyValue>, Vec<[Option<Moments>; 2]>)>, MethodError> {
+) -> Result<Vec<Complements>, MethodError> {
     let nseg = s.spec.segments.len();
     let k = folds(s) as usize;
     let crossfit = needs_folds(s.spec);

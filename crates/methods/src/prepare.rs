@@ -107,6 +107,16 @@ pub(crate) fn needs_folds(spec: &Spec) -> bool {
     spec.folds > 1 && matches!(spec.method, Estimator::DoublyRobust | Estimator::PartialOut)
 }
 
+/// The adjustment columns that enter models or strata: the adjustment set minus the segment
+/// columns (constant within a segment; grouping by them already adjusts for them).
+pub(crate) fn modelled(spec: &Spec) -> Vec<String> {
+    spec.adjust
+        .iter()
+        .filter(|c| !spec.segments.contains(c))
+        .cloned()
+        .collect()
+}
+
 /// Whether `name` is one-hot encoded: a non-numeric column, or one declared categorical.
 pub(crate) fn is_categorical(spec: &Spec, name: &str) -> bool {
     spec.categorical.iter().any(|c| c == name)
@@ -231,10 +241,9 @@ pub(crate) fn categorical_covariates(spec: &Spec) -> Vec<String> {
     if spec.method == Estimator::Stratify {
         return vec![];
     }
-    spec.adjust
-        .iter()
+    modelled(spec)
+        .into_iter()
         .filter(|c| is_categorical(spec, c))
-        .cloned()
         .collect()
 }
 
@@ -393,7 +402,7 @@ pub(crate) fn covariate_terms(
     let mut terms = Vec::new();
     let mut names = Vec::new();
     let mut numeric_base = Vec::new();
-    for c in &spec.adjust {
+    for c in &modelled(spec) {
         if let Some((_, lv)) = levels_of.iter().find(|(n, _)| n == c) {
             if lv.len() < 2 {
                 return Err(MethodError::Input(format!(

@@ -14,7 +14,7 @@ pub const MANY_CELLS: usize = 1000;
 pub(crate) fn passes(s: &Setup) -> Result<Vec<Pass>, MethodError> {
     let spec = s.spec;
     let mut keys = spec.segments.clone();
-    keys.extend(spec.adjust.iter().cloned());
+    keys.extend(crate::prepare::modelled(spec));
     keys.push(spec.treatment.clone());
     Ok(vec![cells(
         spec.dialect,
@@ -43,7 +43,7 @@ impl Arm {
 
 pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError> {
     let spec = s.spec;
-    for c in &spec.adjust {
+    for c in &crate::prepare::modelled(spec) {
         if let Some(p) = s.column(c) {
             if p.mean.is_some() && !spec.categorical.contains(c) && p.distinct > MAX_STRATUM_VALUES
             {
@@ -56,7 +56,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     }
     let a = ask(r, &passes(s)?[0])?;
     let nseg = spec.segments.len();
-    let nadj = spec.adjust.len();
+    let nadj = crate::prepare::modelled(spec).len();
     let mut out = Outcome {
         estimates: vec![],
         diagnostics: Default::default(),

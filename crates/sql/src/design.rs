@@ -634,6 +634,21 @@ pub fn weighting_sums(
     })
 }
 
+/// The nuisance models of the augmented score pass and what it targets.
+#[derive(Clone, Copy, Debug)]
+pub struct Nuisances<'a> {
+    /// The propensity model(s).
+    pub propensity: &'a Models,
+    /// The treated arm's outcome model(s).
+    pub treated: &'a Models,
+    /// The control arm's outcome model(s).
+    pub control: &'a Models,
+    /// The estimand.
+    pub target: Target,
+    /// Propensities are clipped to `[clip, 1 - clip]`.
+    pub clip: f64,
+}
+
 /// The augmented (doubly robust) score pass: with each row's cross-fitted propensity and arm
 /// outcome models inlined, per group `n`, `n1` (treated rows), `sn = Σ num`, `snn = Σ num²`,
 /// `sdn = Σ d·num`, `sd = Σ d` and clipped-row counts, where `num` is the row's score and
@@ -643,12 +658,15 @@ pub fn augmented_sums(
     source: &Source,
     filter: Option<&Expr>,
     design: &Design,
-    propensity: &Models,
-    treated: &Models,
-    control: &Models,
-    target: Target,
-    clip: f64,
+    models: &Nuisances,
 ) -> Result<Pass, SqlError> {
+    let Nuisances {
+        propensity,
+        treated,
+        control,
+        target,
+        clip,
+    } = *models;
     let mut t = Text::new();
     let rows = design.rows(&mut t, d)?;
     let k = design.terms.len();

@@ -26,8 +26,8 @@ mod template;
 
 pub use design::{
     augmented_sums, design_gram, design_residuals, fold_of, levels, logistic_fits,
-    partial_out_sums, weighting_sums, Design, Fold, Key, KeyValue, Model, Models, Selector, Target,
-    Variants, FOLD_PRIME,
+    partial_out_sums, weighting_sums, Design, Fold, Key, KeyValue, Model, Models, Nuisances,
+    Selector, Target, Variants, FOLD_PRIME,
 };
 pub use dialect::{dialect_by_name, Dialect, DuckDb, Postgres, DIALECTS};
 pub use error::SqlError;

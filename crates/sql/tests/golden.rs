@@ -10,8 +10,8 @@ use std::path::PathBuf;
 use upshot_sql::{
     augmented_sums, cells, dialect_by_name, gram, levels, logistic_fits, logistic_step,
     parse_filter, partial_out_sums, profile, residual_moments, weighting_sums, Design, DesignTerm,
-    Dialect, Fold, Key, KeyValue, Model, Models, Pass, ProfileColumn, Selector, Source, SqlError,
-    Target, Variants, DIALECTS,
+    Dialect, Fold, Key, KeyValue, Model, Models, Nuisances, Pass, ProfileColumn, Selector, Source,
+    SqlError, Target, Variants, DIALECTS,
 };
 
 /// A cross-fitting design: segment and fold keys, one numeric and one squared term, the
@@ -111,11 +111,13 @@ fn method_passes(d: &dyn Dialect) -> Vec<(String, Pass)> {
                 &src,
                 None,
                 &design,
-                &fold_models(0.0),
-                &fold_models(50.0),
-                &fold_models(40.0),
-                Target::Att,
-                0.01,
+                &Nuisances {
+                    propensity: &fold_models(0.0),
+                    treated: &fold_models(50.0),
+                    control: &fold_models(40.0),
+                    target: Target::Att,
+                    clip: 0.01,
+                },
             )
             .unwrap(),
         ),

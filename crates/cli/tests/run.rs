@@ -1,0 +1,631 @@
+//! End-to-end tests of `upshot plan` and `upshot run` on the committed demo sample: every
+//! method runs, recovers the demo's true effect within its interval (simulation truth from the
+//! generator), bad input exits 2 with a message naming the column or value and writes nothing,
+//! and `--into` is atomic and idempotent.
+
+use serde_json::Value;
+use std::path::{Path, PathBuf};
+use std::process::{Command, Output};
+use upshot_engine::{DuckDbEngine, Engine};
+
+fn repo() -> PathBuf {
+    Path::new(env!("CARGO_MANIFEST_DIR")).join("../..")
+}
+
+fn upshot(args: &[&str]) -> Output {
+    Command::new(env!("CARGO_BIN_EXE_upshot"))
+        .args(args)
+        .current_dir(repo())
+        .output()
+        .expect("binary runs")
+}
+
+fn text(o: &Output) -> String {
+    format!(
+        "{}{}",
+        String::from_utf8_lossy(&o.stdout),
+        String::from_utf8_lossy(&o.stderr)
+    )
+}
+
+fn json(args: &[&str]) -> Value {
+    let mut a = args.to_vec();
+    a.extend(["--format", "json"]);
+    let out = upshot(&a);
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out));
+    serde_json::from_slice(&out.stdout).unwrap_or_else(|e| panic!("{e}: {}", text(&out)))
+}
+
+/// Runs and expects exit `code`, a message containing every `needle`, and nothing on stdout.
+fn fails(args: &[&str], code: i32, needles: &[&str]) {
+    let out = upshot(args);
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(code), "{args:?}: {}", text(&out));
+    for n in needles {
+        assert!(err.contains(n), "{args:?}: `{n}` not in: {err}");
+    }
+    assert!(out.stdout.is_empty(), "{args:?} printed: {}", text(&out));
+}
+
+const SAMPLE: &str = "demo-data/sample/customers.csv";
+const GRAPH: &str = "demo-data/voucher.graph";
+
+fn truth() -> Value {
+    let t = std::fs::read_to_string(repo().join("demo-data/sample/customers.truth.json")).unwrap();
+    serde_json::from_str(&t).unwrap()
+}
+
+/// A scratch DuckDB file with the sample as table `customers` plus columns for bad-input cases.
+fn scratch(name: &str) -> PathBuf {
+    let dir = std::env::temp_dir().join(format!("upshot-run-{}-{name}", std::process::id()));
+    let _ = std::fs::remove_dir_all(&dir);
+    std::fs::create_dir_all(&dir).unwrap();
+    let db = dir.join("demo.duckdb");
+    let e = DuckDbEngine::open(db.to_str().unwrap(), true).unwrap();
+    let csv = repo().join(SAMPLE);
+    e.execute_batch(&format!(
+        "CREATE TABLE customers AS SELECT *, prior_orders * 2 + 1 AS orders_doubled, \
+         prior_orders + 100 * voucher AS leak, customer_id % 700 AS cell_id, \
+         CASE WHEN customer_id % 10 = 0 THEN NULL ELSE household_size END AS household_gappy, \
+         CAST(NULL AS DOUBLE) AS empty_col, spend_30d AS \"spend 30d\", zone AS \"select\", \
+         prior_orders AS \"say \"\"hi\"\"\" FROM read_csv_auto('{}');
+         CREATE TABLE new_untreated AS SELECT * REPLACE (CASE WHEN tenure_band = 'new' THEN 0 ELSE voucher END AS voucher) FROM customers;",
+        csv.display()
+    ))
+    .unwrap();
+    db
+}
+
+#[test]
+fn every_method_recovers_the_demo_truth_within_its_interval() {
+    // Simulation truth: the generator's effect for the sampled rows (truth file, spend_30d).
+    let t = truth();
+    let want = |k: &str| {
+        t["outcomes"]["spend_30d"][k]
+            .as_f64()
+            .unwrap_or_else(|| panic!("{k} in {t}"))
+    };
+    for (method, estimand, key) in [
+        ("regress", "ATE", "ate"),
+        ("weight", "ATE", "ate"),
+        ("doubly-robust", "ATE", "ate"),
+        ("partial-out", "ATE", "ate"),
+        ("doubly-robust", "ATT", "att"),
+        ("regress", "ATC", "atc"),
+    ] {
+        let v = json(&[
+            "run",
+            "--graph",
+            GRAPH,
+            "--source",
+            SAMPLE,
+            "--treatment",
+            "voucher",
+            "--outcome",
+            "spend_30d",
+            "--method",
+            method,
+            "--estimand",
+            estimand,
+            "--unit",
+            "customer_id",
+        ]);
+        let e = &v["estimates"][0];
+        let (lo, hi) = (
+            e["ci_low"].as_f64().unwrap(),
+            e["ci_high"].as_f64().unwrap(),
+        );
+        let truth = want(key);
+        assert!(
+            lo <= truth && truth <= hi,
+            "{method} {estimand}: [{lo}, {hi}] misses {truth}"
+        );
+        for k in [
+            "question",
+            "segment",
+            "estimand",
+            "method",
+            "estimate",
+            "std_error",
+            "n_treated",
+            "n_control",
+            "adjustment_set",
+        ] {
+            assert!(!e[k].is_null(), "{method}: {k} missing in {e}");
+        }
+        assert_eq!(e["method"], method);
+    }
+    // Stratify needs discrete strata: the minimal set {prior_orders, zone} is discrete.
+    let v = json(&[
+        "run",
+        "--graph",
+        GRAPH,
+        "--source",
+        SAMPLE,
+        "--treatment",
+        "voucher",
+        "--outcome",
+        "spend_30d",
+        "--method",
+        "stratify",
+        "--adjust",
+        "prior_orders,zone",
+    ]);
+    let e = &v["estimates"][0];
+    let truth = want("ate");
+    assert!(
+        e["ci_low"].as_f64().unwrap() <= truth && truth <= e["ci_high"].as_f64().unwrap(),
+        "{e}"
+    );
+}
+
+#[test]
+fn segments_give_one_row_each_plus_all() {
+    let v = json(&[
+        "run",
+        "demo-data/voucher-backdoor.toml",
+        "--question",
+        "spend",
+        "--method",
+        "regress",
+    ]);
+    let est = v["estimates"].as_array().unwrap();
+    assert_eq!(est[0]["segment"], "all");
+    let bands: Vec<&str> = est[1..]
+        .iter()
+        .map(|e| e["segment_values"]["tenure_band"].as_str().unwrap())
+        .collect();
+    assert_eq!(bands.len(), 3, "{bands:?}");
+    let t = truth();
+    for e in &est[1..] {
+        let band = e["segment_values"]["tenure_band"].as_str().unwrap();
+        let truth = t["outcomes"]["spend_30d"]["cate_by_tenure_band"][band]
+            .as_f64()
+            .unwrap();
+        let (lo, hi) = (
+            e["ci_low"].as_f64().unwrap(),
+            e["ci_high"].as_f64().unwrap(),
+        );
+        assert!(
+            lo <= truth && truth <= hi,
+            "{band}: [{lo}, {hi}] misses {truth}"
+        );
+    }
+}
+
+#[test]
+fn plan_lists_the_passes_run_executes() {
+    for method in [
+        "stratify",
+        "regress",
+        "weight",
+        "doubly-robust",
+        "partial-out",
+    ] {
+        let adjust = if method == "stratify" {
+            "prior_orders,zone"
+        } else {
+            "household_size,prior_orders,zone"
+        };
+        let args = [
+            "--graph",
+            GRAPH,
+            "--source",
+            SAMPLE,
+            "--treatment",
+            "voucher",
+            "--outcome",
+            "spend_30d",
+            "--method",
+            method,
+            "--adjust",
+            adjust,
+            "--unit",
+            "customer_id",
+        ];
+        let mut p = vec!["plan"];
+        p.extend(args);
+        let plan = json(&p);
+        let planned: Vec<String> = plan["questions"][0]["passes"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|x| x["name"].as_str().unwrap().to_string())
+            .collect();
+        let mut r = vec!["run"];
+        r.extend(args);
+        let run = json(&r);
+        let passes = run["questions"][0]["diagnostics"]["passes"]
+            .as_u64()
+            .unwrap() as usize;
+        let iterative = planned.iter().filter(|n| *n == "logistic-step").count();
+        if iterative == 0 {
+            assert_eq!(passes, planned.len(), "{method}: plan {planned:?}");
+        } else {
+            assert!(
+                passes > planned.len(),
+                "{method}: {passes} passes, plan {planned:?}"
+            );
+        }
+        let out = upshot(
+            &p.iter()
+                .copied()
+                .filter(|a| *a != "--format")
+                .collect::<Vec<_>>(),
+        );
+        let s = String::from_utf8_lossy(&out.stdout);
+        assert!(s.contains("-- pass 1: profile"), "{s}");
+        assert!(s.contains("SELECT"), "{s}");
+    }
+    let pg = upshot(&[
+        "plan",
+        "--graph",
+        GRAPH,
+        "--source",
+        SAMPLE,
+        "--treatment",
+        "voucher",
+        "--outcome",
+        "spend_30d",
+        "--method",
+        "weight",
+        "--dialect",
+        "postgres",
+    ]);
+    assert!(
+        String::from_utf8_lossy(&pg.stdout).contains("DOUBLE PRECISION"),
+        "{}",
+        text(&pg)
+    );
+}
+
+#[test]
+fn csv_output_has_the_documented_columns() {
+    let out = upshot(&[
+        "run",
+        "--graph",
+        GRAPH,
+        "--source",
+        SAMPLE,
+        "--treatment",
+        "voucher",
+        "--outcome",
+        "spend_30d",
+        "--method",
+        "regress",
+        "--format",
+        "csv",
+    ]);
+    let s = String::from_utf8_lossy(&out.stdout);
+    assert!(s.starts_with("question,segment,estimand,method,estimate,std_error,ci_low,ci_high,n_treated,n_control,n_used,adjustment_set\n"), "{s}");
+    assert_eq!(s.lines().count(), 2, "{s}");
+}
+
+#[test]
+fn bad_input_is_refused_with_the_column_or_value_named() {
+    let db = scratch("bad");
+    let db = db.to_str().unwrap();
+    let base = |t: &str, y: &str, m: &str| -> Vec<String> {
+        [
+            "run",
+            "--db",
+            db,
+            "--source",
+            "customers",
+            "--graph",
+            "",
+            "--treatment",
+            t,
+            "--outcome",
+            y,
+            "--method",
+            m,
+        ]
+        .iter()
+        .map(|s| s.to_string())
+        .collect()
+    };
+    let run = |mut a: Vec<String>, graph: &str, extra: &[&str], code: i32, needles: &[&str]| {
+        a[6] = graph.to_string();
+        a.extend(extra.iter().map(|s| s.to_string()));
+        let refs: Vec<&str> = a.iter().map(|s| s.as_str()).collect();
+        fails(&refs, code, needles);
+    };
+    let g = "prior_orders, zone -> voucher; prior_orders, zone, voucher -> spend_30d";
+    // unknown table
+    fails(
+        &[
+            "run",
+            "--db",
+            db,
+            "--source",
+            "no_such_table",
+            "--graph",
+            g,
+            "--treatment",
+            "voucher",
+            "--outcome",
+            "spend_30d",
+        ],
+        2,
+        &["no_such_table"],
+    );
+    // unknown column, with a suggestion
+    run(
+        base("vouchr", "spend_30d", "regress"),
+        "prior_orders -> vouchr -> spend_30d; prior_orders -> spend_30d",
+        &[],
+        2,
+        &["no column `vouchr`", "did you mean `voucher`"],
+    );
+    // treatment not 0/1 for a binary method
+    run(
+        base("household_size", "spend_30d", "weight"),
+        "prior_orders -> household_size -> spend_30d; prior_orders -> spend_30d",
+        &[],
+        2,
+        &["`household_size`", "0/1"],
+    );
+    // constant treatment
+    run(
+        base("voucher", "spend_30d", "regress"),
+        g,
+        &["--filter", "voucher = 1"],
+        2,
+        &["treatment `voucher` is constant"],
+    );
+    // an arm with no rows in a segment
+    fails(
+        &[
+            "run",
+            "--db",
+            db,
+            "--source",
+            "new_untreated",
+            "--graph",
+            "prior_orders, zone -> voucher; prior_orders, zone, voucher, tenure_band -> spend_30d",
+            "--treatment",
+            "voucher",
+            "--outcome",
+            "spend_30d",
+            "--method",
+            "regress",
+            "--segment-by",
+            "tenure_band",
+        ],
+        2,
+        &["tenure_band=new has no treated rows"],
+    );
+    // outcome not numeric
+    run(
+        base("voucher", "zone", "regress"),
+        "prior_orders -> voucher -> zone; prior_orders -> zone",
+        &[],
+        2,
+        &["outcome `zone` is not numeric"],
+    );
+    // all rows NULL in a used column
+    run(
+        base("voucher", "spend_30d", "regress"),
+        "empty_col, prior_orders -> voucher -> spend_30d; empty_col, prior_orders -> spend_30d",
+        &[],
+        2,
+        &["no usable rows", "`empty_col` 5000 NULL"],
+    );
+    // empty source
+    run(
+        base("voucher", "spend_30d", "regress"),
+        g,
+        &["--filter", "1 = 0"],
+        2,
+        &["no rows"],
+    );
+    // perfectly collinear covariates
+    run(base("voucher", "spend_30d", "regress"), "prior_orders, orders_doubled -> voucher -> spend_30d; prior_orders, orders_doubled -> spend_30d", &[], 2, &["collinear", "`orders_doubled`", "`prior_orders`"]);
+    // perfect separation / propensities at 0 and 1
+    run(
+        base("voucher", "spend_30d", "weight"),
+        "leak -> voucher -> spend_30d; leak -> spend_30d",
+        &[],
+        2,
+        &["separation", "`leak`", "positivity"],
+    );
+    // a continuous stratum column
+    run(
+        base("voucher", "spend_30d", "stratify"),
+        "cell_id -> voucher -> spend_30d; cell_id -> spend_30d",
+        &[],
+        2,
+        &["`cell_id` has about", "--method regress"],
+    );
+    // NULLs with --on-null error
+    run(
+        base("voucher", "spend_30d", "regress"),
+        "household_gappy -> voucher -> spend_30d; household_gappy -> spend_30d",
+        &["--on-null", "error"],
+        2,
+        &["500 of 5000 rows", "`household_gappy` 500 NULL"],
+    );
+    // a filter that is not one expression; a source that is not one SELECT
+    run(
+        base("voucher", "spend_30d", "regress"),
+        g,
+        &["--filter", "1; DROP TABLE customers"],
+        2,
+        &["one SQL expression"],
+    );
+    fails(
+        &[
+            "run",
+            "--db",
+            db,
+            "--source",
+            "SELECT * FROM customers; DROP TABLE customers",
+            "--graph",
+            g,
+            "--treatment",
+            "voucher",
+            "--outcome",
+            "spend_30d",
+        ],
+        2,
+        &["one SELECT"],
+    );
+    // the table survived all of it
+    let e = DuckDbEngine::open(db, false).unwrap();
+    assert_eq!(
+        e.columns(&upshot_sql::Source::table("customers").unwrap())
+            .unwrap()
+            .len(),
+        18
+    );
+}
+
+#[test]
+fn many_cells_warn_and_nulls_are_counted() {
+    let db = scratch("cells");
+    let db = db.to_str().unwrap();
+    let out = upshot(&[
+        "run",
+        "--db",
+        db,
+        "--source",
+        "customers",
+        "--graph",
+        "cell_id: categorical; cell_id -> voucher -> spend_30d; cell_id -> spend_30d",
+        "--treatment",
+        "voucher",
+        "--outcome",
+        "spend_30d",
+        "--method",
+        "stratify",
+    ]);
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out));
+    let s = text(&out);
+    assert!(s.contains("warning: the cell table has 1400 cells"), "{s}");
+    assert!(s.contains("doubly-robust"), "{s}");
+    let v = json(&[
+        "run",
+        "--db",
+        db,
+        "--source",
+        "customers",
+        "--graph",
+        "household_gappy -> voucher -> spend_30d; household_gappy -> spend_30d",
+        "--treatment",
+        "voucher",
+        "--outcome",
+        "spend_30d",
+        "--method",
+        "regress",
+    ]);
+    let d = &v["questions"][0]["diagnostics"];
+    assert_eq!(d["rows_excluded_null"], 500.0, "{d}");
+    assert_eq!(v["estimates"][0]["n_used"], 4500.0);
+}
+
+#[test]
+fn quoted_identifiers_work() {
+    let db = scratch("quoted");
+    let db = db.to_str().unwrap();
+    let v = json(&["run", "--db", db, "--source", "customers", "--graph", "\"say \\\"hi\\\"\", \"select\" -> voucher -> \"spend 30d\"; \"say \\\"hi\\\"\", \"select\" -> \"spend 30d\"", "--treatment", "voucher", "--outcome", "spend 30d", "--method", "doubly-robust", "--unit", "customer_id"]);
+    let e = &v["estimates"][0];
+    let plain = json(&[
+        "run",
+        "--db",
+        db,
+        "--source",
+        "customers",
+        "--graph",
+        "prior_orders, zone -> voucher -> spend_30d; prior_orders, zone -> spend_30d",
+        "--treatment",
+        "voucher",
+        "--outcome",
+        "spend_30d",
+        "--method",
+        "doubly-robust",
+        "--unit",
+        "customer_id",
+    ]);
+    let p = &plain["estimates"][0];
+    assert!(
+        (e["estimate"].as_f64().unwrap() - p["estimate"].as_f64().unwrap()).abs() < 1e-9,
+        "{e} vs {p}"
+    );
+}
+
+fn count_rows(db: &str, table: &str, key: Option<&str>) -> f64 {
+    let e = DuckDbEngine::open(db, false).unwrap();
+    let sql = match key {
+        Some(k) => format!("SELECT COUNT(*) AS n FROM {table} WHERE run_key = '{k}'"),
+        None => format!("SELECT COUNT(*) AS n FROM {table}"),
+    };
+    e.query_number(&sql).unwrap()
+}
+
+#[test]
+fn into_appends_atomically_and_a_run_key_replaces() {
+    let db = scratch("into");
+    let db = db.to_str().unwrap();
+    let args = |extra: &[&str]| -> Vec<String> {
+        let mut a: Vec<String> = [
+            "run",
+            "demo-data/voucher-backdoor.toml",
+            "--db",
+            db,
+            "--source",
+            SAMPLE,
+            "--question",
+            "spend",
+            "--method",
+            "regress",
+            "--into",
+            "effects",
+        ]
+        .iter()
+        .map(|s| s.to_string())
+        .collect();
+        a.extend(extra.iter().map(|s| s.to_string()));
+        a
+    };
+    let go = |a: Vec<String>| {
+        let refs: Vec<&str> = a.iter().map(|s| s.as_str()).collect();
+        let o = upshot(&refs);
+        assert_eq!(o.status.code(), Some(0), "{}", text(&o));
+    };
+    go(args(&["--run-key", "daily-2026-12-01"]));
+    assert_eq!(count_rows(db, "effects", None), 4.0);
+    go(args(&["--run-key", "daily-2026-12-01"]));
+    assert_eq!(
+        count_rows(db, "effects", None),
+        4.0,
+        "same run key must replace"
+    );
+    go(args(&["--run-key", "daily-2026-12-02"]));
+    assert_eq!(count_rows(db, "effects", Some("daily-2026-12-02")), 4.0);
+    go(args(&[]));
+    assert_eq!(count_rows(db, "effects", None), 12.0);
+    // A failure inside the transaction writes nothing: a table of another shape.
+    let e = DuckDbEngine::open(db, true).unwrap();
+    e.execute_batch("CREATE TABLE other (x INTEGER); INSERT INTO other VALUES (1)")
+        .unwrap();
+    drop(e);
+    let mut bad = args(&["--run-key", "k"]);
+    bad[11] = "other".into();
+    let refs: Vec<&str> = bad.iter().map(|s| s.as_str()).collect();
+    let o = upshot(&refs);
+    assert_eq!(o.status.code(), Some(1), "{}", text(&o));
+    assert!(text(&o).contains("nothing was written"), "{}", text(&o));
+    assert_eq!(count_rows(db, "other", None), 1.0);
+    // Bad input before writing creates no table.
+    let mut bad = args(&["--method", "nonsense"]);
+    bad[11] = "never".into();
+    bad.retain(|a| a != "regress");
+    let pos = bad.iter().position(|a| a == "--method").unwrap();
+    bad.remove(pos);
+    let refs: Vec<&str> = bad.iter().map(|s| s.as_str()).collect();
+    let o = upshot(&refs);
+    assert_eq!(o.status.code(), Some(2), "{}", text(&o));
+    let e = DuckDbEngine::open(db, false).unwrap();
+    assert!(e.query_number("SELECT COUNT(*) FROM never").is_err());
+}
