@@ -320,6 +320,13 @@ def jtrain_checks(binary, tmp):
                    folds=1, extra=["--adjust", ",".join(covs3)])["estimates"][0]
         ok = -5.0 <= e["estimate"] <= 6.8
         check(ok, f"jtrain3 {method}: {e['estimate']} outside the accepted band [-5.0, 6.8]")
+        ref = {
+            "regress": lambda: ref_regress(j3, "train", "re78", covs3, set(), "ATT"),
+            "doubly-robust": lambda: ref_doubly_robust(j3, "train", "re78", covs3, set(), "ATT", 1, None, 0.01),
+            "partial-out": lambda: ref_partial_out(j3, "train", "re78", covs3, set(), 1, None),
+        }[method]
+        compare(f"jtrain3 {method} {e['estimand']} (statsmodels; propensities clipped at 0.01)",
+                (e["estimate"], e["std_error"]), ref(), 1e-3 * j3["re78"].std())
         if ok:
             print(f"ok jtrain3 {method} {e['estimand']} {e['estimate']:.3f} (95% CI {e['ci_low']:.2f} to {e['ci_high']:.2f}) in [-5.0, 6.8]; naive -15.2, experiment 1.794")
 

@@ -50,8 +50,8 @@ pub struct NewtonOptions {
     pub max_iterations: usize,
     /// Stop when every step is below `tolerance * (1 + |coef|)`.
     pub tolerance: f64,
-    /// A standardised coefficient beyond this, or fitted probabilities within `1e-12` of 0 or 1,
-    /// signals (quasi-)separation.
+    /// A standardised coefficient beyond this signals (quasi-)separation, as do fitted
+    /// probabilities within `1e-12` of 0 or 1 when the iterations run out.
     pub max_coefficient: f64,
 }
 
@@ -149,9 +149,12 @@ where
                 .zip(coef.iter())
                 .all(|(s, c)| (*scale * s).abs() <= opts.tolerance * (1.0 + c.abs()));
             let iteration = *iteration + 1;
+            // Diverging standardised coefficients signal separation; extreme fitted
+            // probabilities alone do not (a large sample can hold rows with tiny propensities),
+            // but they explain a fit that does not settle.
+            let extreme = sums.min_p < 1e-12 || sums.max_p > 1.0 - 1e-12;
             let separated = next[1..].iter().any(|c| c.abs() > opts.max_coefficient)
-                || sums.min_p < 1e-12
-                || sums.max_p > 1.0 - 1e-12;
+                || (extreme && !converged && iteration >= opts.max_iterations);
             *state = if separated {
                 let mut cols: Vec<(f64, String)> = next[1..]
                     .iter()
