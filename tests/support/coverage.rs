@@ -8,7 +8,8 @@
 //! error and the standard deviation of the estimates across replicates (their ratio should be
 //! near 1), and exits 1 if a method's ATE coverage falls outside [0.92, 0.98] (for 200
 //! replicates the binomial standard error of a 95% coverage is 1.5 points; the band is two of
-//! them, common practice for simulation checks).
+//! them, common practice for simulation checks). Runs with fewer than 200 replicates (the test
+//! suite's smoke run) print the table without the gate.
 //!
 //! `partial-out` estimates a variance-weighted effect, which equals the CATE within a band (the
 //! effect does not vary with the covariates there) but not the ATE across bands: its `all` row is
@@ -167,7 +168,7 @@ fn main() {
             sd,
             mse / sd
         );
-        if *method != Estimator::PartialOut && !(0.92..=0.98).contains(&ate) {
+        if replicates >= 200 && *method != Estimator::PartialOut && !(0.92..=0.98).contains(&ate) {
             bad = true;
         }
     }
