@@ -239,7 +239,7 @@ def demo_checks(binary, csv):
     covs_disc = ["prior_orders", "zone"]
     covs = ["household_size", "prior_orders", "tenure_band", "zone"]
     scale = 1e-3 * df[y].std()
-    name = os.path.basename(csv)
+    name = f"demo {len(df)} rows"
     for est in ("ATE", "ATT", "ATC"):
         got = upshot(binary, csv, graph, t, y, "stratify", est, extra=["--adjust", ",".join(covs_disc)])
         e = got["estimates"][0]
@@ -335,6 +335,10 @@ def main():
     binary, csv = sys.argv[1], sys.argv[2]
     demo_checks(binary, csv)
     with tempfile.TemporaryDirectory() as tmp:
+        # A second size: 20,000 rows from the demo generator (`upshot demo`), another seed.
+        subprocess.run([binary, "demo", "--out", os.path.join(tmp, "demo20k"), "--rows", "20000", "--seed", "7"],
+                       check=True, capture_output=True)
+        demo_checks(binary, os.path.join(tmp, "demo20k", "customers.csv"))
         jtrain_checks(binary, tmp)
     print(f"worst agreement: estimates rel {worst['estimate']:.1e}, standard errors rel {worst['std_error']:.1e}")
     print(f"{passed} passed, {failed} failed")
