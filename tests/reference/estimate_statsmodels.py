@@ -4,8 +4,9 @@ references computed here from the same rows.
 References (named beside each check):
 - statsmodels 0.15 OLS with HC1 covariances and Logit (maximum likelihood) fit the nuisance
   models; numpy applies the published estimator formulas to their fitted values:
-  * stratify: backdoor adjustment over strata (Pearl 2009, eq. 3.19) with the influence-function
-    variance of the saturated estimator (pandas groupby);
+  * stratify: backdoor adjustment over strata (Pearl 2009, eq. 3.19), variance from unbiased
+    cell variances (singleton cells: the arm's pooled within-stratum variance) plus the
+    sampling variance of the strata shares (pandas groupby);
   * regress: per-arm OLS, g-formula average of predictions; variance from statsmodels' HC1
     covariances plus the sampling variance of the covariate means;
   * weight: Hajek IPW (Lunceford & Davidian 2004); the variance is the sandwich of the stacked
@@ -78,9 +79,13 @@ def target_mask(t, estimand):
 
 
 def ref_stratify(df, t, y, covs, estimand):
-    g = df.groupby(covs + [t])[y].agg(["count", "mean", lambda s: s.var(ddof=0)])
-    g.columns = ["n", "m", "v"]
+    g = df.groupby(covs + [t])[y].agg(["count", "mean", lambda s: ((s - s.mean()) ** 2).sum()])
+    g.columns = ["n", "m", "ss"]
     g = g.unstack(t).dropna()
+    for a in (0, 1):
+        n, ss = g[("n", a)], g[("ss", a)]
+        pooled = ss[n > 1].sum() / (n[n > 1] - 1).sum()
+        g[("v", a)] = np.where(n > 1, ss / (n - 1).clip(lower=1), pooled)
     n0, n1 = g[("n", 0)], g[("n", 1)]
     size = {"ATE": n0 + n1, "ATT": n1, "ATC": n0}[estimand]
     w = size / size.sum()

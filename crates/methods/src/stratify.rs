@@ -1,5 +1,7 @@
 //! `stratify`: backdoor adjustment over discrete strata (Pearl 2009, eq. 3.19) from one cell
-//! table. Strata lacking an arm are excluded and reported with their row share.
+//! table. Strata lacking an arm are excluded and reported with their row share. Cell
+//! variances are unbiased (divisor n − 1); a cell with one row of an arm borrows that arm's pooled
+//! within-stratum variance.
 
 use crate::combine::{by_segment, finish, key_value, segment, segment_label, Part};
 use crate::prepare::Setup;
@@ -36,8 +38,32 @@ impl Arm {
     fn mean(&self) -> f64 {
         self.sy / self.n
     }
-    fn var(&self) -> f64 {
-        (self.syy / self.n - self.mean().powi(2)).max(0.0)
+    /// Within-cell sum of squared deviations.
+    fn ss(&self) -> f64 {
+        (self.syy - self.sy * self.sy / self.n).max(0.0)
+    }
+    /// Unbiased variance of the cell (divisor n - 1); a single-row cell borrows `pooled`.
+    fn var(&self, pooled: f64) -> f64 {
+        if self.n > 1.0 {
+            self.ss() / (self.n - 1.0)
+        } else {
+            pooled
+        }
+    }
+}
+
+/// The arm's pooled within-stratum variance over the strata with at least two of its rows.
+fn pooled(kept: &[&[Arm; 2]], arm: usize) -> f64 {
+    let (ss, df) = kept
+        .iter()
+        .filter(|a| a[arm].n > 1.0)
+        .fold((0.0, 0.0), |(ss, df), a| {
+            (ss + a[arm].ss(), df + a[arm].n - 1.0)
+        });
+    if df > 0.0 {
+        ss / df
+    } else {
+        0.0
     }
 }
 
@@ -128,12 +154,14 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
             .iter()
             .map(|a| size(a) / total * (a[1].mean() - a[0].mean()))
             .sum();
+        let (p0, p1) = (pooled(&kept, 0), pooled(&kept, 1));
         let var: f64 = kept
             .iter()
             .map(|a| {
                 let w = size(a) / total;
                 let t = a[1].mean() - a[0].mean();
-                w * w * (a[1].var() / a[1].n + a[0].var() / a[0].n) + w * (t - tau).powi(2) / total
+                w * w * (a[1].var(p1) / a[1].n + a[0].var(p0) / a[0].n)
+                    + w * (t - tau).powi(2) / total
             })
             .sum();
         let mut e = Estimate::new(spec, &segment(s, &seg_key), tau, var.sqrt());
