@@ -405,6 +405,8 @@ pub fn run_plan(a: Args) -> Result<i32, Failure> {
     #[derive(Serialize)]
     struct PlanDoc {
         question: String,
+        treatment: String,
+        outcome: String,
         method: &'static str,
         estimand: &'static str,
         adjustment_set: Vec<String>,
@@ -419,6 +421,8 @@ pub fn run_plan(a: Args) -> Result<i32, Failure> {
             plan(&r.spec).map_err(|e| Failure::input(format!("question `{}`: {e}", q.name)))?;
         docs.push(PlanDoc {
             question: r.question.clone(),
+            treatment: r.spec.treatment.clone(),
+            outcome: r.spec.outcome.clone(),
             method: r.spec.method.key(),
             estimand: upshot_methods::target_name(r.spec.target),
             adjustment_set: r.spec.adjust.clone(),
@@ -438,9 +442,11 @@ pub fn run_plan(a: Args) -> Result<i32, Failure> {
     let mut out = String::new();
     for doc in docs {
         out.push_str(&format!(
-            "-- question {}: {} of the treatment by method {}, adjusting for {{{}}} ({} SQL, plan {})\n",
+            "-- question {}: {} of {} on {} by method {}, adjusting for {{{}}} ({} SQL, plan {})\n",
             doc.question,
             doc.estimand,
+            doc.treatment,
+            doc.outcome,
             doc.method,
             doc.adjustment_set.join(", "),
             doc.dialect,
