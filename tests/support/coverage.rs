@@ -18,7 +18,7 @@
 //! effect does not vary with the covariates there) but not the ATE across bands: its `all` row is
 //! reported and not gated.
 //!
-//! Usage: coverage [--replicates 200] [--rows 2000] [--folds 5]
+//! Usage: coverage [--replicates 200] [--rows 2000] [--folds 5] [--clip-per-mille 10]
 
 use std::collections::BTreeMap;
 use upshot_engine::{DuckDbEngine, Engine, MEMORY};
@@ -49,6 +49,8 @@ fn main() {
     let replicates = arg("--replicates", 200);
     let rows = arg("--rows", 2000);
     let folds = arg("--folds", 5) as u32;
+    // Propensity clip in thousandths (default 10 = 0.01, the `run` default).
+    let clip = arg("--clip-per-mille", 10) as f64 / 1000.0;
     let dir = std::env::temp_dir().join(format!("upshot-coverage-{}", std::process::id()));
     std::fs::create_dir_all(&dir).expect("temp dir");
     let engine = DuckDbEngine::open(MEMORY, true).expect("in-memory DuckDB");
@@ -131,7 +133,7 @@ fn main() {
                 folds,
                 unit: Some("customer_id".into()),
                 on_null: NullPolicy::Exclude,
-                clip: 0.01,
+                clip,
                 categorical: vec!["zone".into(), "tenure_band".into(), "mail_wave".into()],
                 basis: Basis::default(),
                 columns: Some(columns.clone()),
