@@ -176,3 +176,19 @@ pub(crate) fn by_segment(a: &Aggregates, n: usize) -> Result<Vec<Grouped>, Metho
     }
     Ok(out)
 }
+
+/// The result row whose first keys are `key` (a segment, or a segment and an arm).
+pub(crate) fn row_of(a: &Aggregates, key: &[KeyValue]) -> Result<usize, MethodError> {
+    (0..a.rows.len())
+        .find(|&row| keys(a, row, key.len()).ok().as_deref() == Some(key))
+        .ok_or_else(|| MethodError::Engine(format!("the {} pass lost a group", a.pass)))
+}
+
+/// The size of the target population among `n` rows of which `n1` are treated.
+pub(crate) fn target_size(target: upshot_sql::Target, n: f64, n1: f64) -> f64 {
+    match target {
+        upshot_sql::Target::Ate => n,
+        upshot_sql::Target::Att => n1,
+        upshot_sql::Target::Atc => n - n1,
+    }
+}

@@ -6,7 +6,10 @@
 //! K propensity fits run side by side in the same Newton passes. The standard error comes
 //! from the influence function (the score's sample variance).
 
-use crate::combine::{by_segment, finish, keys, logit_sums, moments, segment, segment_label, Part};
+use crate::combine::{
+    by_segment, finish, keys, logit_sums, moments, row_of, segment, segment_label, target_size,
+    Part,
+};
 use crate::prepare::{needs_folds, Setup};
 use crate::regress::fit_arm;
 use crate::weight::{check_arms, param_names, propensity_error};
@@ -14,7 +17,7 @@ use crate::{ask, Estimate, MethodError, Outcome, Runner};
 use upshot_fit::{logit_many, LogitSums, Moments, NewtonOptions};
 use upshot_sql::{
     augmented_sums, design_gram, logistic_fits, Aggregates, Design, Fold, Key, KeyValue, Model,
-    Models, Nuisances, Pass, Selector, Target, Variants,
+    Models, Nuisances, Pass, Selector, Variants,
 };
 
 /// Folds actually used (1 when cross-fitting is off).
@@ -238,7 +241,6 @@ pub(crate) fn complement_moments(
 
 pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError> {
     let spec = s.spec;
-    let nseg = spec.segments.len();
     let p = s.terms.len();
     let k = folds(s) as usize;
     let mut names = s.term_names.clone();
@@ -285,11 +287,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
             let a = ask(r, &logistic_pass(s, &fold_models(s, &segs, &coef))?)?;
             let mut out: Vec<LogitSums> = Vec::new();
             for seg in &segs {
-                let row = (0..a.rows.len())
-                    .find(|&row| keys(&a, row, nseg).ok().as_ref() == Some(seg))
-                    .ok_or_else(|| {
-                        MethodError::Engine("the logistic pass lost a segment".into())
-                    })?;
+                let row = row_of(&a, seg)?;
                 for j in 0..k {
                     let prefix = if needs_folds(spec) {
                         format!("m{j}_")
@@ -338,9 +336,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     };
     let mut parts = Vec::new();
     for seg in &segs {
-        let row = (0..sc.rows.len())
-            .find(|&row| keys(&sc, row, nseg).ok().as_ref() == Some(seg))
-            .ok_or_else(|| MethodError::Engine("the scores pass lost a segment".into()))?;
+        let row = row_of(&sc, seg)?;
         let g = |n: &str| sc.number_or(row, n, 0.0);
         let (n, n1) = (sc.number(row, "n")?, g("n1")?);
         let (sn, snn, sdn, sd) = (g("sn")?, g("snn")?, g("sdn")?, g("sd")?);
@@ -366,11 +362,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
         e.n_treated = Some(n1);
         e.n_control = Some(n - n1);
         e.n_used = n;
-        let size = match spec.target {
-            Target::Ate => n,
-            Target::Att => n1,
-            Target::Atc => n - n1,
-        };
+        let size = target_size(spec.target, n, n1);
         parts.push(Part {
             estimate: e,
             target_size: size,

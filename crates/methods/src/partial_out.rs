@@ -7,7 +7,7 @@
 //! of `t` in the full regression (Frisch–Waugh–Lovell) and the standard error is its HC0 error.
 //! The treatment may be continuous.
 
-use crate::combine::{keys, segment, segment_label, Part};
+use crate::combine::{keys, row_of, segment, segment_label, Part};
 use crate::doubly_robust::{complement_moments, fold_gram_design, fold_models, folds, row_design};
 use crate::prepare::Setup;
 use crate::{ask, Estimate, MethodError, Outcome, Runner, Segment};
@@ -142,9 +142,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     };
     let mut seg_sums = Vec::new();
     for seg in &segs {
-        let row = (0..sc.rows.len())
-            .find(|&row| keys(&sc, row, nseg).ok().as_ref() == Some(seg))
-            .ok_or_else(|| MethodError::Engine("the scores pass lost a segment".into()))?;
+        let row = row_of(&sc, seg)?;
         let g = |n: &str| sc.number_or(row, n, 0.0);
         let sums = Sums {
             n: sc.number(row, "n")?,

@@ -6,7 +6,7 @@
 //! for `c̃ = (1, x̄)`, HC1 covariances `V`, and the target rows' covariate covariance `Σₓ`.
 
 use crate::combine::{
-    by_segment, finish, keys, moments, segment, segment_label, upper_matrix, Part,
+    by_segment, finish, keys, moments, row_of, segment, segment_label, upper_matrix, Part,
 };
 use crate::prepare::Setup;
 use crate::{ask, Estimate, MethodError, Outcome, Runner};
@@ -183,13 +183,9 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     for seg in segs {
         let mut cov = Vec::new();
         for a in 0..2 {
-            let row = (0..res.rows.len())
-                .find(|&row| {
-                    keys(&res, row, nseg + 1).ok().is_some_and(|k| {
-                        k[..nseg] == seg.key[..] && k[nseg] == KeyValue::Number(a as f64)
-                    })
-                })
-                .ok_or_else(|| MethodError::Engine("the residual pass lost a group".into()))?;
+            let mut group = seg.key.clone();
+            group.push(KeyValue::Number(a as f64));
+            let row = row_of(&res, &group)?;
             let meat = upper_matrix(&res, row, "r", p + 1)?;
             let x: Vec<usize> = (0..p).collect();
             cov.push(

@@ -9,7 +9,8 @@
 //! that the square of that influence function expands into.
 
 use crate::combine::{
-    by_segment, finish, keys, logit_sums, segment, segment_label, upper_matrix, vector, Part,
+    by_segment, finish, logit_sums, row_of, segment, segment_label, target_size, upper_matrix,
+    vector, Part,
 };
 use crate::prepare::Setup;
 use crate::{ask, Estimate, MethodError, Outcome, Runner};
@@ -173,7 +174,6 @@ pub(crate) fn check_arms(s: &Setup, key: &[KeyValue], n1: f64, n0: f64) -> Resul
 
 pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError> {
     let spec = s.spec;
-    let nseg = spec.segments.len();
     let k = s.terms.len() + 1;
     let (segs, fits) = fit_propensity(s, r)?;
     let coefs: Vec<Vec<f64>> = fits.iter().map(|f| f.coef.clone()).collect();
@@ -184,9 +184,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     };
     let mut parts = Vec::new();
     for (key, fit) in segs.iter().zip(&fits) {
-        let row = (0..w.rows.len())
-            .find(|&row| keys(&w, row, nseg).ok().as_ref() == Some(key))
-            .ok_or_else(|| MethodError::Engine("the weights pass lost a segment".into()))?;
+        let row = row_of(&w, key)?;
         let g = |n: &str| w.number_or(row, n, 0.0);
         let (n, n1) = (w.number(row, "n")?, g("n1")?);
         let (a1, b1, a0, b0) = (g("a1")?, g("b1")?, g("a0")?, g("b0")?);
@@ -240,11 +238,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
         e.n_treated = Some(n1);
         e.n_control = Some(n - n1);
         e.n_used = n;
-        let size = match spec.target {
-            upshot_sql::Target::Ate => n,
-            upshot_sql::Target::Att => n1,
-            upshot_sql::Target::Atc => n - n1,
-        };
+        let size = target_size(spec.target, n, n1);
         parts.push(Part {
             estimate: e,
             target_size: size,
