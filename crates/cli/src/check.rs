@@ -68,11 +68,13 @@ fn check_columns(study: &Study) -> Result<(), Failure> {
         .unwrap_or_default();
     let (source, what, location) = match (&study.source.rows, &study.source.database) {
         (Some(SourceKind::File(p)), db) => {
-            if !p.is_file() {
+            let shown = p.display().to_string();
+            let glob = upshot_sql::is_parquet(&shown) && shown.contains(['*', '?', '[']);
+            if !glob && !p.is_file() {
                 return Err(Failure::input(format!("{label}: [source].file: no file {}; fix the path (relative to the study file) or use --offline", p.display())));
             }
             (
-                upshot_sql::Source::Csv(p.display().to_string()),
+                upshot_sql::Source::file(&p.display().to_string()),
                 p.display().to_string(),
                 db.clone().unwrap_or_else(|| MEMORY.into()),
             )

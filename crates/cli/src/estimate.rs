@@ -144,17 +144,21 @@ fn source_of(
     });
     let file = |p: &Path| -> Result<(Source, String), Failure> {
         let shown = p.display().to_string();
-        if shown.to_lowercase().ends_with(".parquet") {
+        // A Parquet glob (`sales/part-*.parquet`) is checked by the engine, which names the
+        // pattern when nothing matches.
+        let glob = upshot_sql::is_parquet(&shown) && shown.contains(['*', '?', '[']);
+        if p.is_dir() {
             return Err(Failure::input(format!(
-                "source {shown}: Parquet files are not readable by this build; load the file into a DuckDB table (CREATE TABLE t AS SELECT * FROM '{shown}') and use --db and --source t"
+                "source: {shown} is a folder; name a file, or the folder's Parquet files as a pattern such as {}",
+                p.join("*.parquet").display()
             )));
         }
-        if !p.is_file() {
+        if !glob && !p.is_file() {
             return Err(Failure::input(format!(
                 "source: no file {shown}; fix the path (a study's paths are relative to the study file)"
             )));
         }
-        Ok((Source::Csv(shown.clone()), shown))
+        Ok((Source::file(&shown), shown))
     };
     let (source, label) = match &a.source {
         Some(s) => {
@@ -165,8 +169,9 @@ fn source_of(
                     "query".to_string(),
                 )
             } else if Path::new(s).is_file()
+                || (db.is_none() && Path::new(s).is_dir())
                 || head.ends_with(".csv")
-                || head.ends_with(".parquet")
+                || upshot_sql::is_parquet(&head)
             {
                 file(Path::new(s))?
             } else {

@@ -554,6 +554,90 @@ fn quoted_identifiers_work() {
     );
 }
 
+#[test]
+fn parquet_files_and_patterns_give_the_csv_estimate() {
+    // The same rows as Parquet — one file, and split over two files read by a pattern — must
+    // give the CSV's estimate and standard error.
+    let dir = std::env::temp_dir().join(format!("upshot-run-{}-parquet", std::process::id()));
+    let _ = std::fs::remove_dir_all(&dir);
+    std::fs::create_dir_all(dir.join("parts")).unwrap();
+    let e = DuckDbEngine::open(upshot_engine::MEMORY, true).unwrap();
+    let csv = repo().join(SAMPLE);
+    let one = dir.join("customers.parquet");
+    e.execute_batch(&format!(
+        "COPY (SELECT * FROM read_csv_auto('{csv}')) TO '{one}' (FORMAT parquet);
+         COPY (SELECT * FROM read_csv_auto('{csv}') WHERE customer_id % 2 = 0) TO '{a}' (FORMAT parquet);
+         COPY (SELECT * FROM read_csv_auto('{csv}') WHERE customer_id % 2 = 1) TO '{b}' (FORMAT parquet);",
+        csv = csv.display(),
+        one = one.display(),
+        a = dir.join("parts/part-0.parquet").display(),
+        b = dir.join("parts/part-1.parquet").display(),
+    ))
+    .unwrap();
+    let estimate = |source: &str| {
+        let v = json(&[
+            "run",
+            "--graph",
+            GRAPH,
+            "--source",
+            source,
+            "--treatment",
+            "voucher",
+            "--outcome",
+            "spend_30d",
+            "--method",
+            "doubly-robust",
+            "--unit",
+            "customer_id",
+        ]);
+        let e = &v["estimates"][0];
+        (
+            e["estimate"].as_f64().unwrap(),
+            e["std_error"].as_f64().unwrap(),
+        )
+    };
+    let want = estimate(SAMPLE);
+    let pattern = dir.join("parts/part-*.parquet");
+    for source in [one.display().to_string(), pattern.display().to_string()] {
+        let got = estimate(&source);
+        assert!(
+            (got.0 - want.0).abs() < 1e-9 * want.0.abs() && (got.1 - want.1).abs() < 1e-9 * want.1,
+            "{source}: {got:?} vs CSV {want:?}"
+        );
+    }
+    // A pattern that matches nothing, and a folder, are refused as input.
+    let none = dir.join("parts/nothing-*.parquet");
+    let out = upshot(&[
+        "run",
+        "--graph",
+        GRAPH,
+        "--source",
+        none.to_str().unwrap(),
+        "--treatment",
+        "voucher",
+        "--outcome",
+        "spend_30d",
+    ]);
+    assert_eq!(out.status.code(), Some(2), "{}", text(&out));
+    assert!(text(&out).contains("nothing-*.parquet"), "{}", text(&out));
+    fails(
+        &[
+            "run",
+            "--graph",
+            GRAPH,
+            "--source",
+            dir.join("parts").to_str().unwrap(),
+            "--treatment",
+            "voucher",
+            "--outcome",
+            "spend_30d",
+        ],
+        2,
+        &["is a folder", "*.parquet"],
+    );
+    let _ = std::fs::remove_dir_all(&dir);
+}
+
 fn count_rows(db: &str, table: &str, key: Option<&str>) -> f64 {
     let e = DuckDbEngine::open(db, false).unwrap();
     let sql = match key {

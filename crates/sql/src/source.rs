@@ -18,6 +18,9 @@ pub enum Source {
     Query(Box<Query>),
     /// A CSV file read by the engine (DuckDB's `read_csv_auto`); the path is a string literal.
     Csv(String),
+    /// A Parquet file (or a glob of them) read by the engine (DuckDB's `read_parquet`); the
+    /// path is a string literal.
+    Parquet(String),
 }
 
 impl Source {
@@ -30,6 +33,16 @@ impl Source {
             });
         }
         Ok(Source::Table(parts))
+    }
+
+    /// A file source chosen by the path's extension: `.parquet` (also `.parq`, `.pq`) is read as
+    /// Parquet, anything else as CSV.
+    pub fn file(path: &str) -> Source {
+        if is_parquet(path) {
+            Source::Parquet(path.to_string())
+        } else {
+            Source::Csv(path.to_string())
+        }
     }
 
     /// A user query, which must be exactly one SELECT (optionally with WITH) and nothing else.
@@ -71,6 +84,7 @@ impl Source {
                 Source::Table(_) => "SELECT 1 FROM t AS src",
                 Source::Query(_) => "SELECT 1 FROM (SELECT 1) AS src",
                 Source::Csv(_) => "SELECT 1 FROM read_csv_auto('file') AS src",
+                Source::Parquet(_) => "SELECT 1 FROM read_parquet('file') AS src",
             },
         )
         .expect("fixed text parses");
@@ -106,7 +120,7 @@ impl Source {
                     alias: a,
                     ..
                 },
-                Source::Csv(path),
+                Source::Csv(path) | Source::Parquet(path),
             ) => {
                 args.args = vec![FunctionArg::Unnamed(FunctionArgExpr::Expr(Expr::value(
                     Value::SingleQuotedString(path.clone()),
@@ -117,6 +131,14 @@ impl Source {
         }
         rel
     }
+}
+
+/// Whether a file path names Parquet data (by its extension, case-insensitive).
+pub fn is_parquet(path: &str) -> bool {
+    let lower = path.to_lowercase();
+    [".parquet", ".parq", ".pq"]
+        .iter()
+        .any(|ext| lower.ends_with(ext))
 }
 
 fn check_read_only(q: &Query) -> Result<(), SqlError> {

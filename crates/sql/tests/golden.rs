@@ -350,6 +350,19 @@ fn csv_sources_are_string_literals() {
 }
 
 #[test]
+fn parquet_sources_are_string_literals() {
+    let d = dialect_by_name("duckdb").unwrap();
+    let src = Source::file("data/part-*.PARQUET");
+    assert_eq!(src, Source::Parquet("data/part-*.PARQUET".into()));
+    assert_eq!(Source::file("a.csv"), Source::Csv("a.csv".into()));
+    let sql = upshot_sql::schema_probe(d, &src).unwrap().sql();
+    assert!(
+        sql.contains("read_parquet('data/part-*.PARQUET') AS src"),
+        "{sql}"
+    );
+}
+
+#[test]
 fn bad_numbers_are_refused() {
     let d = dialect_by_name("duckdb").unwrap();
     let src = Source::table("t").unwrap();
