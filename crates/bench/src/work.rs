@@ -1,0 +1,98 @@
+//! What one benchmark row estimates: a method, a design width and whether it is segmented.
+
+use serde::Serialize;
+use upshot_methods::Estimator;
+
+/// One benchmark workload on the benchmark table `customers`.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize)]
+pub struct Work {
+    /// The method.
+    #[serde(serialize_with = "method_key")]
+    pub method: Estimator,
+    /// Design width: 8 or 32 covariate columns (stratify uses its strata instead).
+    pub p: usize,
+    /// Grouped by the ten-level `region` column.
+    pub segments: bool,
+}
+
+fn method_key<S: serde::Serializer>(m: &Estimator, s: S) -> Result<S::Ok, S::Error> {
+    s.serialize_str(m.key())
+}
+
+/// Every method the benchmark measures, in report order.
+pub const METHODS: [Estimator; 5] = [
+    Estimator::Stratify,
+    Estimator::Regress,
+    Estimator::Weight,
+    Estimator::DoublyRobust,
+    Estimator::PartialOut,
+];
+
+/// The method with key `k`.
+pub fn method(k: &str) -> Option<Estimator> {
+    METHODS.into_iter().find(|m| m.key() == k)
+}
+
+/// Zone levels other than the reference (`Northgate`, the most frequent): the one-hot columns.
+pub fn zone_dummies() -> Vec<&'static str> {
+    upshot_demo::ZONES[1..].iter().map(|z| z.0).collect()
+}
+
+/// Cross-fitting folds of the fold-using methods.
+pub const FOLDS: u32 = 5;
+
+/// Propensity clip (upshot's default).
+pub const CLIP: f64 = 0.01;
+
+impl Work {
+    /// Numeric covariates: three demo columns (8 design columns with the five zone dummies), or
+    /// those and the 24 extra ones (32).
+    pub fn numeric(&self) -> Vec<String> {
+        let mut v: Vec<String> = ["household_size", "prior_orders", "mail_wave"]
+            .iter()
+            .map(|s| s.to_string())
+            .collect();
+        if self.p > 8 {
+            v.extend((0..crate::data::EXTRA).map(crate::data::extra));
+        }
+        v
+    }
+
+    /// Stratify's strata columns: prior orders (numeric, few values) and zone.
+    pub fn strata(&self) -> Vec<String> {
+        vec!["prior_orders".into(), "zone".into()]
+    }
+
+    /// The adjustment set handed to upshot.
+    pub fn adjust(&self) -> Vec<String> {
+        if self.method == Estimator::Stratify {
+            return self.strata();
+        }
+        let mut v = self.numeric();
+        v.push("zone".into());
+        v
+    }
+
+    /// Whether the method cross-fits.
+    pub fn folds(&self) -> u32 {
+        match self.method {
+            Estimator::DoublyRobust | Estimator::PartialOut => FOLDS,
+            _ => 1,
+        }
+    }
+
+    /// A short label: `regress p=8 seg`.
+    pub fn label(&self) -> String {
+        let p = if self.method == Estimator::Stratify {
+            "-".to_string()
+        } else {
+            self.p.to_string()
+        };
+        format!(
+            "{} p={} {}",
+            self.method.key(),
+            p,
+            if self.segments { "seg" } else { "all" }
+        )
+    }
+}
