@@ -172,6 +172,35 @@ pub(crate) fn passes(s: &Setup) -> Result<Vec<Pass>, MethodError> {
     ])
 }
 
+/// The rows of a fold-grouped pass that belong to segment `seg`, with their fold.
+fn rows_by_fold(a: &Aggregates, seg: &[KeyValue]) -> Result<Vec<(usize, usize)>, MethodError> {
+    let mut out = Vec::new();
+    for row in 0..a.rows.len() {
+        if keys(a, row, seg.len())?.as_slice() == seg {
+            out.push((a.number(row, "f")? as usize, row));
+        }
+    }
+    if out.is_empty() {
+        return Err(MethodError::Engine(format!(
+            "the {} pass lost a group",
+            a.pass
+        )));
+    }
+    Ok(out)
+}
+
+/// The sums of two disjoint sets of rows.
+fn add_logit_sums(a: LogitSums, b: &LogitSums) -> LogitSums {
+    LogitSums {
+        n: a.n + b.n,
+        score: a.score + &b.score,
+        information: a.information + &b.information,
+        loglik: a.loglik + b.loglik,
+        min_p: a.min_p.min(b.min_p),
+        max_p: a.max_p.max(b.max_p),
+    }
+}
+
 /// A segment's key values and, per held-out fold, the moments of each arm outside the fold.
 pub(crate) type Complements = (Vec<KeyValue>, Vec<[Option<Moments>; 2]>);
 
@@ -287,17 +316,31 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
             let a = ask(r, &logistic_pass(s, &fold_models(s, &segs, &coef))?)?;
             let mut out: Vec<LogitSums> = Vec::new();
             for seg in &segs {
-                let row = row_of(&a, seg)?;
+                if !needs_folds(spec) {
+                    out.push(logit_sums(&a, row_of(&a, seg)?, "", kp)?);
+                    continue;
+                }
+                // One row per fold of the segment; fit j adds up the rows of the other folds.
+                let rows = rows_by_fold(&a, seg)?;
                 for j in 0..k {
-                    let prefix = if needs_folds(spec) {
-                        format!("m{j}_")
-                    } else {
-                        String::new()
-                    };
-                    let mut sums = logit_sums(&a, row, &prefix, kp)?;
-                    if needs_folds(spec) {
-                        sums.n = f64::NAN;
+                    let mut total: Option<LogitSums> = None;
+                    for (f, row) in &rows {
+                        if *f == j {
+                            continue;
+                        }
+                        let x = logit_sums(&a, *row, &format!("m{j}_"), kp)?;
+                        total = Some(match total {
+                            None => x,
+                            Some(t) => add_logit_sums(t, &x),
+                        });
                     }
+                    let mut sums = total.ok_or_else(|| {
+                        MethodError::Input(format!(
+                            "{}: every row falls in fold {j}; use fewer folds (--folds) or more rows",
+                            segment_label(s, seg)
+                        ))
+                    })?;
+                    sums.n = f64::NAN;
                     out.push(sums);
                 }
             }

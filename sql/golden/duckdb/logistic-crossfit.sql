@@ -1,30 +1,31 @@
 SELECT
   k0,
+  f,
   COUNT(*) AS n,
-  SUM(CASE WHEN f <> 0 THEN (t - p0) ELSE 0.0 END) AS m0_u0,
-  SUM(CASE WHEN f <> 0 THEN (t - p0) * v0 ELSE 0.0 END) AS m0_u1,
-  SUM(CASE WHEN f <> 0 THEN (t - p0) * v1 ELSE 0.0 END) AS m0_u2,
-  SUM(CASE WHEN f <> 0 THEN p0 * (1.0 - p0) ELSE 0.0 END) AS m0_h0_0,
-  SUM(CASE WHEN f <> 0 THEN p0 * (1.0 - p0) * v0 ELSE 0.0 END) AS m0_h0_1,
-  SUM(CASE WHEN f <> 0 THEN p0 * (1.0 - p0) * v1 ELSE 0.0 END) AS m0_h0_2,
-  SUM(CASE WHEN f <> 0 THEN p0 * (1.0 - p0) * v0 * v0 ELSE 0.0 END) AS m0_h1_1,
-  SUM(CASE WHEN f <> 0 THEN p0 * (1.0 - p0) * v0 * v1 ELSE 0.0 END) AS m0_h1_2,
-  SUM(CASE WHEN f <> 0 THEN p0 * (1.0 - p0) * v1 * v1 ELSE 0.0 END) AS m0_h2_2,
-  SUM(CASE WHEN f <> 0 THEN t * eta0 - CASE WHEN eta0 > 0 THEN eta0 + LN(1.0 + EXP(-eta0)) ELSE LN(1.0 + EXP(eta0)) END ELSE 0.0 END) AS m0_loglik,
-  MIN(CASE WHEN f <> 0 THEN p0 END) AS m0_min_p,
-  MAX(CASE WHEN f <> 0 THEN p0 END) AS m0_max_p,
-  SUM(CASE WHEN f <> 1 THEN (t - p1) ELSE 0.0 END) AS m1_u0,
-  SUM(CASE WHEN f <> 1 THEN (t - p1) * v0 ELSE 0.0 END) AS m1_u1,
-  SUM(CASE WHEN f <> 1 THEN (t - p1) * v1 ELSE 0.0 END) AS m1_u2,
-  SUM(CASE WHEN f <> 1 THEN p1 * (1.0 - p1) ELSE 0.0 END) AS m1_h0_0,
-  SUM(CASE WHEN f <> 1 THEN p1 * (1.0 - p1) * v0 ELSE 0.0 END) AS m1_h0_1,
-  SUM(CASE WHEN f <> 1 THEN p1 * (1.0 - p1) * v1 ELSE 0.0 END) AS m1_h0_2,
-  SUM(CASE WHEN f <> 1 THEN p1 * (1.0 - p1) * v0 * v0 ELSE 0.0 END) AS m1_h1_1,
-  SUM(CASE WHEN f <> 1 THEN p1 * (1.0 - p1) * v0 * v1 ELSE 0.0 END) AS m1_h1_2,
-  SUM(CASE WHEN f <> 1 THEN p1 * (1.0 - p1) * v1 * v1 ELSE 0.0 END) AS m1_h2_2,
-  SUM(CASE WHEN f <> 1 THEN t * eta1 - CASE WHEN eta1 > 0 THEN eta1 + LN(1.0 + EXP(-eta1)) ELSE LN(1.0 + EXP(eta1)) END ELSE 0.0 END) AS m1_loglik,
-  MIN(CASE WHEN f <> 1 THEN p1 END) AS m1_min_p,
-  MAX(CASE WHEN f <> 1 THEN p1 END) AS m1_max_p
+  SUM((t - p0)) AS m0_u0,
+  SUM((t - p0) * v0) AS m0_u1,
+  SUM((t - p0) * v1) AS m0_u2,
+  SUM(p0 * (1.0 - p0)) AS m0_h0_0,
+  SUM(p0 * (1.0 - p0) * v0) AS m0_h0_1,
+  SUM(p0 * (1.0 - p0) * v1) AS m0_h0_2,
+  SUM(p0 * (1.0 - p0) * v0 * v0) AS m0_h1_1,
+  SUM(p0 * (1.0 - p0) * v0 * v1) AS m0_h1_2,
+  SUM(p0 * (1.0 - p0) * v1 * v1) AS m0_h2_2,
+  SUM(t * eta0 - CASE WHEN eta0 > 0 THEN eta0 + LN(1.0 + EXP(-eta0)) ELSE LN(1.0 + EXP(eta0)) END) AS m0_loglik,
+  MIN(p0) AS m0_min_p,
+  MAX(p0) AS m0_max_p,
+  SUM((t - p1)) AS m1_u0,
+  SUM((t - p1) * v0) AS m1_u1,
+  SUM((t - p1) * v1) AS m1_u2,
+  SUM(p1 * (1.0 - p1)) AS m1_h0_0,
+  SUM(p1 * (1.0 - p1) * v0) AS m1_h0_1,
+  SUM(p1 * (1.0 - p1) * v1) AS m1_h0_2,
+  SUM(p1 * (1.0 - p1) * v0 * v0) AS m1_h1_1,
+  SUM(p1 * (1.0 - p1) * v0 * v1) AS m1_h1_2,
+  SUM(p1 * (1.0 - p1) * v1 * v1) AS m1_h2_2,
+  SUM(t * eta1 - CASE WHEN eta1 > 0 THEN eta1 + LN(1.0 + EXP(-eta1)) ELSE LN(1.0 + EXP(eta1)) END) AS m1_loglik,
+  MIN(p1) AS m1_min_p,
+  MAX(p1) AS m1_max_p
 FROM
   (
     SELECT
@@ -74,4 +75,4 @@ FROM
       ) AS linear_
   ) AS fitted_
 GROUP BY
-  k0 ORDER BY k0
+  k0, f ORDER BY k0, f
