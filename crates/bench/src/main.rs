@@ -243,6 +243,22 @@ fn measure(approach: &str, db: &Path, w: &Work) -> Result<Value, String> {
                       "db_memory_bytes": dbm, "estimate": f.estimate, "std_error": f.std_error}),
             )
         }
+        sql if sql.starts_with("sql:") => {
+            let conn = open(db)?;
+            let text = std::fs::read_to_string(&sql[4..]).map_err(|e| e.to_string())?;
+            let mut times = Vec::new();
+            for _ in 0..3 {
+                let start = Instant::now();
+                let mut stmt = conn.prepare(&text).map_err(|e| e.to_string())?;
+                let n: usize = stmt
+                    .query_arrow([])
+                    .map_err(|e| e.to_string())?
+                    .map(|b| b.num_rows())
+                    .sum();
+                times.push((start.elapsed().as_secs_f64(), n));
+            }
+            Ok(json!({"times": times}))
+        }
         other => Err(format!("unknown approach `{other}` (scan, upshot, rust)")),
     }
 }

@@ -128,6 +128,18 @@ fn logistic_pass(s: &Setup, models: &Models) -> Result<Pass, MethodError> {
     )?)
 }
 
+fn scores_pass_only(s: &Setup, models: &Models) -> Result<Pass, MethodError> {
+    let spec = s.spec;
+    Ok(logistic_fits(
+        spec.dialect,
+        &spec.source,
+        s.filter.as_ref(),
+        &row_design(s),
+        models,
+        Variants::ComplementScores(spec.folds),
+    )?)
+}
+
 fn gram_pass(s: &Setup) -> Result<Pass, MethodError> {
     let spec = s.spec;
     Ok(design_gram(
@@ -165,11 +177,188 @@ pub(crate) fn placeholder(s: &Setup) -> (Vec<Vec<KeyValue>>, Vec<Vec<Vec<f64>>>)
 pub(crate) fn passes(s: &Setup) -> Result<Vec<Pass>, MethodError> {
     let (segs, coef) = placeholder(s);
     let m = fold_models(s, &segs, &coef);
+    if !needs_folds(s.spec) {
+        return Ok(vec![
+            gram_pass(s)?,
+            logistic_pass(s, &m)?,
+            scores_pass(s, &m, &m, &m)?,
+        ]);
+    }
+    // Cross-fitting: each segment's propensity on all its rows (Newton), then the fits leaving
+    // one fold out (scores only; full Newton passes only if those do not settle).
+    let whole = crate::weight::per_segment(&segs, &vec![vec![0.0; s.terms.len() + 1]; segs.len()]);
     Ok(vec![
         gram_pass(s)?,
-        logistic_pass(s, &m)?,
+        crate::weight::logistic_pass(s, &whole)?,
+        scores_pass_only(s, &m)?,
         scores_pass(s, &m, &m, &m)?,
     ])
+}
+
+/// Propensity models per segment and held-out fold by Newton's method, all side by side in
+/// the same passes (each pass carries every model's information matrix).
+fn newton_complements(
+    s: &Setup,
+    r: &mut dyn Runner,
+    segs: &[Vec<KeyValue>],
+) -> Result<Vec<Vec<Vec<f64>>>, MethodError> {
+    let spec = s.spec;
+    let p = s.terms.len();
+    let k = folds(s) as usize;
+    let param = param_names(s);
+    let kp = p + 1;
+    let fits = logit_many(
+        &param,
+        segs.len() * k,
+        |flat| {
+            let coef: Vec<Vec<Vec<f64>>> = flat.chunks(k).map(|c| c.to_vec()).collect();
+            let a = ask(r, &logistic_pass(s, &fold_models(s, segs, &coef))?)?;
+            let mut out: Vec<LogitSums> = Vec::new();
+            for seg in segs {
+                if !needs_folds(spec) {
+                    out.push(logit_sums(&a, row_of(&a, seg)?, "", kp)?);
+                    continue;
+                }
+                // One row per fold of the segment; fit j adds up the rows of the other folds.
+                let rows = rows_by_fold(&a, seg)?;
+                for j in 0..k {
+                    let mut total: Option<LogitSums> = None;
+                    for (f, row) in &rows {
+                        if *f == j {
+                            continue;
+                        }
+                        let x = logit_sums(&a, *row, &format!("m{j}_"), kp)?;
+                        total = Some(match total {
+                            None => x,
+                            Some(t) => add_logit_sums(t, &x),
+                        });
+                    }
+                    let mut sums = total.ok_or_else(|| {
+                        MethodError::Input(format!(
+                            "{}: every row falls in fold {j}; use fewer folds (--folds) or more rows",
+                            segment_label(s, seg)
+                        ))
+                    })?;
+                    sums.n = f64::NAN;
+                    out.push(sums);
+                }
+            }
+            Ok::<_, MethodError>(out)
+        },
+        NewtonOptions::default(),
+    )?;
+    let mut ecoef = Vec::new();
+    for (i, seg) in segs.iter().enumerate() {
+        let mut per = Vec::new();
+        for j in 0..k {
+            let label = if k > 1 {
+                format!("{}, rows outside fold {j}", segment_label(s, seg))
+            } else {
+                segment_label(s, seg)
+            };
+            let f = fits[i * k + j]
+                .clone()
+                .map_err(|e| propensity_error(&label, e))?;
+            per.push(f.coef);
+        }
+        ecoef.push(per);
+    }
+    Ok(ecoef)
+}
+
+/// Most score passes of [`shared_curvature_complements`] before it gives way to Newton.
+const SHARED_CURVATURE_PASSES: usize = 30;
+
+/// The fold-leaving-out propensity fits, cheaply: each segment's model is fitted on all its
+/// rows by Newton (one small pass per iteration, as for `weight`); then every fit leaving fold
+/// j out starts there and steps with a fixed curvature matrix — the full fit's information
+/// matrix scaled to the fit's share of the rows — using only the fits' scores, which one pass
+/// grouped by fold returns for all of them. The fixed point is the same maximum-likelihood
+/// estimate Newton reaches (the score is zero there); the iteration contracts fast because a
+/// fit leaving out one fold of K is close to the full fit. Returns `None` (and the caller uses
+/// full Newton passes) when a fit does not settle within [`SHARED_CURVATURE_PASSES`] or its
+/// coefficients run away, which is where separation would show.
+fn shared_curvature_complements(
+    s: &Setup,
+    r: &mut dyn Runner,
+    segs: &[Vec<KeyValue>],
+    comp: &[Complements],
+) -> Result<Option<Vec<Vec<Vec<f64>>>>, MethodError> {
+    let kp = s.terms.len() + 1;
+    let k = folds(s) as usize;
+    let (fsegs, full) = crate::weight::fit_propensity(s, r)?;
+    let opts = NewtonOptions::default();
+    let mut coef: Vec<Vec<Vec<f64>>> = Vec::new();
+    let mut curvature = Vec::new();
+    for (seg, (cseg, per_fold)) in segs.iter().zip(comp) {
+        debug_assert_eq!(seg, cseg);
+        let i = fsegs
+            .iter()
+            .position(|x| x == seg)
+            .ok_or_else(|| MethodError::Engine("the logistic pass lost a segment".into()))?;
+        let all = comp_rows(per_fold);
+        let mut cs = Vec::new();
+        for arms in per_fold.iter().take(k) {
+            // Rows outside the fold over the segment's rows.
+            let outside: f64 = arms.iter().flatten().map(|m| m.n).sum();
+            let h = full[i].information.clone() * (outside / all);
+            match h.cholesky() {
+                Some(c) => cs.push(c),
+                None => return Ok(None),
+            }
+        }
+        curvature.push(cs);
+        coef.push(vec![full[i].coef.clone(); k]);
+    }
+    let mut settled = vec![vec![false; k]; segs.len()];
+    for _ in 0..SHARED_CURVATURE_PASSES {
+        let a = ask(r, &scores_pass_only(s, &fold_models(s, segs, &coef))?)?;
+        for (i, seg) in segs.iter().enumerate() {
+            let rows = rows_by_fold(&a, seg)?;
+            for j in 0..k {
+                let mut score = nalgebra::DVector::<f64>::zeros(kp);
+                for (f, row) in &rows {
+                    if *f != j {
+                        score += crate::combine::vector(&a, *row, &format!("m{j}_u"), kp)?;
+                    }
+                }
+                let step = curvature[i][j].solve(&score);
+                let c = &mut coef[i][j];
+                let small = step
+                    .iter()
+                    .zip(c.iter())
+                    .all(|(d, x)| d.abs() <= opts.tolerance * (1.0 + x.abs()));
+                for (x, d) in c.iter_mut().zip(step.iter()) {
+                    *x += d;
+                }
+                if !c.iter().all(|x| x.is_finite())
+                    || c[1..].iter().any(|x| x.abs() > opts.max_coefficient)
+                {
+                    return Ok(None);
+                }
+                settled[i][j] = small;
+            }
+        }
+        if settled.iter().flatten().all(|x| *x) {
+            return Ok(Some(coef));
+        }
+    }
+    Ok(None)
+}
+
+/// Rows of a segment: those outside fold 0 plus those inside it.
+fn comp_rows(per_fold: &[[Option<Moments>; 2]]) -> f64 {
+    // Each row lies outside exactly K − 1 of the K folds.
+    let k = per_fold.len() as f64;
+    let outside: f64 = per_fold
+        .iter()
+        .map(|arms| arms.iter().flatten().map(|m| m.n).sum::<f64>())
+        .sum();
+    if k > 1.0 {
+        outside / (k - 1.0)
+    } else {
+        outside
+    }
 }
 
 /// The rows of a fold-grouped pass that belong to segment `seg`, with their fold.
@@ -305,65 +494,15 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
         coef1.push(c1);
         coef0.push(c0);
     }
-    // Propensity: nseg × k models, fitted side by side.
-    let param = param_names(s);
-    let kp = p + 1;
-    let fits = logit_many(
-        &param,
-        segs.len() * k,
-        |flat| {
-            let coef: Vec<Vec<Vec<f64>>> = flat.chunks(k).map(|c| c.to_vec()).collect();
-            let a = ask(r, &logistic_pass(s, &fold_models(s, &segs, &coef))?)?;
-            let mut out: Vec<LogitSums> = Vec::new();
-            for seg in &segs {
-                if !needs_folds(spec) {
-                    out.push(logit_sums(&a, row_of(&a, seg)?, "", kp)?);
-                    continue;
-                }
-                // One row per fold of the segment; fit j adds up the rows of the other folds.
-                let rows = rows_by_fold(&a, seg)?;
-                for j in 0..k {
-                    let mut total: Option<LogitSums> = None;
-                    for (f, row) in &rows {
-                        if *f == j {
-                            continue;
-                        }
-                        let x = logit_sums(&a, *row, &format!("m{j}_"), kp)?;
-                        total = Some(match total {
-                            None => x,
-                            Some(t) => add_logit_sums(t, &x),
-                        });
-                    }
-                    let mut sums = total.ok_or_else(|| {
-                        MethodError::Input(format!(
-                            "{}: every row falls in fold {j}; use fewer folds (--folds) or more rows",
-                            segment_label(s, seg)
-                        ))
-                    })?;
-                    sums.n = f64::NAN;
-                    out.push(sums);
-                }
-            }
-            Ok::<_, MethodError>(out)
+    // Propensity: nseg × k models. With cross-fitting, each segment's model is first fitted on
+    // all its rows, and the fold-leaving-out fits step from it with that fit's curvature.
+    let ecoef = match needs_folds(spec) {
+        true => match shared_curvature_complements(s, r, &segs, &comp)? {
+            Some(c) => c,
+            None => newton_complements(s, r, &segs)?,
         },
-        NewtonOptions::default(),
-    )?;
-    let mut ecoef = Vec::new();
-    for (i, seg) in segs.iter().enumerate() {
-        let mut per = Vec::new();
-        for j in 0..k {
-            let label = if k > 1 {
-                format!("{}, rows outside fold {j}", segment_label(s, seg))
-            } else {
-                segment_label(s, seg)
-            };
-            let f = fits[i * k + j]
-                .clone()
-                .map_err(|e| propensity_error(&label, e))?;
-            per.push(f.coef);
-        }
-        ecoef.push(per);
-    }
+        false => newton_complements(s, r, &segs)?,
+    };
     let sc = ask(
         r,
         &scores_pass(

@@ -52,6 +52,10 @@ pub fn plan(spec: &Spec) -> Result<Vec<PlannedPass>, MethodError> {
                 Some(format!("{centres}; the current Newton coefficients (shown as 0)")),
                 Some("once per Newton iteration until the coefficients settle (typically 5 to 8 times; at most 50)".to_string()),
             ),
+            "logistic-scores" => (
+                Some(format!("{centres}; the current coefficients of each fold-leaving-out fit (shown as 0)")),
+                Some("once per step of the fold-leaving-out fits until they settle (typically 4 to 10 times; at most 30, then Newton passes with the information matrix take over)".to_string()),
+            ),
             "residuals" => (
                 Some(format!("{centres}; the outcome models' coefficients from the Gram pass (shown as 0)")),
                 None,

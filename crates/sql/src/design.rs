@@ -375,6 +375,19 @@ pub enum Variants {
     /// sums of fit `m` are those of the groups with `f <> m` (added up by the caller): plain
     /// sums, with no per-model condition, cost half as much as `CASE`-restricted ones.
     Complement(u32),
+    /// As [`Variants::Complement`] (grouped by the fold too), but only the scores `u{i}` of
+    /// each fit: for fits that step with a fixed curvature matrix, whose sums of products are
+    /// the costly part of a Newton pass.
+    ComplementScores(u32),
+}
+
+impl Variants {
+    fn complement(self) -> Option<u32> {
+        match self {
+            Variants::Single => None,
+            Variants::Complement(k) | Variants::ComplementScores(k) => Some(k),
+        }
+    }
 }
 
 /// One Newton step of logistic regressions of the 0/1 extra `t` on the design terms, with each
@@ -394,7 +407,7 @@ pub fn logistic_fits(
     let k = design.terms.len();
     let mut outer = design.keys_and_count();
     let mut tail = design.group_tail();
-    if let Variants::Complement(_) = variants {
+    if variants.complement().is_some() {
         outer.insert(design.keys.len(), "f".into());
         let keys: Vec<String> = (0..design.keys.len())
             .map(|i| format!("k{i}"))
@@ -403,12 +416,12 @@ pub fn logistic_fits(
         tail = format!(" GROUP BY {k} ORDER BY {k}", k = keys.join(", "));
     }
     let mut etas = Vec::new();
-    let list: Vec<(String, Option<u32>)> = match variants {
-        Variants::Single => {
+    let list: Vec<(String, Option<u32>)> = match variants.complement() {
+        None => {
             etas.push(format!("{} AS eta", predictor(&mut t, models, k)?));
             vec![(String::new(), None)]
         }
-        Variants::Complement(folds) => {
+        Some(folds) => {
             let sel = &models.selector;
             assert!(
                 sel.fold,
@@ -442,28 +455,26 @@ pub fn logistic_fits(
             Some(m) => (format!("eta{m}"), format!("p{m}")),
         };
         probs.push(format!("{} AS {p}", SIGMOID.replace("eta", &eta)));
-        let keep = |e: &str| e.to_string();
-        let only = keep;
         for i in 0..=k {
-            outer.push(format!(
-                "SUM({}) AS {pre}u{i}",
-                keep(&format!("(t - {p}){}", factor(i)))
-            ));
+            outer.push(format!("SUM((t - {p}){}) AS {pre}u{i}", factor(i)));
+        }
+        if let Variants::ComplementScores(_) = variants {
+            continue;
         }
         for i in 0..=k {
             for j in i..=k {
                 outer.push(format!(
-                    "SUM({}) AS {pre}h{i}_{j}",
-                    keep(&format!("{p} * (1.0 - {p}){}{}", factor(i), factor(j)))
+                    "SUM({p} * (1.0 - {p}){}{}) AS {pre}h{i}_{j}",
+                    factor(i),
+                    factor(j)
                 ));
             }
         }
         outer.push(format!(
-            "SUM({}) AS {pre}loglik",
-            keep(&format!("t * {eta} - CASE WHEN {eta} > 0 THEN {eta} + LN(1.0 + EXP(-{eta})) ELSE LN(1.0 + EXP({eta})) END"))
+            "SUM(t * {eta} - CASE WHEN {eta} > 0 THEN {eta} + LN(1.0 + EXP(-{eta})) ELSE LN(1.0 + EXP({eta})) END) AS {pre}loglik"
         ));
-        outer.push(format!("MIN({}) AS {pre}min_p", only(&p)));
-        outer.push(format!("MAX({}) AS {pre}max_p", only(&p)));
+        outer.push(format!("MIN({p}) AS {pre}min_p"));
+        outer.push(format!("MAX({p}) AS {pre}max_p"));
     }
     t.sql = format!(
         "SELECT {} FROM (SELECT *, {} FROM (SELECT *, {} FROM ({rows}) AS rows_) AS linear_) AS fitted_{}",
@@ -475,6 +486,16 @@ pub fn logistic_fits(
     let what = match variants {
         Variants::Single => String::new(),
         Variants::Complement(k) => format!(", {k} cross-fitting fits (each leaving one fold out)"),
+        Variants::ComplementScores(k) => {
+            return Ok(Pass {
+                name: "logistic-scores".into(),
+                purpose: format!(
+                    "scores of {k} cross-fitting propensity fits (each leaving one fold out) at their current coefficients{}, per fold; each fit steps with a fixed curvature matrix",
+                    design.per()
+                ),
+                query: template::query(d, &t.sql, &t.binds, source, filter)?,
+            })
+        }
     };
     Ok(Pass {
         name: "logistic-step".into(),

@@ -92,6 +92,18 @@ fn method_passes(d: &dyn Dialect) -> Vec<(String, Pass)> {
             .unwrap(),
         ),
         (
+            "logistic-scores".into(),
+            logistic_fits(
+                d,
+                &src,
+                None,
+                &design,
+                &fold_models(0.0),
+                Variants::ComplementScores(2),
+            )
+            .unwrap(),
+        ),
+        (
             "weights".into(),
             weighting_sums(
                 d,
