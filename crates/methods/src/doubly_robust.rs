@@ -128,6 +128,18 @@ fn logistic_pass(s: &Setup, models: &Models) -> Result<Pass, MethodError> {
     )?)
 }
 
+fn by_fold_pass(s: &Setup, models: &Models) -> Result<Pass, MethodError> {
+    let spec = s.spec;
+    Ok(logistic_fits(
+        spec.dialect,
+        &spec.source,
+        s.filter.as_ref(),
+        &row_design(s),
+        models,
+        Variants::ByFold,
+    )?)
+}
+
 fn scores_pass_only(s: &Setup, models: &Models) -> Result<Pass, MethodError> {
     let spec = s.spec;
     Ok(logistic_fits(
@@ -189,7 +201,7 @@ pub(crate) fn passes(s: &Setup) -> Result<Vec<Pass>, MethodError> {
     let whole = crate::weight::per_segment(&segs, &vec![vec![0.0; s.terms.len() + 1]; segs.len()]);
     Ok(vec![
         gram_pass(s)?,
-        crate::weight::logistic_pass(s, &whole)?,
+        by_fold_pass(s, &whole)?,
         scores_pass_only(s, &m)?,
         scores_pass(s, &m, &m, &m)?,
     ])
@@ -222,23 +234,10 @@ fn newton_complements(
                 // One row per fold of the segment; fit j adds up the rows of the other folds.
                 let rows = rows_by_fold(&a, seg)?;
                 for j in 0..k {
-                    let mut total: Option<LogitSums> = None;
-                    for (f, row) in &rows {
-                        if *f == j {
-                            continue;
-                        }
-                        let x = logit_sums(&a, *row, &format!("m{j}_"), kp)?;
-                        total = Some(match total {
-                            None => x,
-                            Some(t) => add_logit_sums(t, &x),
-                        });
-                    }
-                    let mut sums = total.ok_or_else(|| {
-                        MethodError::Input(format!(
-                            "{}: every row falls in fold {j}; use fewer folds (--folds) or more rows",
-                            segment_label(s, seg)
-                        ))
-                    })?;
+                    let mut sums =
+                        fold_sum(&a, &rows, Some(j), &format!("m{j}_"), kp).map_err(|e| {
+                            MethodError::Input(format!("{}: {e}", segment_label(s, seg)))
+                        })?;
                     sums.n = f64::NAN;
                     out.push(sums);
                 }
@@ -270,45 +269,71 @@ fn newton_complements(
 const SHARED_CURVATURE_PASSES: usize = 30;
 
 /// The fold-leaving-out propensity fits, cheaply: each segment's model is fitted on all its
-/// rows by Newton (one small pass per iteration, as for `weight`); then every fit leaving fold
-/// j out starts there and steps with a fixed curvature matrix — the full fit's information
-/// matrix scaled to the fit's share of the rows — using only the fits' scores, which one pass
-/// grouped by fold returns for all of them. The fixed point is the same maximum-likelihood
-/// estimate Newton reaches (the score is zero there); the iteration contracts fast because a
-/// fit leaving out one fold of K is close to the full fit. Returns `None` (and the caller uses
-/// full Newton passes) when a fit does not settle within [`SHARED_CURVATURE_PASSES`] or its
+/// rows by Newton, with one small pass per iteration grouped by fold; at its optimum the sums of
+/// the folds other than j give fit j's score and information, and fit j then steps from there
+/// with that information matrix held fixed, using only the fits' scores, which one pass grouped
+/// by fold returns for all of them. The fixed point is the same maximum-likelihood estimate
+/// Newton reaches (the score is zero there), and the iteration contracts fast because a fit
+/// leaving out one fold of K is close to the full fit. Returns `None` (and the caller uses full
+/// Newton passes) when a fit does not settle within [`SHARED_CURVATURE_PASSES`] or its
 /// coefficients run away, which is where separation would show.
 fn shared_curvature_complements(
     s: &Setup,
     r: &mut dyn Runner,
     segs: &[Vec<KeyValue>],
-    comp: &[Complements],
 ) -> Result<Option<Vec<Vec<Vec<f64>>>>, MethodError> {
     let kp = s.terms.len() + 1;
     let k = folds(s) as usize;
-    let (fsegs, full) = crate::weight::fit_propensity(s, r)?;
+    // Each segment's model on all its rows, by Newton, with the sums grouped by fold.
+    let names = param_names(s);
+    let mut last: Option<Aggregates> = None;
+    let full = logit_many(
+        &names,
+        segs.len(),
+        |coefs| {
+            let a = ask(
+                r,
+                &by_fold_pass(s, &crate::weight::per_segment(segs, coefs))?,
+            )?;
+            let mut out = Vec::new();
+            for seg in segs {
+                let rows = rows_by_fold(&a, seg)?;
+                out.push(fold_sum(&a, &rows, None, "", kp)?);
+            }
+            last = Some(a);
+            Ok::<_, MethodError>(out)
+        },
+        NewtonOptions::default(),
+    )?;
+    let last = last.expect("Newton runs at least one pass");
     let opts = NewtonOptions::default();
     let mut coef: Vec<Vec<Vec<f64>>> = Vec::new();
     let mut curvature = Vec::new();
-    for (seg, (cseg, per_fold)) in segs.iter().zip(comp) {
-        debug_assert_eq!(seg, cseg);
-        let i = fsegs
-            .iter()
-            .position(|x| x == seg)
-            .ok_or_else(|| MethodError::Engine("the logistic pass lost a segment".into()))?;
-        let all = comp_rows(per_fold);
+    for (seg, fit) in segs.iter().zip(full) {
+        let fit = fit.map_err(|e| propensity_error(&segment_label(s, seg), e))?;
+        // The last pass evaluated every segment's model at its final coefficients: the sums of
+        // the folds other than j are fit j's score and information there, so its first step
+        // needs no pass.
+        let rows = rows_by_fold(&last, seg)?;
         let mut cs = Vec::new();
-        for arms in per_fold.iter().take(k) {
-            // Rows outside the fold over the segment's rows.
-            let outside: f64 = arms.iter().flatten().map(|m| m.n).sum();
-            let h = full[i].information.clone() * (outside / all);
-            match h.cholesky() {
-                Some(c) => cs.push(c),
-                None => return Ok(None),
-            }
+        let mut start = Vec::new();
+        for j in 0..k {
+            let sums = fold_sum(&last, &rows, Some(j), "", kp)?;
+            let Some(c) = sums.information.cholesky() else {
+                return Ok(None);
+            };
+            let step = c.solve(&sums.score);
+            start.push(
+                fit.coef
+                    .iter()
+                    .zip(step.iter())
+                    .map(|(x, d)| x + d)
+                    .collect::<Vec<f64>>(),
+            );
+            cs.push(c);
         }
         curvature.push(cs);
-        coef.push(vec![full[i].coef.clone(); k]);
+        coef.push(start);
     }
     let mut settled = vec![vec![false; k]; segs.len()];
     for _ in 0..SHARED_CURVATURE_PASSES {
@@ -346,19 +371,32 @@ fn shared_curvature_complements(
     Ok(None)
 }
 
-/// Rows of a segment: those outside fold 0 plus those inside it.
-fn comp_rows(per_fold: &[[Option<Moments>; 2]]) -> f64 {
-    // Each row lies outside exactly K − 1 of the K folds.
-    let k = per_fold.len() as f64;
-    let outside: f64 = per_fold
-        .iter()
-        .map(|arms| arms.iter().flatten().map(|m| m.n).sum::<f64>())
-        .sum();
-    if k > 1.0 {
-        outside / (k - 1.0)
-    } else {
-        outside
+/// The logistic sums of a segment's rows of a fold-grouped pass: all of them, or (with
+/// `leave_out`) those of the other folds; `prefix` selects a fit's columns.
+fn fold_sum(
+    a: &Aggregates,
+    rows: &[(usize, usize)],
+    leave_out: Option<usize>,
+    prefix: &str,
+    kp: usize,
+) -> Result<LogitSums, MethodError> {
+    let mut total: Option<LogitSums> = None;
+    for (f, row) in rows {
+        if Some(*f) == leave_out {
+            continue;
+        }
+        let x = logit_sums(a, *row, prefix, kp)?;
+        total = Some(match total {
+            None => x,
+            Some(t) => add_logit_sums(t, &x),
+        });
     }
+    total.ok_or_else(|| {
+        MethodError::Input(format!(
+            "every row of a segment falls in fold {}; use fewer folds (--folds) or more rows",
+            leave_out.unwrap_or(0)
+        ))
+    })
 }
 
 /// The rows of a fold-grouped pass that belong to segment `seg`, with their fold.
@@ -497,7 +535,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     // Propensity: nseg × k models. With cross-fitting, each segment's model is first fitted on
     // all its rows, and the fold-leaving-out fits step from it with that fit's curvature.
     let ecoef = match needs_folds(spec) {
-        true => match shared_curvature_complements(s, r, &segs, &comp)? {
+        true => match shared_curvature_complements(s, r, &segs)? {
             Some(c) => c,
             None => newton_complements(s, r, &segs)?,
         },

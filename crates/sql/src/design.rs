@@ -379,12 +379,16 @@ pub enum Variants {
     /// each fit: for fits that step with a fixed curvature matrix, whose sums of products are
     /// the costly part of a Newton pass.
     ComplementScores(u32),
+    /// One fit per group, as [`Variants::Single`], with the sums grouped by the row's fold `f`
+    /// too (the design must have a fold): the group's sums are those of all its folds, and the
+    /// fits leaving one fold out can start from the sums of the others.
+    ByFold,
 }
 
 impl Variants {
     fn complement(self) -> Option<u32> {
         match self {
-            Variants::Single => None,
+            Variants::Single | Variants::ByFold => None,
             Variants::Complement(k) | Variants::ComplementScores(k) => Some(k),
         }
     }
@@ -407,7 +411,11 @@ pub fn logistic_fits(
     let k = design.terms.len();
     let mut outer = design.keys_and_count();
     let mut tail = design.group_tail();
-    if variants.complement().is_some() {
+    if variants.complement().is_some() || variants == Variants::ByFold {
+        assert!(
+            design.fold.is_some(),
+            "grouping by fold needs the design's fold"
+        );
         outer.insert(design.keys.len(), "f".into());
         let keys: Vec<String> = (0..design.keys.len())
             .map(|i| format!("k{i}"))
@@ -485,6 +493,7 @@ pub fn logistic_fits(
     );
     let what = match variants {
         Variants::Single => String::new(),
+        Variants::ByFold => ", per fold".to_string(),
         Variants::Complement(k) => format!(", {k} cross-fitting fits (each leaving one fold out)"),
         Variants::ComplementScores(k) => {
             return Ok(Pass {

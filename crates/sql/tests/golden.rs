@@ -92,6 +92,18 @@ fn method_passes(d: &dyn Dialect) -> Vec<(String, Pass)> {
             .unwrap(),
         ),
         (
+            "logistic-by-fold".into(),
+            logistic_fits(
+                d,
+                &src,
+                None,
+                &design,
+                &Models::single(vec![0.1, 0.2, 0.3]),
+                Variants::ByFold,
+            )
+            .unwrap(),
+        ),
+        (
             "logistic-scores".into(),
             logistic_fits(
                 d,
