@@ -28,6 +28,7 @@ pub fn fit(path: &str, outcome: &str, covariates: &[String], logistic: bool) -> 
         .map(|c| ProfileColumn {
             name: c.clone(),
             numeric: true,
+            distinct: false,
         })
         .collect();
     let prof = e

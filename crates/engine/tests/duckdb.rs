@@ -58,10 +58,12 @@ fn profile_and_cells_match_the_generator() {
                     ProfileColumn {
                         name: "voucher".into(),
                         numeric: true,
+                        distinct: true,
                     },
                     ProfileColumn {
                         name: "zone".into(),
                         numeric: false,
+                        distinct: true,
                     },
                 ],
             )
@@ -148,6 +150,7 @@ fn database_errors_name_the_pass() {
                 &[ProfileColumn {
                     name: "x".into(),
                     numeric: true,
+                    distinct: true,
                 }],
             )
             .unwrap(),

@@ -207,7 +207,11 @@ fn profiled(a: &Aggregates, i: usize, name: &str, numeric: bool) -> Result<Profi
         } else {
             None
         },
-        distinct: a.number_or(0, &format!("c{i}_distinct"), 0.0)?,
+        // Counted only where a check needs it (see `profile_pass`); 0 = not counted.
+        distinct: match a.names.iter().any(|n| *n == format!("c{i}_distinct")) {
+            true => a.number_or(0, &format!("c{i}_distinct"), 0.0)?,
+            false => 0.0,
+        },
     })
 }
 
@@ -223,9 +227,19 @@ fn show(c: &Cell) -> String {
 pub(crate) fn profile_pass(spec: &Spec) -> Result<Pass, MethodError> {
     let cols: Vec<ProfileColumn> = used_columns(spec)
         .into_iter()
-        .map(|c| ProfileColumn {
-            numeric: !is_categorical(spec, &c) || c == spec.treatment || c == spec.outcome,
-            name: c,
+        .map(|c| {
+            let numeric = !is_categorical(spec, &c) || c == spec.treatment || c == spec.outcome;
+            // Distinct counts serve two checks: a 0/1 treatment, and discrete numeric strata.
+            let distinct = c == spec.treatment
+                || (spec.method == Estimator::Stratify
+                    && numeric
+                    && c != spec.outcome
+                    && modelled(spec).contains(&c));
+            ProfileColumn {
+                numeric,
+                distinct,
+                name: c,
+            }
         })
         .collect();
     Ok(profile(

@@ -32,6 +32,9 @@ pub struct ProfileColumn {
     pub name: String,
     /// Whether to compute a mean (numeric columns).
     pub numeric: bool,
+    /// Whether to count distinct values (approximately where the engine can): hashing every
+    /// value is the costliest part of a profile, so only columns whose checks need it ask.
+    pub distinct: bool,
 }
 
 pub(crate) struct Text {
@@ -63,8 +66,8 @@ pub(crate) fn not_null(t: &mut Text, columns: &[String]) -> String {
 }
 
 /// The profile pass: row count, and per column non-NULL count, minimum, maximum, mean and
-/// population standard deviation (numeric columns) and distinct count (approximate where the
-/// engine has it). Output aliases: `n_rows`, then `c{i}_n`, `c{i}_min`, `c{i}_max`, `c{i}_mean`,
+/// population standard deviation (numeric columns) and, where asked, distinct count
+/// (approximate where the engine has it). Output aliases: `n_rows`, then `c{i}_n`, `c{i}_min`, `c{i}_max`, `c{i}_mean`,
 /// `c{i}_sd`, `c{i}_distinct`, and `n_complete` (rows with no NULL in any of the columns). Means and deviations centre and scale the later passes.
 pub fn profile(
     d: &dyn Dialect,
@@ -86,10 +89,12 @@ pub fn profile(
                 d.float_type()
             ));
         }
-        items.push(match d.approx_distinct() {
-            Some(f) => format!("{f}({p}) AS c{i}_distinct"),
-            None => format!("COUNT(DISTINCT {p}) AS c{i}_distinct"),
-        });
+        if c.distinct {
+            items.push(match d.approx_distinct() {
+                Some(f) => format!("{f}({p}) AS c{i}_distinct"),
+                None => format!("COUNT(DISTINCT {p}) AS c{i}_distinct"),
+            });
+        }
     }
     if !columns.is_empty() {
         let mut all = Vec::new();
@@ -108,7 +113,7 @@ pub fn profile(
     );
     Ok(Pass {
         name: "profile".into(),
-        purpose: "row count; per column: non-NULL count, min, max, mean, standard deviation, distinct count".into(),
+        purpose: "row count; per column: non-NULL count, min, max, mean, standard deviation (and a distinct count where a check needs it)".into(),
         query: template::query(d, &t.sql, &t.binds, source, filter)?,
     })
 }

@@ -178,10 +178,12 @@ fn passes(d: &dyn Dialect) -> Vec<Pass> {
                 ProfileColumn {
                     name: "spend 30d".into(),
                     numeric: true,
+                    distinct: true,
                 },
                 ProfileColumn {
                     name: "select".into(),
                     numeric: false,
+                    distinct: true,
                 },
             ],
         )
