@@ -29,6 +29,7 @@ pub fn fit(path: &str, outcome: &str, covariates: &[String], logistic: bool) -> 
             name: c.clone(),
             numeric: true,
             distinct: false,
+            zero_one: false,
         })
         .collect();
     let prof = e

@@ -59,11 +59,13 @@ fn profile_and_cells_match_the_generator() {
                         name: "voucher".into(),
                         numeric: true,
                         distinct: true,
+                        zero_one: false,
                     },
                     ProfileColumn {
                         name: "zone".into(),
                         numeric: false,
                         distinct: true,
+                        zero_one: false,
                     },
                 ],
             )
@@ -151,6 +153,7 @@ fn database_errors_name_the_pass() {
                     name: "x".into(),
                     numeric: true,
                     distinct: true,
+                    zero_one: false,
                 }],
             )
             .unwrap(),

@@ -93,8 +93,8 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     let segs: Vec<Vec<KeyValue>> = comp.iter().map(|c| c.0.clone()).collect();
     let (mut ct, mut cy) = (Vec::new(), Vec::new());
     let binary = matches!(
-        s.column(&spec.treatment).map(|c| (&c.min, &c.max, c.distinct)),
-        Some((upshot_sql::Cell::Number(a), upshot_sql::Cell::Number(b), d)) if *a == 0.0 && *b == 1.0 && d <= 2.0
+        s.column(&spec.treatment).map(|c| (&c.min, &c.max, c.not01)),
+        Some((upshot_sql::Cell::Number(a), upshot_sql::Cell::Number(b), other)) if *a == 0.0 && *b == 1.0 && other == 0.0
     );
     for (seg, per_fold) in &comp {
         let label = segment_label(s, seg);

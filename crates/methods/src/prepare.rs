@@ -29,6 +29,8 @@ pub(crate) struct Profiled {
     pub mean: Option<f64>,
     pub sd: Option<f64>,
     pub distinct: f64,
+    /// Non-NULL values that are neither 0 nor 1 (counted for the treatment only; else 0).
+    pub not01: f64,
 }
 
 /// Everything a method needs after the first passes.
@@ -208,10 +210,8 @@ fn profiled(a: &Aggregates, i: usize, name: &str, numeric: bool) -> Result<Profi
             None
         },
         // Counted only where a check needs it (see `profile_pass`); 0 = not counted.
-        distinct: match a.names.iter().any(|n| *n == format!("c{i}_distinct")) {
-            true => a.number_or(0, &format!("c{i}_distinct"), 0.0)?,
-            false => 0.0,
-        },
+        distinct: optional(a, &format!("c{i}_distinct"))?,
+        not01: optional(a, &format!("c{i}_not01"))?,
     })
 }
 
@@ -223,21 +223,31 @@ fn show(c: &Cell) -> String {
     }
 }
 
+/// A profile column that only some passes carry; 0 where absent or NULL.
+fn optional(a: &Aggregates, name: &str) -> Result<f64, MethodError> {
+    Ok(match a.names.iter().any(|n| n == name) {
+        true => a.number_or(0, name, 0.0)?,
+        false => 0.0,
+    })
+}
+
 /// The profile pass of a spec.
 pub(crate) fn profile_pass(spec: &Spec) -> Result<Pass, MethodError> {
     let cols: Vec<ProfileColumn> = used_columns(spec)
         .into_iter()
         .map(|c| {
             let numeric = !is_categorical(spec, &c) || c == spec.treatment || c == spec.outcome;
-            // Distinct counts serve two checks: a 0/1 treatment, and discrete numeric strata.
-            let distinct = c == spec.treatment
-                || (spec.method == Estimator::Stratify
-                    && numeric
-                    && c != spec.outcome
-                    && modelled(spec).contains(&c));
+            // Distinct counts serve one check: discrete numeric strata. A 0/1 treatment is
+            // checked exactly, by counting the other values.
+            let distinct = spec.method == Estimator::Stratify
+                && numeric
+                && c != spec.outcome
+                && c != spec.treatment
+                && modelled(spec).contains(&c);
             ProfileColumn {
                 numeric,
                 distinct,
+                zero_one: c == spec.treatment,
                 name: c,
             }
         })
@@ -335,12 +345,12 @@ pub(crate) fn prepare<'a>(spec: &'a Spec, r: &mut dyn Runner) -> Result<Setup<'a
     }
     if spec.method.binary_treatment() {
         let zero_one = matches!((&t.min, &t.max), (Cell::Number(a), Cell::Number(b)) if *a == 0.0 && *b == 1.0);
-        if !zero_one || t.distinct > 2.0 {
+        if !zero_one || t.not01 > 0.0 {
             return Err(MethodError::Input(format!(
-                "method `{}` needs a 0/1 treatment, but `{}` ranges from {tmin} to {tmax} with about {} distinct values; recode it as 0/1, or use --method partial-out for a continuous treatment",
+                "method `{}` needs a 0/1 treatment, but `{}` ranges from {tmin} to {tmax} and {} of its values are neither 0 nor 1; recode it as 0/1, or use --method partial-out for a continuous treatment",
                 spec.method.key(),
                 spec.treatment,
-                t.distinct
+                t.not01
             )));
         }
     }
@@ -502,6 +512,7 @@ pub(crate) fn placeholder<'a>(spec: &'a Spec) -> Result<Setup<'a>, MethodError> 
             mean: Some(0.0),
             sd: Some(1.0),
             distinct: 2.0,
+            not01: 0.0,
         })
         .collect();
     let levels_of: Vec<(String, Vec<(String, f64)>)> = categorical_covariates(spec)

@@ -35,6 +35,9 @@ pub struct ProfileColumn {
     /// Whether to count distinct values (approximately where the engine can): hashing every
     /// value is the costliest part of a profile, so only columns whose checks need it ask.
     pub distinct: bool,
+    /// Whether to count the values that are neither 0 nor 1 (`c{i}_not01`): the exact, cheap
+    /// check of a 0/1 treatment.
+    pub zero_one: bool,
 }
 
 pub(crate) struct Text {
@@ -68,7 +71,7 @@ pub(crate) fn not_null(t: &mut Text, columns: &[String]) -> String {
 /// The profile pass: row count, and per column non-NULL count, minimum, maximum, mean and
 /// population standard deviation (numeric columns) and, where asked, distinct count
 /// (approximate where the engine has it). Output aliases: `n_rows`, then `c{i}_n`, `c{i}_min`, `c{i}_max`, `c{i}_mean`,
-/// `c{i}_sd`, `c{i}_distinct`, and `n_complete` (rows with no NULL in any of the columns). Means and deviations centre and scale the later passes.
+/// `c{i}_sd`, `c{i}_not01`, `c{i}_distinct` (where asked), and `n_complete` (rows with no NULL in any of the columns). Means and deviations centre and scale the later passes.
 pub fn profile(
     d: &dyn Dialect,
     source: &Source,
@@ -87,6 +90,11 @@ pub fn profile(
             items.push(format!(
                 "STDDEV_POP(CAST({p} AS {})) AS c{i}_sd",
                 d.float_type()
+            ));
+        }
+        if c.zero_one {
+            items.push(format!(
+                "SUM(CASE WHEN {p} = 0 OR {p} = 1 THEN 0 ELSE 1 END) AS c{i}_not01"
             ));
         }
         if c.distinct {

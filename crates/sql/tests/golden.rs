@@ -179,11 +179,13 @@ fn passes(d: &dyn Dialect) -> Vec<Pass> {
                     name: "spend 30d".into(),
                     numeric: true,
                     distinct: true,
+                    zero_one: false,
                 },
                 ProfileColumn {
                     name: "select".into(),
                     numeric: false,
                     distinct: true,
+                    zero_one: false,
                 },
             ],
         )
