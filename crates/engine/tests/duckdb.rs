@@ -1,7 +1,7 @@
 //! The DuckDB engine on the committed demo sample: passes run in the database and return only
 //! aggregates; results agree with the generator's own figures (demo-data/sample/*.truth.json).
 
-use upshot_engine::{Cell, DuckDbEngine, Engine, EngineError, MEMORY};
+use upshot_engine::{DuckDbEngine, Engine, EngineError, MEMORY};
 use upshot_sql::{cells, gram, parse_filter, profile, DesignTerm, ProfileColumn, Source};
 
 fn sample() -> String {
@@ -76,10 +76,9 @@ fn profile_and_cells_match_the_generator() {
     let t = truth();
     let treated = t["treated"].as_f64().unwrap();
     assert_eq!(p.number(0, "c0_mean").unwrap(), treated / 5000.0);
-    assert_eq!(
-        p.rows[0][p.names.iter().position(|n| n == "c1_min").unwrap()],
-        Cell::Text("Eastfield".into())
-    );
+    // Text columns are counted, not compared: no MIN/MAX (their levels come from another pass).
+    assert_eq!(p.number(0, "c1_n").unwrap(), 5000.0);
+    assert!(!p.names.iter().any(|n| n == "c1_min"), "{:?}", p.names);
     // Naive difference of means from the cell table (CSV spend is rounded to cents, so allow 0.01).
     let c = e
         .run(&cells(d, &src, None, &["voucher".into()], "spend_30d").unwrap())

@@ -191,8 +191,16 @@ fn profiled(a: &Aggregates, i: usize, name: &str, numeric: bool) -> Result<Profi
     Ok(Profiled {
         name: name.to_string(),
         non_null: a.number(0, &format!("c{i}_n"))?,
-        min: a.cell(0, &format!("c{i}_min"))?.clone(),
-        max: a.cell(0, &format!("c{i}_max"))?.clone(),
+        min: if numeric {
+            a.cell(0, &format!("c{i}_min"))?.clone()
+        } else {
+            Cell::Null
+        },
+        max: if numeric {
+            a.cell(0, &format!("c{i}_max"))?.clone()
+        } else {
+            Cell::Null
+        },
         mean: if numeric {
             match a.cell(0, &format!("c{i}_mean"))? {
                 Cell::Number(x) => Some(*x),

@@ -68,8 +68,8 @@ pub(crate) fn not_null(t: &mut Text, columns: &[String]) -> String {
     w
 }
 
-/// The profile pass: row count, and per column non-NULL count, minimum, maximum, mean and
-/// population standard deviation (numeric columns) and, where asked, distinct count
+/// The profile pass: row count, and per column non-NULL count, and for numeric columns
+/// minimum, maximum, mean and population standard deviation and, where asked, distinct count
 /// (approximate where the engine has it). Output aliases: `n_rows`, then `c{i}_n`, `c{i}_min`, `c{i}_max`, `c{i}_mean`,
 /// `c{i}_sd`, `c{i}_not01`, `c{i}_distinct` (where asked), and `n_complete` (rows with no NULL in any of the columns). Means and deviations centre and scale the later passes.
 pub fn profile(
@@ -83,9 +83,11 @@ pub fn profile(
     for (i, c) in columns.iter().enumerate() {
         let p = t.bind(Bind::Column(c.name.clone()));
         items.push(format!("COUNT({p}) AS c{i}_n"));
-        items.push(format!("MIN({p}) AS c{i}_min"));
-        items.push(format!("MAX({p}) AS c{i}_max"));
         if c.numeric {
+            // Text columns get no MIN/MAX: comparing strings row by row costs more than the
+            // rest of the pass, and their levels come from the levels pass.
+            items.push(format!("MIN({p}) AS c{i}_min"));
+            items.push(format!("MAX({p}) AS c{i}_max"));
             items.push(format!("AVG(CAST({p} AS {})) AS c{i}_mean", d.float_type()));
             items.push(format!(
                 "STDDEV_POP(CAST({p} AS {})) AS c{i}_sd",

@@ -7,8 +7,6 @@ SELECT
   STDDEV_POP(CAST("spend 30d" AS DOUBLE)) AS c0_sd,
   approx_count_distinct("spend 30d") AS c0_distinct,
   COUNT("select") AS c1_n,
-  MIN("select") AS c1_min,
-  MAX("select") AS c1_max,
   approx_count_distinct("select") AS c1_distinct,
   SUM(CASE WHEN "spend 30d" IS NOT NULL AND "select" IS NOT NULL THEN 1 ELSE 0 END) AS n_complete
 FROM

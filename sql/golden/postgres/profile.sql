@@ -7,8 +7,6 @@ SELECT
   STDDEV_POP(CAST("spend 30d" AS DOUBLE PRECISION)) AS c0_sd,
   COUNT(DISTINCT "spend 30d") AS c0_distinct,
   COUNT("select") AS c1_n,
-  MIN("select") AS c1_min,
-  MAX("select") AS c1_max,
   COUNT(DISTINCT "select") AS c1_distinct,
   SUM(CASE WHEN "spend 30d" IS NOT NULL AND "select" IS NOT NULL THEN 1 ELSE 0 END) AS n_complete
 FROM
