@@ -40,7 +40,11 @@ pub fn fit(path: &str, outcome: &str, covariates: &[String], logistic: bool) -> 
     };
     let centre: Vec<f64> = (0..k).map(|i| num(&prof, &format!("c{i}_mean"))).collect();
     let scale: Vec<f64> = (0..k)
-        .map(|i| num(&prof, &format!("c{i}_sd")).max(f64::MIN_POSITIVE))
+        .map(|i| {
+            let n = num(&prof, &format!("c{i}_n"));
+            let var = num(&prof, &format!("c{i}_ss")) / n - centre[i] * centre[i];
+            var.max(0.0).sqrt().max(f64::MIN_POSITIVE)
+        })
         .collect();
     let terms: Vec<DesignTerm> = (0..k)
         .map(|i| DesignTerm::Numeric {

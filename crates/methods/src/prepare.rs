@@ -209,14 +209,7 @@ fn profiled(a: &Aggregates, i: usize, name: &str, numeric: bool) -> Result<Profi
         } else {
             None
         },
-        sd: if numeric {
-            match a.cell(0, &format!("c{i}_sd"))? {
-                Cell::Number(x) => Some(*x),
-                _ => None,
-            }
-        } else {
-            None
-        },
+        sd: if numeric { scale(a, i)? } else { None },
         // Counted only where a check needs it (see `profile_pass`); 0 = not counted.
         distinct: optional(a, &format!("c{i}_distinct"))?,
         not01: optional(a, &format!("c{i}_not01"))?,
@@ -229,6 +222,32 @@ fn show(c: &Cell) -> String {
         Cell::Number(x) => format!("{x}"),
         Cell::Text(t) => t.clone(),
     }
+}
+
+/// The population standard deviation of profiled column `i` from its mean and sum of squares,
+/// for scaling: `√(Σx²/n − x̄²)`. Where cancellation leaves nothing (a mean vastly larger than
+/// the spread) but the column is not constant, half its range stands in; a constant column
+/// gets 0 (checked against min = max by the callers).
+fn scale(a: &Aggregates, i: usize) -> Result<Option<f64>, MethodError> {
+    let (Cell::Number(mean), Cell::Number(ss), Cell::Number(lo), Cell::Number(hi)) = (
+        a.cell(0, &format!("c{i}_mean"))?,
+        a.cell(0, &format!("c{i}_ss"))?,
+        a.cell(0, &format!("c{i}_min"))?,
+        a.cell(0, &format!("c{i}_max"))?,
+    ) else {
+        return Ok(None);
+    };
+    let n = a.number(0, &format!("c{i}_n"))?;
+    if lo == hi {
+        return Ok(Some(0.0));
+    }
+    let var = ss / n - mean * mean;
+    let sd = var.max(0.0).sqrt();
+    Ok(Some(if sd > 1e-6 * (hi - lo) {
+        sd
+    } else {
+        (hi - lo) / 2.0
+    }))
 }
 
 /// A profile column that only some passes carry; 0 where absent or NULL.

@@ -4,7 +4,7 @@ SELECT
   MIN("spend 30d") AS c0_min,
   MAX("spend 30d") AS c0_max,
   AVG(CAST("spend 30d" AS DOUBLE)) AS c0_mean,
-  STDDEV_POP(CAST("spend 30d" AS DOUBLE)) AS c0_sd,
+  SUM(CAST("spend 30d" AS DOUBLE) * CAST("spend 30d" AS DOUBLE)) AS c0_ss,
   approx_count_distinct("spend 30d") AS c0_distinct,
   COUNT("select") AS c1_n,
   approx_count_distinct("select") AS c1_distinct,

@@ -4,7 +4,7 @@ SELECT
   MIN("spend 30d") AS c0_min,
   MAX("spend 30d") AS c0_max,
   AVG(CAST("spend 30d" AS DOUBLE PRECISION)) AS c0_mean,
-  STDDEV_POP(CAST("spend 30d" AS DOUBLE PRECISION)) AS c0_sd,
+  SUM(CAST("spend 30d" AS DOUBLE PRECISION) * CAST("spend 30d" AS DOUBLE PRECISION)) AS c0_ss,
   COUNT(DISTINCT "spend 30d") AS c0_distinct,
   COUNT("select") AS c1_n,
   COUNT(DISTINCT "select") AS c1_distinct,
