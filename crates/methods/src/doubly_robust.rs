@@ -111,13 +111,9 @@ pub(crate) fn fold_models(s: &Setup, segs: &[Vec<KeyValue>], coef: &[Vec<Vec<f64
     }
 }
 
-fn logistic_pass(s: &Setup, models: &Models) -> Result<Pass, MethodError> {
+/// A logistic pass over the row design (segments, fold, `t`, `y`).
+fn row_logistic(s: &Setup, models: &Models, variants: Variants) -> Result<Pass, MethodError> {
     let spec = s.spec;
-    let variants = if needs_folds(spec) {
-        Variants::Complement(spec.folds)
-    } else {
-        Variants::Single
-    };
     Ok(logistic_fits(
         spec.dialect,
         &spec.source,
@@ -128,28 +124,23 @@ fn logistic_pass(s: &Setup, models: &Models) -> Result<Pass, MethodError> {
     )?)
 }
 
-fn by_fold_pass(s: &Setup, models: &Models) -> Result<Pass, MethodError> {
-    let spec = s.spec;
-    Ok(logistic_fits(
-        spec.dialect,
-        &spec.source,
-        s.filter.as_ref(),
-        &row_design(s),
-        models,
-        Variants::ByFold,
-    )?)
+/// Newton step of every fold-leaving-out fit (or of the one fit without cross-fitting).
+fn logistic_pass(s: &Setup, models: &Models) -> Result<Pass, MethodError> {
+    let variants = match needs_folds(s.spec) {
+        true => Variants::Complement(s.spec.folds),
+        false => Variants::Single,
+    };
+    row_logistic(s, models, variants)
 }
 
+/// Newton step of each segment's fit on all its rows, summed per fold.
+fn by_fold_pass(s: &Setup, models: &Models) -> Result<Pass, MethodError> {
+    row_logistic(s, models, Variants::ByFold)
+}
+
+/// Scores of the fold-leaving-out fits.
 fn scores_pass_only(s: &Setup, models: &Models) -> Result<Pass, MethodError> {
-    let spec = s.spec;
-    Ok(logistic_fits(
-        spec.dialect,
-        &spec.source,
-        s.filter.as_ref(),
-        &row_design(s),
-        models,
-        Variants::ComplementScores(spec.folds),
-    )?)
+    row_logistic(s, models, Variants::ComplementScores(s.spec.folds))
 }
 
 fn gram_pass(s: &Setup) -> Result<Pass, MethodError> {
