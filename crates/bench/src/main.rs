@@ -22,7 +22,9 @@
 //! processes and DuckDB keeps its buffer pool for the life of a process.
 //!
 //! Usage: `upshot-bench [--rows 1000000,10000000] [--p 8,32] [--segments off,on]
-//! [--methods stratify,regress,...] [--python PY] [--repeat N] [--data DIR] [--out DIR]`.
+//! [--methods stratify,regress,...] [--python PY] [--repeat N] [--data DIR] [--out DIR]
+//! [--agree TOL]`. For trying other formulations of a pass by hand, `upshot-bench --measure
+//! sql:FILE --db DB --methods regress` times the query in FILE three times on DB.
 
 mod data;
 mod memfit;

@@ -397,7 +397,9 @@ impl Variants {
 /// One Newton step of logistic regressions of the 0/1 extra `t` on the design terms, with each
 /// model's coefficients inlined. Per group and variant: `u{i} = Σ w_i (t - p)`,
 /// `h{i}_{j} = Σ p (1 - p) w_i w_j` (i ≤ j) for `w = (1, v...)`, `loglik`, `min_p`, `max_p`;
-/// for [`Variants::Complement`] the sums are prefixed `m{m}_` and grouped by the fold `f` too.
+/// for [`Variants::Complement`] the sums are prefixed `m{m}_` and grouped by the fold `f` too;
+/// [`Variants::ComplementScores`] keeps only their `u{i}`; [`Variants::ByFold`] is one fit per
+/// group with the sums grouped by fold.
 pub fn logistic_fits(
     d: &dyn Dialect,
     source: &Source,
