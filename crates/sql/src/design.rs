@@ -301,28 +301,51 @@ fn key_literal(t: &mut Text, v: &KeyValue) -> Result<String, SqlError> {
     })
 }
 
-/// The linear predictor of each row's model: `CASE WHEN k0 = .. AND f = .. THEN c0 + c1 * v0
-/// ... END`, or the plain predictor when there is one unselected model.
+/// The linear predictor of each row's model, as `CASE` expressions nested by selector key:
+/// `CASE WHEN k0 = .. THEN CASE WHEN f = .. THEN c0 + c1 * v0 ... END ... END`, or the plain
+/// predictor when there is one unselected model. Nesting matters with many models (segments ×
+/// folds): a row meets one comparison per value of each key instead of one per model (measured
+/// on 1M rows with 10 segments × 5 folds: 0.069 s against 0.119 s for one flat `CASE`).
 fn predictor(t: &mut Text, models: &Models, terms: usize) -> Result<String, SqlError> {
     let sel = &models.selector;
     if sel.keys.is_empty() && !sel.fold {
         let m = models.models.first().expect("at least one model");
         return linear(t, &m.coef, terms);
     }
+    let mut columns: Vec<String> = sel.keys.iter().map(|k| format!("k{k}")).collect();
+    if sel.fold {
+        columns.push("f".into());
+    }
+    let all: Vec<&Model> = models.models.iter().collect();
+    nested(t, &all, &columns, 0, terms)
+}
+
+/// The `CASE` over key position `pos` of `models` (which agree on the earlier positions).
+fn nested(
+    t: &mut Text,
+    models: &[&Model],
+    columns: &[String],
+    pos: usize,
+    terms: usize,
+) -> Result<String, SqlError> {
+    if pos == columns.len() {
+        let m = models.first().expect("a model per key");
+        return linear(t, &m.coef, terms);
+    }
+    // Values of this key in first-seen order, each with its models.
+    let mut groups: Vec<(&KeyValue, Vec<&Model>)> = Vec::new();
+    for m in models {
+        let v = &m.key[pos];
+        match groups.iter_mut().find(|(g, _)| *g == v) {
+            Some((_, list)) => list.push(m),
+            None => groups.push((v, vec![m])),
+        }
+    }
     let mut out = String::from("CASE");
-    for m in &models.models {
-        let mut conds = Vec::new();
-        for (pos, &k) in sel.keys.iter().enumerate() {
-            conds.push(format!("k{k} = {}", key_literal(t, &m.key[pos])?));
-        }
-        if sel.fold {
-            conds.push(format!("f = {}", key_literal(t, &m.key[sel.keys.len()])?));
-        }
-        out.push_str(&format!(
-            " WHEN {} THEN {}",
-            conds.join(" AND "),
-            linear(t, &m.coef, terms)?
-        ));
+    for (v, list) in groups {
+        let lit = key_literal(t, v)?;
+        let inner = nested(t, &list, columns, pos + 1, terms)?;
+        out.push_str(&format!(" WHEN {} = {lit} THEN {inner}", columns[pos]));
     }
     out.push_str(" END");
     Ok(out)
