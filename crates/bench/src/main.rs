@@ -210,7 +210,13 @@ fn measure(approach: &str, db: &Path, w: &Work) -> Result<Value, String> {
                 columns: Some(columns),
             };
             let mut times: Vec<(String, f64)> = Vec::new();
+            // UPSHOT_BENCH_DUMP=DIR writes each pass's SQL there, for study by hand.
+            let dump = std::env::var_os("UPSHOT_BENCH_DUMP").map(PathBuf::from);
             let mut runner = |p: &upshot_sql::Pass| {
+                if let Some(d) = &dump {
+                    let f = d.join(format!("{:02}-{}.sql", times.len(), p.name));
+                    let _ = std::fs::write(f, p.query.to_string());
+                }
                 let t = Instant::now();
                 let r = engine.run(p).map_err(|e| e.to_string());
                 times.push((p.name.clone(), t.elapsed().as_secs_f64()));

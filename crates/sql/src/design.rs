@@ -293,6 +293,12 @@ fn linear(t: &mut Text, coef: &[f64], terms: usize) -> Result<String, SqlError> 
 
 fn key_literal(t: &mut Text, v: &KeyValue) -> Result<String, SqlError> {
     Ok(match v {
+        // Whole numbers (integer key columns, folds) as integer literals: DuckDB compares an
+        // integer column with `1.0` by casting every row to DECIMAL, which made the model
+        // selection of a segmented pass 2.7× slower (1M rows, 10 segments × 5 folds).
+        KeyValue::Number(x) if x.fract() == 0.0 && x.abs() < 9.0e15 => {
+            t.bind(Bind::Integer(*x as i64))
+        }
         KeyValue::Number(x) => {
             template::number(*x, "a group key")?;
             t.bind(Bind::Number(*x))

@@ -17,6 +17,9 @@ pub(crate) enum Bind {
     Column(String),
     /// A number of ours (means, scales, coefficients), as a numeric literal.
     Number(f64),
+    /// A whole number (a group key's value), as an integer literal: compared with an integer
+    /// column it needs no cast (`1.0` would turn each row's key into a wide DECIMAL).
+    Integer(i64),
     /// A string literal (a category level read from the data).
     Text(String),
 }
@@ -37,6 +40,7 @@ fn bind_expr(d: &dyn Dialect, b: &Bind) -> Result<Expr, SqlError> {
     Ok(match b {
         Bind::Column(c) => Expr::Identifier(Ident::with_quote(d.quote(), c.clone())),
         Bind::Number(x) => number(*x, "a pass")?,
+        Bind::Integer(i) => Expr::value(Value::Number(i.to_string(), false)),
         Bind::Text(t) => Expr::value(Value::SingleQuotedString(t.clone())),
     })
 }

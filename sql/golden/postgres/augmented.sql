@@ -48,32 +48,32 @@ FROM
           CASE
             WHEN k0 = 'new' THEN
               CASE
-                WHEN f = 0.0 THEN
+                WHEN f = 0 THEN
                   50.0 + 0.5 * v0 + -0.25 * v1
-                WHEN f = 1.0 THEN
+                WHEN f = 1 THEN
                   51.0 + 0.5 * v0 + -0.25 * v1
               END
             WHEN k0 = '1y' THEN
               CASE
-                WHEN f = 0.0 THEN
+                WHEN f = 0 THEN
                   50.0 + 0.5 * v0 + -0.25 * v1
-                WHEN f = 1.0 THEN
+                WHEN f = 1 THEN
                   51.0 + 0.5 * v0 + -0.25 * v1
               END
           END AS m1,
           CASE
             WHEN k0 = 'new' THEN
               CASE
-                WHEN f = 0.0 THEN
+                WHEN f = 0 THEN
                   40.0 + 0.5 * v0 + -0.25 * v1
-                WHEN f = 1.0 THEN
+                WHEN f = 1 THEN
                   41.0 + 0.5 * v0 + -0.25 * v1
               END
             WHEN k0 = '1y' THEN
               CASE
-                WHEN f = 0.0 THEN
+                WHEN f = 0 THEN
                   40.0 + 0.5 * v0 + -0.25 * v1
-                WHEN f = 1.0 THEN
+                WHEN f = 1 THEN
                   41.0 + 0.5 * v0 + -0.25 * v1
               END
           END AS m0
@@ -84,16 +84,16 @@ FROM
               CASE
                 WHEN k0 = 'new' THEN
                   CASE
-                    WHEN f = 0.0 THEN
+                    WHEN f = 0 THEN
                       0.0 + 0.5 * v0 + -0.25 * v1
-                    WHEN f = 1.0 THEN
+                    WHEN f = 1 THEN
                       1.0 + 0.5 * v0 + -0.25 * v1
                   END
                 WHEN k0 = '1y' THEN
                   CASE
-                    WHEN f = 0.0 THEN
+                    WHEN f = 0 THEN
                       0.0 + 0.5 * v0 + -0.25 * v1
-                    WHEN f = 1.0 THEN
+                    WHEN f = 1 THEN
                       1.0 + 0.5 * v0 + -0.25 * v1
                   END
               END AS eta
