@@ -69,7 +69,7 @@ fn check_columns(study: &Study) -> Result<(), Failure> {
     let (source, what, location) = match (&study.source.rows, &study.source.database) {
         (Some(SourceKind::File(p)), db) => {
             let shown = p.display().to_string();
-            let glob = upshot_sql::is_parquet(&shown) && shown.contains(['*', '?', '[']);
+            let glob = upshot_sql::is_parquet_pattern(&shown);
             if !glob && !p.is_file() {
                 return Err(Failure::input(format!("{label}: [source].file: no file {}; fix the path (relative to the study file) or use --offline", p.display())));
             }

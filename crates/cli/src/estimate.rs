@@ -146,7 +146,7 @@ fn source_of(
         let shown = p.display().to_string();
         // A Parquet glob (`sales/part-*.parquet`) is checked by the engine, which names the
         // pattern when nothing matches.
-        let glob = upshot_sql::is_parquet(&shown) && shown.contains(['*', '?', '[']);
+        let glob = upshot_sql::is_parquet_pattern(&shown);
         if p.is_dir() {
             return Err(Failure::input(format!(
                 "source: {shown} is a folder; name a file, or the folder's Parquet files as a pattern such as {}",

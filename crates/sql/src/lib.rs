@@ -37,5 +37,5 @@ pub use pass::{
 };
 pub use result::{Aggregates, Cell, ResultError};
 pub use results::{results_schema_file, results_sql, ResultsSql, RESULT_COLUMNS};
-pub use source::{complete_cases, is_parquet, parse_filter, Source};
+pub use source::{complete_cases, is_parquet, is_parquet_pattern, parse_filter, Source};
 pub use sqlparser::ast::Expr;

@@ -141,6 +141,12 @@ pub fn is_parquet(path: &str) -> bool {
         .any(|ext| lower.ends_with(ext))
 }
 
+/// Whether a path is a pattern over many Parquet files (`orders/part-*.parquet`): the engine
+/// expands it, and names the pattern when nothing matches.
+pub fn is_parquet_pattern(path: &str) -> bool {
+    is_parquet(path) && path.contains(['*', '?', '['])
+}
+
 fn check_read_only(q: &Query) -> Result<(), SqlError> {
     fn body(s: &SetExpr) -> Result<(), SqlError> {
         match s {
