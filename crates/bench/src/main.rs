@@ -133,18 +133,16 @@ fn peak_rss_kb() -> f64 {
 const DB_MEMORY: &str =
     "SELECT CAST(COALESCE(SUM(memory_usage_bytes), 0) AS DOUBLE) FROM duckdb_memory()";
 
-fn open(db: &Path) -> Result<duckdb::Connection, String> {
-    let cfg = duckdb::Config::default()
-        .access_mode(duckdb::AccessMode::ReadOnly)
-        .map_err(|e| e.to_string())?;
-    duckdb::Connection::open_with_flags(db, cfg).map_err(|e| e.to_string())
+fn open(db: &Path) -> Result<upshot_duckdb_ext::Database, String> {
+    upshot_duckdb_ext::Database::open(Some(db), false).map_err(|e| e.to_string())
 }
 
 /// One measurement in this process.
 fn measure(approach: &str, db: &Path, w: &Work) -> Result<Value, String> {
     match approach {
         "scan" => {
-            let conn = open(db)?;
+            let db = open(db)?;
+            let conn = db.connection();
             let means: Vec<f64> = match scan::means_sql(w) {
                 Some(q) => {
                     let mut stmt = conn.prepare(&q).map_err(|e| e.to_string())?;
@@ -238,8 +236,9 @@ fn measure(approach: &str, db: &Path, w: &Work) -> Result<Value, String> {
         }
         "rust" => {
             let start = Instant::now();
-            let conn = open(db)?;
-            let rows = memfit::export(&conn, w)?;
+            let db = open(db)?;
+            let conn = db.connection();
+            let rows = memfit::export(conn, w)?;
             let exported = start.elapsed().as_secs_f64();
             let f = memfit::fit(&rows, w)?;
             let seconds = start.elapsed().as_secs_f64();
@@ -252,7 +251,8 @@ fn measure(approach: &str, db: &Path, w: &Work) -> Result<Value, String> {
             )
         }
         sql if sql.starts_with("sql:") => {
-            let conn = open(db)?;
+            let db = open(db)?;
+            let conn = db.connection();
             let text = std::fs::read_to_string(&sql[4..]).map_err(|e| e.to_string())?;
             let mut times = Vec::new();
             for _ in 0..3 {

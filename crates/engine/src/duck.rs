@@ -6,12 +6,14 @@ use duckdb::arrow::compute::cast;
 use duckdb::arrow::datatypes::DataType;
 use duckdb::arrow::record_batch::RecordBatch;
 use duckdb::arrow::util::display::{ArrayFormatter, FormatOptions};
-use duckdb::{AccessMode, Config, Connection};
+use duckdb::Connection;
+use upshot_duckdb_ext::Database;
 use upshot_sql::{Dialect, DuckDb, Pass, Source};
 
-/// DuckDB, embedded in the process.
+/// DuckDB, embedded in the process, with upshot's fused moments aggregate registered (so
+/// passes render for [`DuckDb`], which uses it).
 pub struct DuckDbEngine {
-    conn: Connection,
+    db: Database,
 }
 
 /// The location string of a fresh in-memory database.
@@ -20,27 +22,21 @@ pub const MEMORY: &str = "duckdb::memory:";
 impl DuckDbEngine {
     /// Opens `location`: [`MEMORY`], or a database file (opened read-only unless `write`).
     pub fn open(location: &str, write: bool) -> Result<Self, EngineError> {
-        let err = |e: duckdb::Error| EngineError::Open {
+        let path = (location != MEMORY).then(|| std::path::Path::new(location));
+        let db = Database::open(path, write).map_err(|e| EngineError::Open {
             location: location.to_string(),
             message: e.to_string(),
-        };
-        let conn = if location == MEMORY {
-            Connection::open_in_memory().map_err(err)?
-        } else {
-            let mode = if write {
-                AccessMode::ReadWrite
-            } else {
-                AccessMode::ReadOnly
-            };
-            let config = Config::default().access_mode(mode).map_err(err)?;
-            Connection::open_with_flags(location, config).map_err(err)?
-        };
-        Ok(DuckDbEngine { conn })
+        })?;
+        Ok(DuckDbEngine { db })
+    }
+
+    fn conn(&self) -> &Connection {
+        self.db.connection()
     }
 
     /// Runs statements of upshot's own (setting up test tables); never user text.
     pub fn execute_batch(&self, sql: &str) -> Result<(), EngineError> {
-        self.conn
+        self.conn()
             .execute_batch(sql)
             .map_err(|e| EngineError::Query {
                 pass: "setup".into(),
@@ -56,10 +52,12 @@ impl DuckDbEngine {
             pass: "write".into(),
             message: e.to_string(),
         };
-        self.conn.execute_batch("BEGIN TRANSACTION").map_err(err)?;
+        self.conn()
+            .execute_batch("BEGIN TRANSACTION")
+            .map_err(err)?;
         let result = (|| {
             for w in statements {
-                let mut stmt = self.conn.prepare(&w.sql)?;
+                let mut stmt = self.conn().prepare(&w.sql)?;
                 if w.rows.is_empty() {
                     stmt.execute([])?;
                 }
@@ -78,9 +76,9 @@ impl DuckDbEngine {
             Ok::<(), duckdb::Error>(())
         })();
         match result {
-            Ok(()) => self.conn.execute_batch("COMMIT").map_err(err),
+            Ok(()) => self.conn().execute_batch("COMMIT").map_err(err),
             Err(e) => {
-                let _ = self.conn.execute_batch("ROLLBACK");
+                let _ = self.conn().execute_batch("ROLLBACK");
                 Err(err(e))
             }
         }
@@ -108,7 +106,7 @@ impl DuckDbEngine {
             pass: name.to_string(),
             message: e.to_string(),
         };
-        let mut stmt = self.conn.prepare(sql).map_err(err)?;
+        let mut stmt = self.conn().prepare(sql).map_err(err)?;
         let batches: Vec<RecordBatch> = stmt.query_arrow([]).map_err(err)?.collect();
         Ok(batches)
     }
@@ -196,7 +194,7 @@ impl Engine for DuckDbEngine {
             pass: "schema".into(),
             message: e.to_string(),
         };
-        let mut stmt = self.conn.prepare(&sql).map_err(err)?;
+        let mut stmt = self.conn().prepare(&sql).map_err(err)?;
         let arrow = stmt.query_arrow([]).map_err(err)?;
         let schema = arrow.get_schema();
         Ok(schema

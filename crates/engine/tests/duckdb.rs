@@ -167,3 +167,115 @@ fn database_errors_name_the_pass() {
         .unwrap();
     assert!(err.to_string().contains("/no/such/dir/db.duckdb"), "{err}");
 }
+
+/// Every pass with sums of products gives the same numbers rendered with upshot's fused
+/// moments aggregate (`duckdb`, what `run` uses) and with one `SUM` per product
+/// (`duckdb-plain`): Gram, logistic steps (single, by fold, cross-fitting), residual moments,
+/// the weighting pass — grouped by tenure band, on the demo sample.
+#[test]
+fn fused_moments_equal_plain_sums() {
+    use upshot_sql::{
+        design_gram, design_residuals, logistic_fits, weighting_sums, Design, DuckDb, DuckDbPlain,
+        Fold, Key, KeyValue, Model, Models, Selector, Target, Variants,
+    };
+    let e = DuckDbEngine::open(MEMORY, false).unwrap();
+    let src = Source::Csv(sample());
+    let terms = vec![
+        DesignTerm::Numeric {
+            column: "prior_orders".into(),
+            centre: 2.6,
+            scale: 1.7,
+        },
+        DesignTerm::Numeric {
+            column: "household_size".into(),
+            centre: 2.5,
+            scale: 1.2,
+        },
+        DesignTerm::Level {
+            column: "zone".into(),
+            level: "Harbour".into(),
+            centre: 0.15,
+            scale: 0.36,
+        },
+    ];
+    let design = Design {
+        keys: vec![Key::Column("tenure_band".into())],
+        terms,
+        extras: vec![("t", "voucher".into()), ("y", "spend_30d".into())],
+        fold: Some(Fold {
+            unit: "customer_id".into(),
+            folds: 3,
+        }),
+    };
+    let one = Models::single(vec![-0.4, 0.5, -0.1, 0.3]);
+    let by_fold = Models {
+        selector: Selector {
+            keys: vec![],
+            fold: true,
+        },
+        models: (0..3)
+            .map(|m| Model {
+                key: vec![KeyValue::Number(f64::from(m))],
+                coef: vec![-0.4 + 0.1 * f64::from(m), 0.5, -0.1, 0.3],
+            })
+            .collect(),
+    };
+    type Build<'a> = dyn Fn(&dyn upshot_sql::Dialect) -> upshot_sql::Pass + 'a;
+    let passes: Vec<(&str, Box<Build<'_>>)> = vec![
+        (
+            "gram",
+            Box::new(|d| design_gram(d, &src, None, &design).unwrap()),
+        ),
+        (
+            "logistic",
+            Box::new(|d| logistic_fits(d, &src, None, &design, &one, Variants::Single).unwrap()),
+        ),
+        (
+            "logistic by fold",
+            Box::new(|d| logistic_fits(d, &src, None, &design, &one, Variants::ByFold).unwrap()),
+        ),
+        (
+            "logistic cross-fit",
+            Box::new(|d| {
+                logistic_fits(d, &src, None, &design, &by_fold, Variants::Complement(3)).unwrap()
+            }),
+        ),
+        (
+            "residuals",
+            Box::new(|d| design_residuals(d, &src, None, &design, &one).unwrap()),
+        ),
+        (
+            "weights",
+            Box::new(|d| weighting_sums(d, &src, None, &design, &one, Target::Ate, 0.01).unwrap()),
+        ),
+    ];
+    for (what, build) in &passes {
+        let fused = build(&DuckDb);
+        assert!(fused.sql().contains("upshot_moments("), "{what}");
+        let plain = build(&DuckDbPlain);
+        assert!(!plain.sql().contains("upshot_moments("), "{what}");
+        let a = e.run(&fused).unwrap();
+        let b = e.run(&plain).unwrap();
+        assert_eq!(a.rows.len(), b.rows.len(), "{what}");
+        let mut names = b.names.clone();
+        names.sort();
+        let mut fused_names = a.names.clone();
+        fused_names.sort();
+        assert_eq!(names, fused_names, "{what}");
+        for r in 0..b.rows.len() {
+            for name in &b.names {
+                match (a.cell(r, name).unwrap(), b.cell(r, name).unwrap()) {
+                    (upshot_engine::Cell::Number(x), upshot_engine::Cell::Number(y)) => assert!(
+                        (x - y).abs() <= 1e-10 * y.abs().max(1.0),
+                        "{what} row {r} {name}: fused {x} plain {y}"
+                    ),
+                    (x, y) => assert_eq!(x, y, "{what} row {r} {name}"),
+                }
+            }
+        }
+    }
+    assert_eq!(
+        upshot_sql::DUCKDB_MOMENTS,
+        (upshot_duckdb_ext::MOMENTS, upshot_duckdb_ext::MAX_TERMS)
+    );
+}

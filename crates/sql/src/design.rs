@@ -252,6 +252,10 @@ impl Design {
         }
     }
 
+    fn key_names(&self) -> Vec<String> {
+        (0..self.keys.len()).map(|i| format!("k{i}")).collect()
+    }
+
     fn keys_and_count(&self) -> Vec<String> {
         let mut out: Vec<String> = (0..self.keys.len()).map(|i| format!("k{i}")).collect();
         out.push("COUNT(*) AS n".into());
@@ -357,6 +361,116 @@ fn nested(
     Ok(out)
 }
 
+/// One output of an aggregate pass.
+enum Out {
+    /// `expr AS alias`, as written.
+    Plain { expr: String, alias: String },
+    /// Sums `Σ weight · z_i z_j` over `z = (1, v0, ..., v{k-1})`: one fused aggregate call where
+    /// the dialect has one, else one `SUM` per entry.
+    Products(Products),
+}
+
+/// A block of weighted sums of products of the design vector `z = (1, v...)`.
+struct Products {
+    /// The row weight.
+    weight: String,
+    /// Per output: alias, the summand written out (for plain `SUM`s), and `(i, j)`, `i ≤ j`,
+    /// indices into `z`.
+    entries: Vec<(String, String, usize, usize)>,
+}
+
+impl Out {
+    fn plain(expr: impl Into<String>, alias: impl Into<String>) -> Out {
+        Out::Plain {
+            expr: expr.into(),
+            alias: alias.into(),
+        }
+    }
+}
+
+/// `SELECT keys, outputs FROM from [GROUP BY keys ORDER BY keys]` for a design of `k` terms.
+/// With a fused moments aggregate, each [`Out::Products`] block becomes one call in an inner
+/// aggregate query, whose list the outer query unpacks into the same named columns.
+fn aggregate(d: &dyn Dialect, k: usize, keys: &[String], outs: &[Out], from: &str) -> String {
+    let fused = d.moments().filter(|(_, max)| k >= 1 && k <= *max);
+    let grouped = if keys.is_empty() {
+        String::new()
+    } else {
+        format!(" GROUP BY {}", keys.join(", "))
+    };
+    let ordered = if keys.is_empty() {
+        String::new()
+    } else {
+        format!(" ORDER BY {}", keys.join(", "))
+    };
+    let Some((function, _)) = fused.filter(|_| outs.iter().any(|o| matches!(o, Out::Products(_))))
+    else {
+        let mut items: Vec<String> = keys.to_vec();
+        for o in outs {
+            match o {
+                Out::Plain { expr, alias } => items.push(format!("{expr} AS {alias}")),
+                Out::Products(p) => {
+                    for (alias, summand, _, _) in &p.entries {
+                        items.push(format!("SUM({summand}) AS {alias}"));
+                    }
+                }
+            }
+        }
+        return format!("SELECT {} FROM {from}{grouped}{ordered}", items.join(", "));
+    };
+    let width = k + 1;
+    let vs: Vec<String> = (0..k).map(|i| format!("v{i}")).collect();
+    let mut inner: Vec<String> = keys.to_vec();
+    let mut outer: Vec<String> = keys.to_vec();
+    let mut block = 0;
+    for o in outs {
+        match o {
+            Out::Plain { expr, alias } => {
+                inner.push(format!("{expr} AS {alias}"));
+                outer.push(alias.clone());
+            }
+            Out::Products(p) => {
+                inner.push(format!(
+                    "{function}({}, {}) AS moments{block}",
+                    p.weight,
+                    vs.join(", ")
+                ));
+                for (alias, _, i, j) in &p.entries {
+                    // Row-major upper triangle of the width × width matrix, 1-based lists.
+                    let at = i * (2 * width - i + 1) / 2 + (j - i) + 1;
+                    outer.push(format!("list_extract(moments{block}, {at}) AS {alias}"));
+                }
+                block += 1;
+            }
+        }
+    }
+    format!(
+        "SELECT {} FROM (SELECT {} FROM {from}{grouped}) AS sums_{ordered}",
+        outer.join(", "),
+        inner.join(", ")
+    )
+}
+
+/// `Σ weight · w_i w_j` (`i ≤ j`) over `w = (1, v...)`, aliased `{prefix}{i}_{j}`, with the
+/// plain summand `{weight_summand}{factor(i)}{factor(j)}`.
+fn products_of(weight: &str, summand: &str, prefix: &str, k: usize) -> Products {
+    let mut entries = Vec::new();
+    for i in 0..=k {
+        for j in i..=k {
+            entries.push((
+                format!("{prefix}{i}_{j}"),
+                format!("{summand}{}{}", factor(i), factor(j)),
+                i,
+                j,
+            ));
+        }
+    }
+    Products {
+        weight: weight.to_string(),
+        entries,
+    }
+}
+
 /// The overflow-free logistic function of `eta`.
 const SIGMOID: &str =
     "CASE WHEN eta >= 0 THEN 1.0 / (1.0 + EXP(-eta)) ELSE EXP(eta) / (1.0 + EXP(eta)) END";
@@ -371,19 +485,28 @@ pub fn design_gram(
     let mut t = Text::new();
     let rows = design.rows(&mut t, d)?;
     let k = design.terms.len();
-    let mut outer = design.keys_and_count();
+    let mut entries = Vec::new();
     for i in 0..k {
-        outer.push(format!("SUM(v{i}) AS s{i}"));
+        entries.push((format!("s{i}"), format!("v{i}"), 0, i + 1));
     }
     for i in 0..k {
         for j in i..k {
-            outer.push(format!("SUM(v{i} * v{j}) AS g{i}_{j}"));
+            entries.push((format!("g{i}_{j}"), format!("v{i} * v{j}"), i + 1, j + 1));
         }
     }
-    t.sql = format!(
-        "SELECT {} FROM ({rows}) AS rows_{}",
-        outer.join(", "),
-        design.group_tail()
+    let outs = [
+        Out::plain("COUNT(*)", "n"),
+        Out::Products(Products {
+            weight: "1.0".into(),
+            entries,
+        }),
+    ];
+    t.sql = aggregate(
+        d,
+        k,
+        &design.key_names(),
+        &outs,
+        &format!("({rows}) AS rows_"),
     );
     Ok(Pass {
         name: "gram".into(),
@@ -440,20 +563,15 @@ pub fn logistic_fits(
     let mut t = Text::new();
     let rows = design.rows(&mut t, d)?;
     let k = design.terms.len();
-    let mut outer = design.keys_and_count();
-    let mut tail = design.group_tail();
+    let mut keys = design.key_names();
     if variants.complement().is_some() || variants == Variants::ByFold {
         assert!(
             design.fold.is_some(),
             "grouping by fold needs the design's fold"
         );
-        outer.insert(design.keys.len(), "f".into());
-        let keys: Vec<String> = (0..design.keys.len())
-            .map(|i| format!("k{i}"))
-            .chain(std::iter::once("f".to_string()))
-            .collect();
-        tail = format!(" GROUP BY {k} ORDER BY {k}", k = keys.join(", "));
+        keys.push("f".into());
     }
+    let mut outs = vec![Out::plain("COUNT(*)", "n")];
     let mut etas = Vec::new();
     let list: Vec<(String, Option<u32>)> = match variants.complement() {
         None => {
@@ -495,33 +613,34 @@ pub fn logistic_fits(
         };
         probs.push(format!("{} AS {p}", SIGMOID.replace("eta", &eta)));
         for i in 0..=k {
-            outer.push(format!("SUM((t - {p}){}) AS {pre}u{i}", factor(i)));
+            outs.push(Out::plain(
+                format!("SUM((t - {p}){})", factor(i)),
+                format!("{pre}u{i}"),
+            ));
         }
         if let Variants::ComplementScores(_) = variants {
             continue;
         }
-        for i in 0..=k {
-            for j in i..=k {
-                outer.push(format!(
-                    "SUM({p} * (1.0 - {p}){}{}) AS {pre}h{i}_{j}",
-                    factor(i),
-                    factor(j)
-                ));
-            }
-        }
-        outer.push(format!(
-            "SUM(t * {eta} - CASE WHEN {eta} > 0 THEN {eta} + LN(1.0 + EXP(-{eta})) ELSE LN(1.0 + EXP({eta})) END) AS {pre}loglik"
+        let curvature = format!("{p} * (1.0 - {p})");
+        outs.push(Out::Products(products_of(
+            &curvature,
+            &curvature,
+            &format!("{pre}h"),
+            k,
+        )));
+        outs.push(Out::plain(
+            format!("SUM(t * {eta} - CASE WHEN {eta} > 0 THEN {eta} + LN(1.0 + EXP(-{eta})) ELSE LN(1.0 + EXP({eta})) END)"),
+            format!("{pre}loglik"),
         ));
-        outer.push(format!("MIN({p}) AS {pre}min_p"));
-        outer.push(format!("MAX({p}) AS {pre}max_p"));
+        outs.push(Out::plain(format!("MIN({p})"), format!("{pre}min_p")));
+        outs.push(Out::plain(format!("MAX({p})"), format!("{pre}max_p")));
     }
-    t.sql = format!(
-        "SELECT {} FROM (SELECT *, {} FROM (SELECT *, {} FROM ({rows}) AS rows_) AS linear_) AS fitted_{}",
-        outer.join(", "),
+    let from = format!(
+        "(SELECT *, {} FROM (SELECT *, {} FROM ({rows}) AS rows_) AS linear_) AS fitted_",
         probs.join(", "),
         etas.join(", "),
-        tail
     );
+    t.sql = aggregate(d, k, &keys, &outs, &from);
     let what = match variants {
         Variants::Single => String::new(),
         Variants::ByFold => ", per fold".to_string(),
@@ -561,17 +680,12 @@ pub fn design_residuals(
     let rows = design.rows(&mut t, d)?;
     let k = design.terms.len();
     let fitted = predictor(&mut t, models, k)?;
-    let mut outer = design.keys_and_count();
-    for i in 0..=k {
-        for j in i..=k {
-            outer.push(format!("SUM(e * e{}{}) AS r{i}_{j}", factor(i), factor(j)));
-        }
-    }
-    t.sql = format!(
-        "SELECT {} FROM (SELECT *, y - ({fitted}) AS e FROM ({rows}) AS rows_) AS residuals_{}",
-        outer.join(", "),
-        design.group_tail()
-    );
+    let outs = [
+        Out::plain("COUNT(*)", "n"),
+        Out::Products(products_of("e * e", "e * e", "r", k)),
+    ];
+    let from = format!("(SELECT *, y - ({fitted}) AS e FROM ({rows}) AS rows_) AS residuals_");
+    t.sql = aggregate(d, k, &design.key_names(), &outs, &from);
     Ok(Pass {
         name: "residuals".into(),
         purpose: format!(
@@ -645,7 +759,7 @@ pub fn weighting_sums(
         Target::Att => ("1.0", "0.0", "e / (1.0 - e)", "e / (1.0 - e) * inside"),
         Target::Atc => ("(1.0 - e) / e", "-(1.0 - e) / e * inside", "1.0", "0.0"),
     };
-    let mut outer = design.keys_and_count();
+    let mut outs = vec![Out::plain("COUNT(*)", "n")];
     let sums: Vec<(String, String)> = vec![
         ("n1".into(), "t".into()),
         ("a1".into(), "t * w1".into()),
@@ -662,35 +776,48 @@ pub fn weighting_sums(
         ("clipped0".into(), "(1.0 - t) * (1.0 - inside)".into()),
     ];
     for (alias, e) in sums {
-        outer.push(format!("SUM({e}) AS {alias}"));
+        outs.push(Out::plain(format!("SUM({e})"), alias));
     }
-    outer.push("MIN(e_raw) AS min_e".into());
-    outer.push("MAX(e_raw) AS max_e".into());
+    outs.push(Out::plain("MIN(e_raw)", "min_e"));
+    outs.push(Out::plain("MAX(e_raw)", "max_e"));
     for i in 0..=k {
         let w = factor(i);
-        outer.push(format!("SUM(t * w1d{w}) AS d1_{i}"));
-        outer.push(format!("SUM(t * w1d * y{w}) AS d1y_{i}"));
-        outer.push(format!("SUM((1.0 - t) * w0d{w}) AS d0_{i}"));
-        outer.push(format!("SUM((1.0 - t) * w0d * y{w}) AS d0y_{i}"));
-        outer.push(format!("SUM(t * w1 * (1.0 - e_raw){w}) AS c1_{i}"));
-        outer.push(format!("SUM(t * w1 * (1.0 - e_raw) * y{w}) AS c1y_{i}"));
-        outer.push(format!("SUM((1.0 - t) * w0 * e_raw{w}) AS c0_{i}"));
-        outer.push(format!("SUM((1.0 - t) * w0 * e_raw * y{w}) AS c0y_{i}"));
+        outs.push(Out::plain(format!("SUM(t * w1d{w})"), format!("d1_{i}")));
+        outs.push(Out::plain(
+            format!("SUM(t * w1d * y{w})"),
+            format!("d1y_{i}"),
+        ));
+        outs.push(Out::plain(
+            format!("SUM((1.0 - t) * w0d{w})"),
+            format!("d0_{i}"),
+        ));
+        outs.push(Out::plain(
+            format!("SUM((1.0 - t) * w0d * y{w})"),
+            format!("d0y_{i}"),
+        ));
+        outs.push(Out::plain(
+            format!("SUM(t * w1 * (1.0 - e_raw){w})"),
+            format!("c1_{i}"),
+        ));
+        outs.push(Out::plain(
+            format!("SUM(t * w1 * (1.0 - e_raw) * y{w})"),
+            format!("c1y_{i}"),
+        ));
+        outs.push(Out::plain(
+            format!("SUM((1.0 - t) * w0 * e_raw{w})"),
+            format!("c0_{i}"),
+        ));
+        outs.push(Out::plain(
+            format!("SUM((1.0 - t) * w0 * e_raw * y{w})"),
+            format!("c0y_{i}"),
+        ));
     }
-    for i in 0..=k {
-        for j in i..=k {
-            outer.push(format!(
-                "SUM((t - e_raw) * (t - e_raw){}{}) AS s{i}_{j}",
-                factor(i),
-                factor(j)
-            ));
-        }
-    }
-    t.sql = format!(
-        "SELECT {} FROM (SELECT *, {w1} AS w1, {w1d} AS w1d, {w0} AS w0, {w0d} AS w0d FROM (SELECT *, {e} FROM (SELECT *, {eta} FROM ({rows}) AS rows_) AS linear_) AS propensity_) AS weighted_{}",
-        outer.join(", "),
-        design.group_tail()
+    let score2 = "(t - e_raw) * (t - e_raw)";
+    outs.push(Out::Products(products_of(score2, score2, "s", k)));
+    let from = format!(
+        "(SELECT *, {w1} AS w1, {w1d} AS w1d, {w0} AS w0, {w0d} AS w0d FROM (SELECT *, {e} FROM (SELECT *, {eta} FROM ({rows}) AS rows_) AS linear_) AS propensity_) AS weighted_"
     );
+    t.sql = aggregate(d, k, &design.key_names(), &outs, &from);
     Ok(Pass {
         name: "weights".into(),
         purpose: format!(

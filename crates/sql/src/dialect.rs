@@ -20,16 +20,46 @@ pub trait Dialect: Sync {
     fn approx_distinct(&self) -> Option<&'static str> {
         None
     }
+    /// A fused moments aggregate, if the engine has one: its name and the most design columns
+    /// it takes. `name(w, v_1, ..., v_k)` returns, as a list, the row-major upper triangle of
+    /// `Σ w z zᵀ` for `z = (1, v_1, ..., v_k)`; passes then compute their sums of products
+    /// with one call instead of one `SUM` per product.
+    fn moments(&self) -> Option<(&'static str, usize)> {
+        None
+    }
     /// The sqlparser dialect that parses user SQL written for this engine.
     fn parser(&self) -> Box<dyn sp::Dialect>;
 }
 
-/// DuckDB (the embedded default).
+/// The fused aggregate upshot registers in the DuckDB databases it opens (crate
+/// `upshot-duckdb-ext`, which checks these two values against its own).
+pub const DUCKDB_MOMENTS: (&str, usize) = ("upshot_moments", 160);
+
+/// DuckDB as upshot opens it (the embedded default): with upshot's fused moments aggregate.
 pub struct DuckDb;
 
 impl Dialect for DuckDb {
     fn name(&self) -> &'static str {
         "duckdb"
+    }
+    fn approx_distinct(&self) -> Option<&'static str> {
+        Some("approx_count_distinct")
+    }
+    fn moments(&self) -> Option<(&'static str, usize)> {
+        Some(DUCKDB_MOMENTS)
+    }
+    fn parser(&self) -> Box<dyn sp::Dialect> {
+        Box::new(sp::DuckDbDialect {})
+    }
+}
+
+/// Any DuckDB, without upshot's functions: sums of products as plain `SUM`s (for plans run
+/// elsewhere, and the benchmark's comparison).
+pub struct DuckDbPlain;
+
+impl Dialect for DuckDbPlain {
+    fn name(&self) -> &'static str {
+        "duckdb-plain"
     }
     fn approx_distinct(&self) -> Option<&'static str> {
         Some("approx_count_distinct")
@@ -55,7 +85,7 @@ impl Dialect for Postgres {
 }
 
 /// Every dialect upshot renders, in documentation order.
-pub static DIALECTS: [&dyn Dialect; 2] = [&DuckDb, &Postgres];
+pub static DIALECTS: [&dyn Dialect; 3] = [&DuckDb, &DuckDbPlain, &Postgres];
 
 /// Looks a dialect up by its name.
 pub fn dialect_by_name(name: &str) -> Option<&'static dyn Dialect> {

@@ -29,7 +29,9 @@ pub use design::{
     partial_out_sums, weighting_sums, Design, Fold, Key, KeyValue, Model, Models, Nuisances,
     Selector, Target, Variants, FOLD_PRIME,
 };
-pub use dialect::{dialect_by_name, Dialect, DuckDb, Postgres, DIALECTS};
+pub use dialect::{
+    dialect_by_name, Dialect, DuckDb, DuckDbPlain, Postgres, DIALECTS, DUCKDB_MOMENTS,
+};
 pub use error::SqlError;
 pub use pass::{
     cells, gram, logistic_step, profile, residual_moments, schema_probe, DesignTerm, Pass,

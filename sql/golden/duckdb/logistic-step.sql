@@ -1,42 +1,54 @@
 SELECT
-  COUNT(*) AS n,
-  SUM((t - p)) AS u0,
-  SUM((t - p) * v0) AS u1,
-  SUM((t - p) * v1) AS u2,
-  SUM(p * (1.0 - p)) AS h0_0,
-  SUM(p * (1.0 - p) * v0) AS h0_1,
-  SUM(p * (1.0 - p) * v1) AS h0_2,
-  SUM(p * (1.0 - p) * v0 * v0) AS h1_1,
-  SUM(p * (1.0 - p) * v0 * v1) AS h1_2,
-  SUM(p * (1.0 - p) * v1 * v1) AS h2_2,
-  SUM(t * eta - CASE WHEN eta > 0 THEN eta + LN(1.0 + EXP(-eta)) ELSE LN(1.0 + EXP(eta)) END) AS loglik,
-  MIN(p) AS min_p,
-  MAX(p) AS max_p
+  n,
+  u0,
+  u1,
+  u2,
+  list_extract(moments0, 1) AS h0_0,
+  list_extract(moments0, 2) AS h0_1,
+  list_extract(moments0, 3) AS h0_2,
+  list_extract(moments0, 4) AS h1_1,
+  list_extract(moments0, 5) AS h1_2,
+  list_extract(moments0, 6) AS h2_2,
+  loglik,
+  min_p,
+  max_p
 FROM
   (
     SELECT
-      *,
-      CASE
-        WHEN eta >= 0 THEN
-          1.0 / (1.0 + EXP(-eta))
-        ELSE
-          EXP(eta) / (1.0 + EXP(eta))
-      END AS p
+      COUNT(*) AS n,
+      SUM((t - p)) AS u0,
+      SUM((t - p) * v0) AS u1,
+      SUM((t - p) * v1) AS u2,
+      upshot_moments(p * (1.0 - p), v0, v1) AS moments0,
+      SUM(t * eta - CASE WHEN eta > 0 THEN eta + LN(1.0 + EXP(-eta)) ELSE LN(1.0 + EXP(eta)) END) AS loglik,
+      MIN(p) AS min_p,
+      MAX(p) AS max_p
     FROM
       (
         SELECT
           *,
-          0.25 + -0.75 * v0 + 0.3333333333333333 * v1 AS eta
+          CASE
+            WHEN eta >= 0 THEN
+              1.0 / (1.0 + EXP(-eta))
+            ELSE
+              EXP(eta) / (1.0 + EXP(eta))
+          END AS p
         FROM
           (
             SELECT
-              (CAST("prior_orders" AS DOUBLE) - 2.65) / 1.7 AS v0,
-              (CASE WHEN CAST("zone" AS VARCHAR) = 'Old Town' THEN 1.0 ELSE 0.0 END - 0.17) / 0.375 AS v1,
-              CAST("voucher" AS DOUBLE) AS t
+              *,
+              0.25 + -0.75 * v0 + 0.3333333333333333 * v1 AS eta
             FROM
-              "main"."order lines" AS src
-            WHERE
-              true AND "prior_orders" IS NOT NULL AND "zone" IS NOT NULL AND "voucher" IS NOT NULL
-          ) AS rows_
-      ) AS linear_
-  ) AS fitted_
+              (
+                SELECT
+                  (CAST("prior_orders" AS DOUBLE) - 2.65) / 1.7 AS v0,
+                  (CASE WHEN CAST("zone" AS VARCHAR) = 'Old Town' THEN 1.0 ELSE 0.0 END - 0.17) / 0.375 AS v1,
+                  CAST("voucher" AS DOUBLE) AS t
+                FROM
+                  "main"."order lines" AS src
+                WHERE
+                  true AND "prior_orders" IS NOT NULL AND "zone" IS NOT NULL AND "voucher" IS NOT NULL
+              ) AS rows_
+          ) AS linear_
+      ) AS fitted_
+  ) AS sums_
