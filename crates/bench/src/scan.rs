@@ -8,6 +8,10 @@
 //! - doubly-robust: the centred Gram matrix of [covariates, y] grouped by [region,] fold, arm.
 //! - partial-out: the centred Gram matrix of [covariates, t, y] grouped by [region,] fold.
 //!
+//! Each is measured twice where it has products: with one `SUM(a * b)` per product, and with
+//! upshot's fused `upshot_moments` aggregate (registered by `upshot-duckdb-ext`); the floor is
+//! the faster of the two.
+//!
 //! The text is the benchmark's own (fixed column names), written the way a person would write
 //! it by hand; centring constants are the columns' means, computed before the clock starts.
 
@@ -64,14 +68,16 @@ pub fn means_sql(w: &Work) -> Option<String> {
     ))
 }
 
-/// The scan-limit query; `means` from [`means_sql`] (ignored for stratify).
-pub fn sql(w: &Work, means: &[f64]) -> String {
+/// The scan-limit query; `means` from [`means_sql`] (ignored for stratify). With `fused`, the
+/// sums of products come from upshot's `upshot_moments` aggregate (one call) instead of one
+/// `SUM` each; `None` for stratify, which has no products.
+pub fn sql(w: &Work, means: &[f64], fused: bool) -> Option<String> {
     let seg = if w.segments { "region, " } else { "" };
     if w.method == Estimator::Stratify {
-        return format!(
+        return (!fused).then(|| format!(
             "SELECT {seg}prior_orders, zone, voucher, COUNT(*) AS n, SUM(spend_30d) AS sy, \
              SUM(spend_30d * spend_30d) AS syy FROM customers GROUP BY {seg}prior_orders, zone, voucher"
-        );
+        ));
     }
     let t = terms(w);
     let mut keys: Vec<String> = Vec::new();
@@ -102,12 +108,17 @@ pub fn sql(w: &Work, means: &[f64]) -> String {
         )
         .collect();
     let mut sums = vec!["COUNT(*) AS n".to_string()];
-    for i in 0..t.len() {
-        sums.push(format!("SUM(v{i}) AS s{i}"));
-    }
-    for i in 0..t.len() {
-        for j in i..t.len() {
-            sums.push(format!("SUM(v{i} * v{j}) AS g{i}_{j}"));
+    if fused {
+        let vs: Vec<String> = (0..t.len()).map(|i| format!("v{i}")).collect();
+        sums.push(format!("upshot_moments(1.0, {}) AS m", vs.join(", ")));
+    } else {
+        for i in 0..t.len() {
+            sums.push(format!("SUM(v{i}) AS s{i}"));
+        }
+        for i in 0..t.len() {
+            for j in i..t.len() {
+                sums.push(format!("SUM(v{i} * v{j}) AS g{i}_{j}"));
+            }
         }
     }
     let group = if key_names.is_empty() {
@@ -120,11 +131,11 @@ pub fn sql(w: &Work, means: &[f64]) -> String {
     } else {
         format!("{}, ", key_names.join(", "))
     };
-    format!(
+    Some(format!(
         "SELECT {select_keys}{} FROM (SELECT {} FROM customers) AS r{group}",
         sums.join(", "),
         inner.join(", ")
-    )
+    ))
 }
 
 /// The number of sums the scan-limit query computes per group.
