@@ -780,37 +780,25 @@ pub fn weighting_sums(
     }
     outs.push(Out::plain("MIN(e_raw)", "min_e"));
     outs.push(Out::plain("MAX(e_raw)", "max_e"));
+    // Per design entry w_i: the derivative terms and the cross terms with the logistic score.
+    let linear = [
+        ("d1_", "t * w1d"),
+        ("d1y_", "t * w1d * y"),
+        ("d0_", "(1.0 - t) * w0d"),
+        ("d0y_", "(1.0 - t) * w0d * y"),
+        ("c1_", "t * w1 * (1.0 - e_raw)"),
+        ("c1y_", "t * w1 * (1.0 - e_raw) * y"),
+        ("c0_", "(1.0 - t) * w0 * e_raw"),
+        ("c0y_", "(1.0 - t) * w0 * e_raw * y"),
+    ];
     for i in 0..=k {
         let w = factor(i);
-        outs.push(Out::plain(format!("SUM(t * w1d{w})"), format!("d1_{i}")));
-        outs.push(Out::plain(
-            format!("SUM(t * w1d * y{w})"),
-            format!("d1y_{i}"),
-        ));
-        outs.push(Out::plain(
-            format!("SUM((1.0 - t) * w0d{w})"),
-            format!("d0_{i}"),
-        ));
-        outs.push(Out::plain(
-            format!("SUM((1.0 - t) * w0d * y{w})"),
-            format!("d0y_{i}"),
-        ));
-        outs.push(Out::plain(
-            format!("SUM(t * w1 * (1.0 - e_raw){w})"),
-            format!("c1_{i}"),
-        ));
-        outs.push(Out::plain(
-            format!("SUM(t * w1 * (1.0 - e_raw) * y{w})"),
-            format!("c1y_{i}"),
-        ));
-        outs.push(Out::plain(
-            format!("SUM((1.0 - t) * w0 * e_raw{w})"),
-            format!("c0_{i}"),
-        ));
-        outs.push(Out::plain(
-            format!("SUM((1.0 - t) * w0 * e_raw * y{w})"),
-            format!("c0y_{i}"),
-        ));
+        for (alias, summand) in linear {
+            outs.push(Out::plain(
+                format!("SUM({summand}{w})"),
+                format!("{alias}{i}"),
+            ));
+        }
     }
     let score2 = "(t - e_raw) * (t - e_raw)";
     outs.push(Out::Products(products_of(score2, score2, "s", k)));
