@@ -452,14 +452,14 @@ fn aggregate(d: &dyn Dialect, k: usize, keys: &[String], outs: &[Out], from: &st
 }
 
 /// `Σ weight · w_i w_j` (`i ≤ j`) over `w = (1, v...)`, aliased `{prefix}{i}_{j}`, with the
-/// plain summand `{weight_summand}{factor(i)}{factor(j)}`.
-fn products_of(weight: &str, summand: &str, prefix: &str, k: usize) -> Products {
+/// plain summand `{weight}{factor(i)}{factor(j)}`.
+fn products_of(weight: &str, prefix: &str, k: usize) -> Products {
     let mut entries = Vec::new();
     for i in 0..=k {
         for j in i..=k {
             entries.push((
                 format!("{prefix}{i}_{j}"),
-                format!("{summand}{}{}", factor(i), factor(j)),
+                format!("{weight}{}{}", factor(i), factor(j)),
                 i,
                 j,
             ));
@@ -624,7 +624,6 @@ pub fn logistic_fits(
         let curvature = format!("{p} * (1.0 - {p})");
         outs.push(Out::Products(products_of(
             &curvature,
-            &curvature,
             &format!("{pre}h"),
             k,
         )));
@@ -682,7 +681,7 @@ pub fn design_residuals(
     let fitted = predictor(&mut t, models, k)?;
     let outs = [
         Out::plain("COUNT(*)", "n"),
-        Out::Products(products_of("e * e", "e * e", "r", k)),
+        Out::Products(products_of("e * e", "r", k)),
     ];
     let from = format!("(SELECT *, y - ({fitted}) AS e FROM ({rows}) AS rows_) AS residuals_");
     t.sql = aggregate(d, k, &design.key_names(), &outs, &from);
@@ -801,7 +800,7 @@ pub fn weighting_sums(
         }
     }
     let score2 = "(t - e_raw) * (t - e_raw)";
-    outs.push(Out::Products(products_of(score2, score2, "s", k)));
+    outs.push(Out::Products(products_of(score2, "s", k)));
     let from = format!(
         "(SELECT *, {w1} AS w1, {w1d} AS w1d, {w0} AS w0, {w0d} AS w0d FROM (SELECT *, {e} FROM (SELECT *, {eta} FROM ({rows}) AS rows_) AS linear_) AS propensity_) AS weighted_"
     );
