@@ -2,7 +2,9 @@
 //!
 //! The primary trait is [`Engine`]: run one pass and return its small result as
 //! [`Aggregates`], and report a source's columns. [`DuckDbEngine`] is the embedded default
-//! (a DuckDB file, or `duckdb::memory:`), which can also read CSV files as a source.
+//! (a DuckDB file, or `duckdb::memory:`), which can also read CSV and Parquet files as a source;
+//! it opens databases through `upshot-duckdb-ext`, so upshot's `upshot_moments` aggregate is
+//! registered for the passes rendered in the `duckdb` dialect.
 //!
 //! Key design decision: an engine receives a built [`upshot_sql::Pass`] and renders it with its
 //! own dialect; it never builds SQL from strings, and results are converted from Arrow into a
