@@ -258,6 +258,15 @@ fn optional(a: &Aggregates, name: &str) -> Result<f64, MethodError> {
     })
 }
 
+/// Whether the profile computes column `c`'s numeric statistics (min, max, mean, sum of
+/// squares): numeric columns that a later pass centres and scales, and the treatment (its
+/// checks). Stratify fits no design, so of its columns only the treatment needs them — at 10M
+/// rows the statistics of the outcome and strata cost as much as the rest of its profile.
+fn with_stats(spec: &Spec, c: &str) -> bool {
+    let numeric = !is_categorical(spec, c) || c == spec.treatment || c == spec.outcome;
+    numeric && (spec.method != Estimator::Stratify || c == spec.treatment)
+}
+
 /// The profile pass of a spec.
 pub(crate) fn profile_pass(spec: &Spec) -> Result<Pass, MethodError> {
     let cols: Vec<ProfileColumn> = used_columns(spec)
@@ -272,7 +281,7 @@ pub(crate) fn profile_pass(spec: &Spec) -> Result<Pass, MethodError> {
                 && c != spec.treatment
                 && modelled(spec).contains(&c);
             ProfileColumn {
-                numeric,
+                numeric: with_stats(spec, &c),
                 distinct,
                 zero_one: c == spec.treatment,
                 name: c,
@@ -327,8 +336,7 @@ pub(crate) fn prepare<'a>(spec: &'a Spec, r: &mut dyn Runner) -> Result<Setup<'a
     }
     let mut profiled_cols = Vec::new();
     for (i, c) in used.iter().enumerate() {
-        let numeric = !is_categorical(spec, c) || *c == spec.treatment || *c == spec.outcome;
-        profiled_cols.push(profiled(&prof, i, c, numeric)?);
+        profiled_cols.push(profiled(&prof, i, c, with_stats(spec, c))?);
     }
     let n_complete = prof.number_or(0, "n_complete", 0.0)?;
     let null_columns: Vec<(String, f64)> = profiled_cols
@@ -412,7 +420,17 @@ pub(crate) fn prepare<'a>(spec: &'a Spec, r: &mut dyn Runner) -> Result<Setup<'a
         terms: vec![],
         term_names: vec![],
         treatment_term: numeric_term(t)?,
-        outcome_term: numeric_term(col(&spec.outcome))?,
+        outcome_term: if spec.method == Estimator::Stratify {
+            // Stratify fits no design: the term is never used, and the profile skips the
+            // outcome's statistics.
+            DesignTerm::Numeric {
+                column: spec.outcome.clone(),
+                centre: 0.0,
+                scale: 1.0,
+            }
+        } else {
+            numeric_term(col(&spec.outcome))?
+        },
         profiled: profiled_cols.clone(),
         diagnostics: Diagnostics {
             rows_read: n_rows,

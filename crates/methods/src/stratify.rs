@@ -71,8 +71,8 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     let spec = s.spec;
     for c in &crate::prepare::modelled(spec) {
         if let Some(p) = s.column(c) {
-            if p.mean.is_some() && !spec.categorical.contains(c) && p.distinct > MAX_STRATUM_VALUES
-            {
+            // Distinct values are counted for numeric strata only (`profile_pass`).
+            if !spec.categorical.contains(c) && p.distinct > MAX_STRATUM_VALUES {
                 return Err(MethodError::Input(format!(
                     "adjustment column `{c}` has about {} distinct values: stratify needs discrete strata. Use --method regress, weight or doubly-robust, or bin `{c}` in a source query",
                     p.distinct
