@@ -3,7 +3,9 @@
 //! Provides [`Database`] (a DuckDB database upshot opened, with a `duckdb::Connection` on it)
 //! and the aggregate `upshot_moments(w, v_1, ..., v_k)` ([`MOMENTS`]): per group, the upper
 //! triangle, row by row, of `Σ w z zᵀ` for `z = (1, v_1, ..., v_k)`, as one `LIST(DOUBLE)` —
-//! the count (or weight total), first and second moments of a design in one aggregate.
+//! the count (or weight total), first and second moments of a design in one aggregate; and
+//! the scalar function `upshot_linear([c_0, ..., c_k], x_1, ..., x_k)` ([`LINEAR`]), a linear
+//! predictor in one call.
 //!
 //! Key design decision: one fused aggregate instead of `(k + 1)(k + 2) / 2` separate
 //! `SUM(a * b)` expressions. DuckDB evaluates each of those as its own projection and its own
@@ -16,6 +18,7 @@
 //! knows nothing of diagrams or estimators.
 #![deny(missing_docs)]
 
+mod linear;
 mod moments;
 
 use duckdb::ffi;
@@ -23,6 +26,7 @@ use std::ffi::{CStr, CString};
 use std::path::Path;
 use std::ptr;
 
+pub use linear::LINEAR;
 pub use moments::{triangle_index, MAX_TERMS, MOMENTS};
 
 /// Opening a database or registering upshot's functions failed.
@@ -98,8 +102,17 @@ impl Database {
             }
         }
         let mut db = Database { conn: None, raw };
-        // SAFETY: `raw` is an open database; registration uses its own short-lived connection.
-        unsafe { moments::register(db.raw)? };
+        // SAFETY: `raw` is an open database; registration uses its own short-lived connection
+        // (functions go to the database's system catalog, seen by every connection).
+        unsafe {
+            let mut con: ffi::duckdb_connection = ptr::null_mut();
+            if ffi::duckdb_connect(db.raw, &mut con) != ffi::DuckDBSuccess {
+                return Err(ExtError::Register(MOMENTS));
+            }
+            let done = moments::register(con).and_then(|()| linear::register(con));
+            ffi::duckdb_disconnect(&mut con);
+            done?;
+        }
         // SAFETY: `raw` stays open until `Drop`, which drops this connection first.
         db.conn = Some(unsafe { duckdb::Connection::open_from_raw(db.raw) }?);
         Ok(db)
@@ -191,6 +204,26 @@ mod tests {
                         "{key}: {x} vs {y}"
                     );
                 }
+            }
+        }
+        // The linear predictor gives the same bits as the arithmetic it replaces, and NULL
+        // where a value is NULL.
+        let mut s = c
+            .prepare(
+                "SELECT upshot_linear([0.25, -1.5, 0.75, 2.0], a, b, c) = 0.25 + -1.5 * a + 0.75 * b + 2.0 * c, \
+                 upshot_linear([0.25, -1.5, 0.75, 2.0], a, b, c) IS NULL, a IS NULL FROM t ORDER BY i",
+            )
+            .unwrap();
+        let rows: Vec<(Option<bool>, bool, bool)> = s
+            .query_map([], |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)))
+            .unwrap()
+            .map(|r| r.unwrap())
+            .collect();
+        assert_eq!(rows.len(), 10_001);
+        for (same, null, a_null) in rows {
+            assert_eq!(null, a_null);
+            if !a_null {
+                assert_eq!(same, Some(true));
             }
         }
         assert_eq!(triangle_index(4, 0, 3), 3);

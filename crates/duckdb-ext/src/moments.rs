@@ -297,15 +297,11 @@ unsafe extern "C" fn drop_width(p: *mut c_void) {
     drop(unsafe { Box::from_raw(p as *mut usize) });
 }
 
-/// Registers every overload (1 to [`MAX_TERMS`] design columns) on database `db`.
+/// Registers every overload (1 to [`MAX_TERMS`] design columns) through connection `con`.
 ///
-/// SAFETY: `db` must be an open database.
-pub(crate) unsafe fn register(db: ffi::duckdb_database) -> Result<(), ExtError> {
+/// SAFETY: `con` must be an open connection.
+pub(crate) unsafe fn register(con: ffi::duckdb_connection) -> Result<(), ExtError> {
     unsafe {
-        let mut con: ffi::duckdb_connection = std::ptr::null_mut();
-        if ffi::duckdb_connect(db, &mut con) != ffi::DuckDBSuccess {
-            return Err(ExtError::Register(MOMENTS));
-        }
         let name = c"upshot_moments";
         let mut set = ffi::duckdb_create_aggregate_function_set(name.as_ptr() as *const c_char);
         let mut double = ffi::duckdb_create_logical_type(ffi::DUCKDB_TYPE_DUCKDB_TYPE_DOUBLE);
@@ -339,7 +335,6 @@ pub(crate) unsafe fn register(db: ffi::duckdb_database) -> Result<(), ExtError> 
         ffi::duckdb_destroy_aggregate_function_set(&mut set);
         ffi::duckdb_destroy_logical_type(&mut list);
         ffi::duckdb_destroy_logical_type(&mut double);
-        ffi::duckdb_disconnect(&mut con);
         if ok {
             Ok(())
         } else {

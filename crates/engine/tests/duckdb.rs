@@ -168,15 +168,18 @@ fn database_errors_name_the_pass() {
     assert!(err.to_string().contains("/no/such/dir/db.duckdb"), "{err}");
 }
 
-/// Every pass with sums of products gives the same numbers rendered with upshot's fused
-/// moments aggregate (`duckdb`, what `run` uses) and with one `SUM` per product
-/// (`duckdb-plain`): Gram, logistic steps (single, by fold, cross-fitting), residual moments,
-/// the weighting pass — grouped by tenure band, on the demo sample.
+/// Every pass with sums of products or inlined models gives the same numbers rendered with
+/// upshot's functions (`duckdb`, what `run` uses: the fused moments aggregate and the
+/// linear-predictor function) and without them (`duckdb-plain`: one `SUM` per product, plain
+/// arithmetic): Gram, logistic steps (single, by fold, cross-fitting), residual moments, the
+/// weighting, augmented and partial-out score passes — grouped by tenure band, on the demo
+/// sample.
 #[test]
 fn fused_moments_equal_plain_sums() {
     use upshot_sql::{
-        design_gram, design_residuals, logistic_fits, weighting_sums, Design, DuckDb, DuckDbPlain,
-        Fold, Key, KeyValue, Model, Models, Selector, Target, Variants,
+        augmented_sums, design_gram, design_residuals, logistic_fits, partial_out_sums,
+        weighting_sums, Design, DuckDb, DuckDbPlain, Fold, Key, KeyValue, Model, Models, Nuisances,
+        Selector, Target, Variants,
     };
     let e = DuckDbEngine::open(MEMORY, false).unwrap();
     let src = Source::Csv(sample());
@@ -248,12 +251,32 @@ fn fused_moments_equal_plain_sums() {
             "weights",
             Box::new(|d| weighting_sums(d, &src, None, &design, &one, Target::Ate, 0.01).unwrap()),
         ),
+        (
+            "augmented scores",
+            Box::new(|d| {
+                let n = Nuisances {
+                    propensity: &by_fold,
+                    treated: &one,
+                    control: &by_fold,
+                    target: Target::Att,
+                    clip: 0.01,
+                };
+                augmented_sums(d, &src, None, &design, &n).unwrap()
+            }),
+        ),
+        (
+            "partial-out scores",
+            Box::new(|d| partial_out_sums(d, &src, None, &design, &by_fold, &one).unwrap()),
+        ),
     ];
     for (what, build) in &passes {
         let fused = build(&DuckDb);
-        assert!(fused.sql().contains("upshot_moments("), "{what}");
+        assert!(
+            fused.sql().contains("upshot_moments(") || fused.sql().contains("upshot_linear("),
+            "{what}"
+        );
         let plain = build(&DuckDbPlain);
-        assert!(!plain.sql().contains("upshot_moments("), "{what}");
+        assert!(!plain.sql().contains("upshot_"), "{what}");
         let a = e.run(&fused).unwrap();
         let b = e.run(&plain).unwrap();
         assert_eq!(a.rows.len(), b.rows.len(), "{what}");
@@ -278,4 +301,5 @@ fn fused_moments_equal_plain_sums() {
         upshot_sql::DUCKDB_MOMENTS,
         (upshot_duckdb_ext::MOMENTS, upshot_duckdb_ext::MAX_TERMS)
     );
+    assert_eq!(upshot_sql::DUCKDB_LINEAR, upshot_duckdb_ext::LINEAR);
 }

@@ -27,6 +27,13 @@ pub trait Dialect: Sync {
     fn moments(&self) -> Option<(&'static str, usize)> {
         None
     }
+    /// A linear-predictor scalar function, if the engine has one:
+    /// `name([c_0, c_1, ..., c_k], x_1, ..., x_k) = c_0 + c_1 x_1 + ... + c_k x_k`, summed left
+    /// to right. Passes then evaluate each inlined model with one call instead of two operations
+    /// per term.
+    fn linear(&self) -> Option<&'static str> {
+        None
+    }
     /// The sqlparser dialect that parses user SQL written for this engine.
     fn parser(&self) -> Box<dyn sp::Dialect>;
 }
@@ -35,7 +42,11 @@ pub trait Dialect: Sync {
 /// `upshot-duckdb-ext`, which checks these two values against its own).
 pub const DUCKDB_MOMENTS: (&str, usize) = ("upshot_moments", 160);
 
-/// DuckDB as upshot opens it (the embedded default): with upshot's fused moments aggregate.
+/// The linear-predictor function upshot registers in the DuckDB databases it opens.
+pub const DUCKDB_LINEAR: &str = "upshot_linear";
+
+/// DuckDB as upshot opens it (the embedded default): with upshot's fused moments aggregate and
+/// linear-predictor function.
 pub struct DuckDb;
 
 impl Dialect for DuckDb {
@@ -48,13 +59,16 @@ impl Dialect for DuckDb {
     fn moments(&self) -> Option<(&'static str, usize)> {
         Some(DUCKDB_MOMENTS)
     }
+    fn linear(&self) -> Option<&'static str> {
+        Some(DUCKDB_LINEAR)
+    }
     fn parser(&self) -> Box<dyn sp::Dialect> {
         Box::new(sp::DuckDbDialect {})
     }
 }
 
-/// Any DuckDB, without upshot's functions: sums of products as plain `SUM`s (for plans run
-/// elsewhere, and the benchmark's comparison).
+/// Any DuckDB, without upshot's functions: sums of products as plain `SUM`s and predictors as
+/// plain arithmetic (for plans run elsewhere, and the benchmark's comparison).
 pub struct DuckDbPlain;
 
 impl Dialect for DuckDbPlain {

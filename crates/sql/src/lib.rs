@@ -30,7 +30,8 @@ pub use design::{
     Selector, Target, Variants, FOLD_PRIME,
 };
 pub use dialect::{
-    dialect_by_name, Dialect, DuckDb, DuckDbPlain, Postgres, DIALECTS, DUCKDB_MOMENTS,
+    dialect_by_name, Dialect, DuckDb, DuckDbPlain, Postgres, DIALECTS, DUCKDB_LINEAR,
+    DUCKDB_MOMENTS,
 };
 pub use error::SqlError;
 pub use pass::{

@@ -49,32 +49,32 @@ FROM
             WHEN k0 = 'new' THEN
               CASE
                 WHEN f = 0 THEN
-                  50.0 + 0.5 * v0 + -0.25 * v1
+                  upshot_linear([50.0, 0.5, -0.25], v0, v1)
                 WHEN f = 1 THEN
-                  51.0 + 0.5 * v0 + -0.25 * v1
+                  upshot_linear([51.0, 0.5, -0.25], v0, v1)
               END
             WHEN k0 = '1y' THEN
               CASE
                 WHEN f = 0 THEN
-                  50.0 + 0.5 * v0 + -0.25 * v1
+                  upshot_linear([50.0, 0.5, -0.25], v0, v1)
                 WHEN f = 1 THEN
-                  51.0 + 0.5 * v0 + -0.25 * v1
+                  upshot_linear([51.0, 0.5, -0.25], v0, v1)
               END
           END AS m1,
           CASE
             WHEN k0 = 'new' THEN
               CASE
                 WHEN f = 0 THEN
-                  40.0 + 0.5 * v0 + -0.25 * v1
+                  upshot_linear([40.0, 0.5, -0.25], v0, v1)
                 WHEN f = 1 THEN
-                  41.0 + 0.5 * v0 + -0.25 * v1
+                  upshot_linear([41.0, 0.5, -0.25], v0, v1)
               END
             WHEN k0 = '1y' THEN
               CASE
                 WHEN f = 0 THEN
-                  40.0 + 0.5 * v0 + -0.25 * v1
+                  upshot_linear([40.0, 0.5, -0.25], v0, v1)
                 WHEN f = 1 THEN
-                  41.0 + 0.5 * v0 + -0.25 * v1
+                  upshot_linear([41.0, 0.5, -0.25], v0, v1)
               END
           END AS m0
         FROM
@@ -85,16 +85,16 @@ FROM
                 WHEN k0 = 'new' THEN
                   CASE
                     WHEN f = 0 THEN
-                      0.0 + 0.5 * v0 + -0.25 * v1
+                      upshot_linear([0.0, 0.5, -0.25], v0, v1)
                     WHEN f = 1 THEN
-                      1.0 + 0.5 * v0 + -0.25 * v1
+                      upshot_linear([1.0, 0.5, -0.25], v0, v1)
                   END
                 WHEN k0 = '1y' THEN
                   CASE
                     WHEN f = 0 THEN
-                      0.0 + 0.5 * v0 + -0.25 * v1
+                      upshot_linear([0.0, 0.5, -0.25], v0, v1)
                     WHEN f = 1 THEN
-                      1.0 + 0.5 * v0 + -0.25 * v1
+                      upshot_linear([1.0, 0.5, -0.25], v0, v1)
                   END
               END AS eta
             FROM

@@ -41,7 +41,7 @@ FROM
           (
             SELECT
               *,
-              0.1 + 0.2 * v0 + 0.3 * v1 AS eta
+              upshot_linear([0.1, 0.2, 0.3], v0, v1) AS eta
             FROM
               (
                 SELECT

@@ -68,15 +68,15 @@ FROM
               *,
               CASE
                 WHEN k0 = 'new' THEN
-                  0.0 + 0.5 * v0 + -0.25 * v1
+                  upshot_linear([0.0, 0.5, -0.25], v0, v1)
                 WHEN k0 = '1y' THEN
-                  0.0 + 0.5 * v0 + -0.25 * v1
+                  upshot_linear([0.0, 0.5, -0.25], v0, v1)
               END AS eta0,
               CASE
                 WHEN k0 = 'new' THEN
-                  1.0 + 0.5 * v0 + -0.25 * v1
+                  upshot_linear([1.0, 0.5, -0.25], v0, v1)
                 WHEN k0 = '1y' THEN
-                  1.0 + 0.5 * v0 + -0.25 * v1
+                  upshot_linear([1.0, 0.5, -0.25], v0, v1)
               END AS eta1
             FROM
               (

@@ -37,7 +37,7 @@ FROM
           (
             SELECT
               *,
-              0.25 + -0.75 * v0 + 0.3333333333333333 * v1 AS eta
+              upshot_linear([0.25, -0.75, 0.3333333333333333], v0, v1) AS eta
             FROM
               (
                 SELECT

@@ -10,8 +10,8 @@ FROM
   (
     SELECT
       *,
-      t - (CASE WHEN k0 = 'new' THEN CASE WHEN f = 0 THEN 0.3 + 0.5 * v0 + -0.25 * v1 WHEN f = 1 THEN 1.3 + 0.5 * v0 + -0.25 * v1 END WHEN k0 = '1y' THEN CASE WHEN f = 0 THEN 0.3 + 0.5 * v0 + -0.25 * v1 WHEN f = 1 THEN 1.3 + 0.5 * v0 + -0.25 * v1 END END) AS rt,
-      y - (CASE WHEN k0 = 'new' THEN CASE WHEN f = 0 THEN 60.0 + 0.5 * v0 + -0.25 * v1 WHEN f = 1 THEN 61.0 + 0.5 * v0 + -0.25 * v1 END WHEN k0 = '1y' THEN CASE WHEN f = 0 THEN 60.0 + 0.5 * v0 + -0.25 * v1 WHEN f = 1 THEN 61.0 + 0.5 * v0 + -0.25 * v1 END END) AS ry
+      t - (CASE WHEN k0 = 'new' THEN CASE WHEN f = 0 THEN upshot_linear([0.3, 0.5, -0.25], v0, v1) WHEN f = 1 THEN upshot_linear([1.3, 0.5, -0.25], v0, v1) END WHEN k0 = '1y' THEN CASE WHEN f = 0 THEN upshot_linear([0.3, 0.5, -0.25], v0, v1) WHEN f = 1 THEN upshot_linear([1.3, 0.5, -0.25], v0, v1) END END) AS rt,
+      y - (CASE WHEN k0 = 'new' THEN CASE WHEN f = 0 THEN upshot_linear([60.0, 0.5, -0.25], v0, v1) WHEN f = 1 THEN upshot_linear([61.0, 0.5, -0.25], v0, v1) END WHEN k0 = '1y' THEN CASE WHEN f = 0 THEN upshot_linear([60.0, 0.5, -0.25], v0, v1) WHEN f = 1 THEN upshot_linear([61.0, 0.5, -0.25], v0, v1) END END) AS ry
     FROM
       (
         SELECT

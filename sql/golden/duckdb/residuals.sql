@@ -14,7 +14,7 @@ FROM
       (
         SELECT
           *,
-          y - (80.5 + 8.0 * v0) AS e
+          y - (upshot_linear([80.5, 8.0], v0)) AS e
         FROM
           (
             SELECT
