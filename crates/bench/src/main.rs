@@ -5,14 +5,17 @@
 //! size (1M and 10M rows by default), it measures in separate processes, so that each peak
 //! resident memory is a whole-process figure:
 //! - **scan**: one hand-written DuckDB query computing exactly the sums of the method's heaviest
-//!   pass (`scan.rs`), the floor for any in-database method;
-//! - **upshot**: the method end to end through the library (every pass) on the same file;
+//!   pass (`scan.rs`), once with one `SUM` per product and once (**scan-fused**) with upshot's
+//!   `upshot_moments` aggregate; the faster is the floor for any in-database method;
+//! - **upshot**: the method end to end through the library (every pass) on the same file, as
+//!   `run` executes it, and (**upshot-plain**) rendered for the `duckdb-plain` dialect, without
+//!   upshot's functions;
 //! - **rust**: every needed column exported through Arrow and the same estimator fitted in
 //!   memory with nalgebra (`memfit.rs`);
 //! - **python** (with `--python`): the same through the DuckDB Python package, pandas and
 //!   statsmodels (`python/export_fit.py`), as a notebook would.
 //!
-//! It prints the ratios (upshot ÷ scan, rust ÷ upshot, python ÷ upshot), upshot's memory at the
+//! It prints the ratios (upshot ÷ floor, upshot-plain ÷ plain scan, rust ÷ upshot, python ÷ upshot), upshot's memory at the
 //! largest size ÷ at the smallest, and how far the exported fits' estimates are from upshot's,
 //! checks them against the targets of the benchmark issue, and writes the table as JSON and CSV.
 //! Absolute times on shared machines are noisy; the ratios, measured in one run, are the result.
