@@ -11,10 +11,13 @@
 //! `SUM(a * b)` expressions. DuckDB evaluates each of those as its own projection and its own
 //! aggregate state; at 33 design columns that is ~600 of each per row and dominates the pass.
 //! The aggregate gathers each chunk's rows by group and forms the products as dot products over
-//! tiles of rows, which also sums in blocks (more accurate than one running sum).
+//! tiles of rows; each tile's sums are added to the group's state (on NIST Longley through
+//! DuckDB this gives 11.9–13.3 correct digits, against 12.1–13.3 with DuckDB's own SUMs). The same
+//! reasoning gives `upshot_linear`: one call per inlined model instead of two vector operations per
+//! term.
 //!
 //! This is the only crate with `unsafe`: the edge to DuckDB's C API (opening a database to
-//! get its raw handle, registering the aggregate, its callbacks). It builds no SQL of passes and
+//! get its raw handle, registering the functions, their callbacks). It builds no SQL of passes and
 //! knows nothing of diagrams or estimators.
 #![deny(missing_docs)]
 

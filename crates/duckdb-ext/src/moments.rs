@@ -180,7 +180,7 @@ fn add_row(acc: &mut [f64], cols: &[&[f64]], r: usize) {
 }
 
 /// Adds the products of every row of `cols` (column 0 the weight, then the design columns, all
-/// the same length) to `acc`, tile by tile.
+/// the same length) to `acc`, tile by tile: each tile's sums are formed apart, then added.
 fn add_block(acc: &mut [f64], cols: &[&[f64]], weighted: &mut Vec<f64>, partial: &mut Vec<f64>) {
     let w = cols.len();
     let n = cols[0].len();
