@@ -30,7 +30,7 @@ use std::path::Path;
 use std::ptr;
 
 pub use linear::LINEAR;
-pub use moments::{triangle_index, MAX_TERMS, MOMENTS};
+pub use moments::{MAX_TERMS, MOMENTS};
 
 /// Opening a database or registering upshot's functions failed.
 #[derive(Debug, thiserror::Error)]
@@ -229,8 +229,5 @@ mod tests {
                 assert_eq!(same, Some(true));
             }
         }
-        assert_eq!(triangle_index(4, 0, 3), 3);
-        assert_eq!(triangle_index(4, 1, 1), 4);
-        assert_eq!(triangle_index(4, 3, 3), 9);
     }
 }

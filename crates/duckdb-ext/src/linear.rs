@@ -106,7 +106,7 @@ fn valid_len(e: ffi::duckdb_list_entry, need: usize) -> bool {
     e.length as usize == need
 }
 
-/// Registers the function on database `db`.
+/// Registers the function through connection `con`.
 ///
 /// SAFETY: `con` must be an open connection.
 pub(crate) unsafe fn register(con: ffi::duckdb_connection) -> Result<(), ExtError> {

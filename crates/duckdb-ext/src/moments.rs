@@ -18,13 +18,6 @@ const TILE: usize = 256;
 /// Distinct groups a chunk may touch before it is summed row by row instead of by group.
 const MAX_GROUPS: usize = 64;
 
-/// The position of `(i, j)`, `i ≤ j < width`, in the row-major upper triangle of a
-/// `width × width` matrix: the order of the aggregate's result list (0-based).
-pub fn triangle_index(width: usize, i: usize, j: usize) -> usize {
-    debug_assert!(i <= j && j < width);
-    i * (2 * width - i + 1) / 2 + (j - i)
-}
-
 /// The length of the result list for `width` = 1 + the number of design columns.
 fn entries(width: usize) -> usize {
     width * (width + 1) / 2

@@ -243,23 +243,8 @@ impl Design {
         ))
     }
 
-    fn group_tail(&self) -> String {
-        if self.keys.is_empty() {
-            String::new()
-        } else {
-            let keys: Vec<String> = (0..self.keys.len()).map(|i| format!("k{i}")).collect();
-            format!(" GROUP BY {k} ORDER BY {k}", k = keys.join(", "))
-        }
-    }
-
     fn key_names(&self) -> Vec<String> {
         (0..self.keys.len()).map(|i| format!("k{i}")).collect()
-    }
-
-    fn keys_and_count(&self) -> Vec<String> {
-        let mut out: Vec<String> = (0..self.keys.len()).map(|i| format!("k{i}")).collect();
-        out.push("COUNT(*) AS n".into());
-        out
     }
 
     fn per(&self) -> String {
@@ -886,21 +871,24 @@ pub fn augmented_sums(
             "(1.0 - t)",
         ),
     };
-    let mut outer = design.keys_and_count();
-    outer.push("SUM(t) AS n1".into());
-    outer.push("SUM(num) AS sn".into());
-    outer.push("SUM(num * num) AS snn".into());
-    outer.push("SUM(den * num) AS sdn".into());
-    outer.push("SUM(den) AS sd".into());
-    outer.push("SUM(t * (1.0 - inside)) AS clipped1".into());
-    outer.push("SUM((1.0 - t) * (1.0 - inside)) AS clipped0".into());
-    outer.push("MIN(e_raw) AS min_e".into());
-    outer.push("MAX(e_raw) AS max_e".into());
-    t.sql = format!(
-        "SELECT {} FROM (SELECT *, {num} AS num, {den} AS den FROM (SELECT *, {e}, {m1} AS m1, {m0} AS m0 FROM (SELECT *, {eta} FROM ({rows}) AS rows_) AS linear_) AS nuisance_) AS scores_{}",
-        outer.join(", "),
-        design.group_tail()
+    let mut outs = vec![Out::plain("COUNT(*)", "n")];
+    for (alias, e) in [
+        ("n1", "SUM(t)"),
+        ("sn", "SUM(num)"),
+        ("snn", "SUM(num * num)"),
+        ("sdn", "SUM(den * num)"),
+        ("sd", "SUM(den)"),
+        ("clipped1", "SUM(t * (1.0 - inside))"),
+        ("clipped0", "SUM((1.0 - t) * (1.0 - inside))"),
+        ("min_e", "MIN(e_raw)"),
+        ("max_e", "MAX(e_raw)"),
+    ] {
+        outs.push(Out::plain(e, alias));
+    }
+    let from = format!(
+        "(SELECT *, {num} AS num, {den} AS den FROM (SELECT *, {e}, {m1} AS m1, {m0} AS m0 FROM (SELECT *, {eta} FROM ({rows}) AS rows_) AS linear_) AS nuisance_) AS scores_"
     );
+    t.sql = aggregate(d, k, &design.key_names(), &outs, &from);
     Ok(Pass {
         name: "scores".into(),
         purpose: format!(
@@ -927,7 +915,7 @@ pub fn partial_out_sums(
     let k = design.terms.len();
     let gt = predictor(&mut t, d, treatment, k)?;
     let gy = predictor(&mut t, d, outcome, k)?;
-    let mut outer = design.keys_and_count();
+    let mut outs = vec![Out::plain("COUNT(*)", "n")];
     for (alias, e) in [
         ("stt", "rt * rt"),
         ("sty", "rt * ry"),
@@ -935,13 +923,12 @@ pub fn partial_out_sums(
         ("s31", "rt * rt * rt * ry"),
         ("s40", "rt * rt * rt * rt"),
     ] {
-        outer.push(format!("SUM({e}) AS {alias}"));
+        outs.push(Out::plain(format!("SUM({e})"), alias));
     }
-    t.sql = format!(
-        "SELECT {} FROM (SELECT *, t - ({gt}) AS rt, y - ({gy}) AS ry FROM ({rows}) AS rows_) AS residuals_{}",
-        outer.join(", "),
-        design.group_tail()
+    let from = format!(
+        "(SELECT *, t - ({gt}) AS rt, y - ({gy}) AS ry FROM ({rows}) AS rows_) AS residuals_"
     );
+    t.sql = aggregate(d, k, &design.key_names(), &outs, &from);
     Ok(Pass {
         name: "scores".into(),
         purpose: format!(
