@@ -1,73 +1,90 @@
 //! Estimators as sequences of aggregate passes.
 //!
-//! An estimator never sees rows. [`estimate`] drives one: it builds each pass with
+//! An estimator never sees rows. [`estimate`] drives one: it builds each pass with the kit of
 //! `upshot_sql`, hands it to a [`Runner`] (an engine, or a test's in-memory stand-in), reads the
 //! few rows that come back, and finishes with `upshot_fit`. The pass sequence of every method
 //! is fixed by its key and the spec, so [`plan`] can list the same passes without a database,
 //! with placeholders where a pass inlines numbers that earlier passes compute.
 //!
-//! Methods (design notes, estimator table): `stratify` (backdoor adjustment over discrete
-//! strata), `regress` (per-arm linear outcome models, HC1), `weight` (Hajek inverse
-//! probability weighting, stacked-equation variance), `doubly-robust` (augmented IPW with
-//! K-fold cross-fitting), `partial-out` (cross-fitted partially linear model). Every method is
-//! grouped by the segment columns in the same passes; an `all` row combines the segments.
+//! The seam is the [`Estimator`] trait: one implementation per method, each in a folder of its
+//! own (`stratify/`, `regress/`, `weight/`, `doubly_robust/`, `partial_out/`) holding its pass
+//! builders (`passes.rs` where it has passes of its own), its math (estimate and variance) and
+//! its unit tests; [`ESTIMATORS`] is the one registration point. Shared machinery has modules of
+//! its own, used by name: `prepare` (profile and levels passes, input checks, design terms),
+//! `outcome` (per-arm linear outcome models), `propensity` (logistic propensity fits, and the
+//! fits that leave one fold out), `crossfit` (folds, fold-selected models, "all but fold k"
+//! sums), `read` (typed reading of pass results), `combine` (segments into the `all` row).
 //!
-//! Key design decision: the driver is written as straight-line code over a `Runner` closure
-//! rather than as an explicit state enum; the runner is the only place where a pass leaves the
-//! process, so progress display, recording and engines plug in there, and `plan` reuses the
-//! same design builders so that plan and run cannot drift (a test compares their pass lists).
+//! Key design decision: an estimator is straight-line code over a `Runner` rather than an
+//! explicit state enum; the runner is the only place where a pass leaves the process, so
+//! progress display, recording and engines plug in there, and `plan` reuses the same pass
+//! builders so that plan and run cannot drift (a test compares their pass lists).
 //!
 //! This crate does no I/O.
 #![deny(missing_docs)]
 
 mod combine;
+mod crossfit;
 mod doubly_robust;
+mod outcome;
 mod partial_out;
 mod plan;
 mod prepare;
+mod propensity;
+mod read;
 mod regress;
 mod stratify;
 mod weight;
 
 pub use plan::{plan, PlannedPass};
 pub use prepare::Basis;
-pub use upshot_sql::Target;
+pub use upshot_study::{Estimand, Method};
 
+use prepare::Setup;
 use serde::Serialize;
-use upshot_sql::{Aggregates, Dialect, Expr, Pass, Source, SqlError};
+use upshot_sql::{Aggregates, Expr, Flavor, Pass, Source, SqlError};
 
-/// The estimators this crate runs.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize)]
-#[serde(rename_all = "kebab-case")]
-pub enum Estimator {
-    /// Backdoor adjustment over discrete strata.
-    Stratify,
-    /// Regression adjustment with per-arm linear models.
-    Regress,
-    /// Inverse probability weighting (Hajek).
-    Weight,
-    /// Augmented IPW, cross-fitted.
-    DoublyRobust,
-    /// Cross-fitted partially linear model.
-    PartialOut,
+/// An estimator: its passes (for `plan`, with placeholders) and its run. Implementations live
+/// in one folder each and are registered in [`ESTIMATORS`].
+pub(crate) trait Estimator: Sync {
+    /// The method key it answers to.
+    fn method(&self) -> Method;
+    /// The passes after the profile and levels passes, built from a placeholder setup.
+    fn passes(&self, s: &Setup) -> Result<Vec<Pass>, MethodError>;
+    /// Runs the passes after the profile and levels passes and finishes the estimates.
+    fn run(&self, s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>;
 }
 
-impl Estimator {
-    /// The method key.
-    pub fn key(self) -> &'static str {
-        match self {
-            Estimator::Stratify => "stratify",
-            Estimator::Regress => "regress",
-            Estimator::Weight => "weight",
-            Estimator::DoublyRobust => "doubly-robust",
-            Estimator::PartialOut => "partial-out",
-        }
-    }
+/// Every estimator, by method: the one place a new estimator is registered.
+static ESTIMATORS: [&dyn Estimator; 5] = [
+    &stratify::Stratify,
+    &regress::Regress,
+    &weight::Weight,
+    &doubly_robust::DoublyRobust,
+    &partial_out::PartialOut,
+];
 
-    /// Whether the treatment must be 0/1.
-    pub fn binary_treatment(self) -> bool {
-        !matches!(self, Estimator::PartialOut)
-    }
+/// The methods that have an estimator, in documentation order.
+pub fn available() -> Vec<Method> {
+    ESTIMATORS.iter().map(|e| e.method()).collect()
+}
+
+fn estimator(m: Method) -> Result<&'static dyn Estimator, MethodError> {
+    ESTIMATORS
+        .iter()
+        .copied()
+        .find(|e| e.method() == m)
+        .ok_or_else(|| {
+            MethodError::Input(format!(
+                "method `{}` has no estimator in this version of upshot; available: {}",
+                m.as_str(),
+                available()
+                    .iter()
+                    .map(|m| m.as_str())
+                    .collect::<Vec<_>>()
+                    .join(", ")
+            ))
+        })
 }
 
 /// What happens to rows with NULL in a used column.
@@ -94,8 +111,8 @@ pub struct ColumnType {
 /// One estimation request, fully resolved (route chosen, sets fixed).
 #[derive(Clone)]
 pub struct Spec {
-    /// The dialect passes are rendered in.
-    pub dialect: &'static dyn Dialect,
+    /// What passes are built for: the engine's dialect and the functions its database has.
+    pub flavor: Flavor,
     /// Question name, for output.
     pub question: String,
     /// The rows.
@@ -111,10 +128,11 @@ pub struct Spec {
     /// Segment columns.
     pub segments: Vec<String>,
     /// ATE, ATT or ATC.
-    pub target: Target,
-    /// Method.
-    pub method: Estimator,
-    /// Cross-fitting folds (doubly-robust, partial-out); 1 = no cross-fitting.
+    pub estimand: Estimand,
+    /// Method (never `auto`: the core library resolves it first).
+    pub method: Method,
+    /// Cross-fitting folds (doubly-robust, partial-out); 1 = no cross-fitting. Cross-fitting
+    /// needs [`Spec::unit`]: without one, the estimate is made without it (and says so).
     pub folds: u32,
     /// Integer unit key for the fold hash.
     pub unit: Option<String>,
@@ -178,9 +196,9 @@ pub struct Estimate {
     #[serde(serialize_with = "as_map")]
     pub segment_values: Vec<(String, String)>,
     /// ATE, ATT or ATC.
-    pub estimand: &'static str,
-    /// Method key.
-    pub method: &'static str,
+    pub estimand: Estimand,
+    /// Method.
+    pub method: Method,
     /// Point estimate.
     pub estimate: f64,
     /// Standard error.
@@ -212,8 +230,8 @@ impl Estimate {
             question: spec.question.clone(),
             segment: seg.label(),
             segment_values: seg.values.clone(),
-            estimand: target_name(spec.target),
-            method: spec.method.key(),
+            estimand: spec.estimand,
+            method: spec.method,
             estimate,
             std_error: se,
             ci_low: estimate - Z_975 * se,
@@ -223,15 +241,6 @@ impl Estimate {
             n_used: 0.0,
             adjustment_set: spec.adjust.clone(),
         }
-    }
-}
-
-/// `ATE`, `ATT` or `ATC`.
-pub fn target_name(t: Target) -> &'static str {
-    match t {
-        Target::Ate => "ATE",
-        Target::Att => "ATT",
-        Target::Atc => "ATC",
     }
 }
 
@@ -285,18 +294,14 @@ pub struct Outcome {
 
 /// Runs `spec`'s method through `runner`.
 pub fn estimate(spec: &Spec, runner: &mut dyn Runner) -> Result<Outcome, MethodError> {
+    let est = estimator(spec.method)?;
+    spec.check()?;
     let mut counted = Counted {
         inner: runner,
         n: 0,
     };
     let setup = prepare::prepare(spec, &mut counted)?;
-    let mut out = match spec.method {
-        Estimator::Stratify => stratify::run(&setup, &mut counted)?,
-        Estimator::Regress => regress::run(&setup, &mut counted)?,
-        Estimator::Weight => weight::run(&setup, &mut counted)?,
-        Estimator::DoublyRobust => doubly_robust::run(&setup, &mut counted)?,
-        Estimator::PartialOut => partial_out::run(&setup, &mut counted)?,
-    };
+    let mut out = est.run(&setup, &mut counted)?;
     let mut diag = setup.diagnostics.clone();
     diag.rows_excluded_other
         .append(&mut out.diagnostics.rows_excluded_other);
@@ -319,13 +324,53 @@ impl Runner for Counted<'_> {
     }
 }
 
+/// Most cross-fitting folds.
+pub const MAX_FOLDS: u32 = 20;
+
+impl Spec {
+    /// Checks the values a caller sets directly (plan and run alike): folds, clip, unit key.
+    /// A library caller cannot get an estimate from an unchecked value.
+    pub fn check(&self) -> Result<(), MethodError> {
+        if self.folds == 0 || self.folds > MAX_FOLDS {
+            return Err(MethodError::Input(format!(
+                "--folds: {} folds; use 1 (no cross-fitting) to {MAX_FOLDS}",
+                self.folds
+            )));
+        }
+        if !(0.0..0.5).contains(&self.clip) || self.clip.is_nan() {
+            return Err(MethodError::Input(format!(
+                "--clip: {} is outside [0, 0.5); propensities are clipped to [c, 1 - c]",
+                self.clip
+            )));
+        }
+        if let Some(u) = &self.unit {
+            if u.trim().is_empty() {
+                return Err(MethodError::Input("--unit: the unit key column is empty".into()));
+            }
+        }
+        if self.method == Method::Auto {
+            return Err(MethodError::Input(
+                "method `auto` must be resolved to an estimator before estimating".into(),
+            ));
+        }
+        Ok(())
+    }
+
+    /// Whether this spec cross-fits: a method that does, more than one fold, and a unit key
+    /// to hash rows into folds. Without a unit key the estimate is made without
+    /// cross-fitting, and its diagnostics say so.
+    pub fn cross_fits(&self) -> bool {
+        prepare::needs_folds(self)
+    }
+}
+
 /// The `auto` rule: a binary treatment with no adjustment set, or with only discrete
 /// (declared categorical, ordinal or binary) adjustment columns, is stratified; another binary
 /// treatment is estimated doubly robust; any other treatment is partialled out.
-pub fn auto(treatment_binary: bool, adjust_all_discrete: bool) -> Estimator {
+pub fn auto(treatment_binary: bool, adjust_all_discrete: bool) -> Method {
     match (treatment_binary, adjust_all_discrete) {
-        (true, true) => Estimator::Stratify,
-        (true, false) => Estimator::DoublyRobust,
-        (false, _) => Estimator::PartialOut,
+        (true, true) => Method::Stratify,
+        (true, false) => Method::DoublyRobust,
+        (false, _) => Method::PartialOut,
     }
 }

@@ -1,7 +1,7 @@
 //! `plan`: the passes a method would run, in order, without a database.
 
 use crate::prepare::{levels_pass, placeholder, profile_pass};
-use crate::{doubly_robust, partial_out, regress, stratify, weight, Estimator, MethodError, Spec};
+use crate::{estimator, MethodError, Spec};
 use serde::Serialize;
 
 /// One pass of a plan.
@@ -23,6 +23,8 @@ pub struct PlannedPass {
 /// centres 0, scales 1, coefficients 0, category levels `'<column level i>'`, segment values
 /// `'<each segment>'`.
 pub fn plan(spec: &Spec) -> Result<Vec<PlannedPass>, MethodError> {
+    let est = estimator(spec.method)?;
+    spec.check()?;
     let s = placeholder(spec)?;
     let mut out = Vec::new();
     let planned = |p: upshot_sql::Pass, inlines: Option<&str>, repeats: Option<&str>| PlannedPass {
@@ -37,13 +39,7 @@ pub fn plan(spec: &Spec) -> Result<Vec<PlannedPass>, MethodError> {
         out.push(planned(p, None, None));
     }
     let centres = "centres and scales from the profile pass (shown as 0 and 1), category levels from the levels pass";
-    let method: Vec<upshot_sql::Pass> = match spec.method {
-        Estimator::Stratify => stratify::passes(&s)?,
-        Estimator::Regress => regress::passes(&s)?,
-        Estimator::Weight => weight::passes(&s)?,
-        Estimator::DoublyRobust => doubly_robust::passes(&s)?,
-        Estimator::PartialOut => partial_out::passes(&s)?,
-    };
+    let method = est.passes(&s)?;
     for p in method {
         let (inlines, repeats) = match p.name.as_str() {
             "cells" => (None, None),

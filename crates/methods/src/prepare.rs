@@ -1,7 +1,7 @@
 //! The passes every method starts with: the profile (counts, NULLs, ranges, centres, scales)
 //! and the levels of categorical covariates; the checks they allow; the design terms.
 
-use crate::{ask, ColumnType, Diagnostics, Estimator, MethodError, NullPolicy, Runner, Spec};
+use crate::{ask, ColumnType, Diagnostics, Method, MethodError, NullPolicy, Runner, Spec};
 use serde::Serialize;
 use upshot_sql::{
     complete_cases, levels, profile, Aggregates, Cell, DesignTerm, Expr, Pass, ProfileColumn,
@@ -106,7 +106,26 @@ pub(crate) fn used_columns(spec: &Spec) -> Vec<String> {
 }
 
 pub(crate) fn needs_folds(spec: &Spec) -> bool {
-    spec.folds > 1 && matches!(spec.method, Estimator::DoublyRobust | Estimator::PartialOut)
+    wants_folds(spec) && spec.unit.is_some()
+}
+
+/// Whether the method cross-fits with the spec's folds (it does so only with a unit key).
+pub(crate) fn wants_folds(spec: &Spec) -> bool {
+    spec.folds > 1 && matches!(spec.method, Method::DoublyRobust | Method::PartialOut)
+}
+
+/// The note of an estimate made without cross-fitting for want of a unit key. upshot's
+/// decision: folds come from a portable hash of an integer unit key, the same on every engine;
+/// without one there is no row identity every engine hashes alike, so the nuisance models are
+/// fitted on all rows. With upshot's nuisance models (linear outcome models, a logistic
+/// propensity: a fixed, small number of parameters) the estimate stays consistent and its
+/// interval valid without cross-fitting; cross-fitting guards against overfitting by richer
+/// models (basis expansions).
+pub(crate) fn no_unit_note(spec: &Spec) -> Option<String> {
+    (wants_folds(spec) && spec.unit.is_none()).then(|| format!(
+        "no unit key was named, so the nuisance models were fitted on all rows instead of cross-fitted over {} folds (valid for upshot's linear and logistic models with a fixed number of terms); name an integer unit key (--unit, or [source].unit) to cross-fit",
+        spec.folds
+    ))
 }
 
 /// The adjustment columns that enter models or strata: the adjustment set minus the segment
@@ -161,7 +180,7 @@ fn check_schema(spec: &Spec) -> Result<(), MethodError> {
         return Err(MethodError::Input(format!(
             "treatment `{}` is not numeric; code it as 0/1 (untreated/treated){}",
             spec.treatment,
-            if spec.method.binary_treatment() {
+            if spec.method.needs_binary_treatment() {
                 ""
             } else {
                 " or as a number"
@@ -170,12 +189,6 @@ fn check_schema(spec: &Spec) -> Result<(), MethodError> {
     }
     if needs_folds(spec) {
         match &spec.unit {
-            None => {
-                return Err(MethodError::Input(format!(
-                    "cross-fitting with {} folds assigns rows to folds by a hash of the unit key; name an integer unit key column with --unit (or [source].unit), or use --folds 1",
-                    spec.folds
-                )))
-            }
             Some(u) if !col(u).integer => {
                 return Err(MethodError::Input(format!(
                     "unit key `{u}` is not an integer column; folds are a portable hash of an integer key. Use an integer id, or --folds 1"
@@ -264,7 +277,7 @@ fn optional(a: &Aggregates, name: &str) -> Result<f64, MethodError> {
 /// rows the statistics of the outcome and strata cost as much as the rest of its profile.
 fn with_stats(spec: &Spec, c: &str) -> bool {
     let numeric = !is_categorical(spec, c) || c == spec.treatment || c == spec.outcome;
-    numeric && (spec.method != Estimator::Stratify || c == spec.treatment)
+    numeric && (spec.method != Method::Stratify || c == spec.treatment)
 }
 
 /// The profile pass of a spec.
@@ -275,7 +288,7 @@ pub(crate) fn profile_pass(spec: &Spec) -> Result<Pass, MethodError> {
             let numeric = !is_categorical(spec, &c) || c == spec.treatment || c == spec.outcome;
             // Distinct counts serve one check: discrete numeric strata. A 0/1 treatment is
             // checked exactly, by counting the other values.
-            let distinct = spec.method == Estimator::Stratify
+            let distinct = spec.method == Method::Stratify
                 && numeric
                 && c != spec.outcome
                 && c != spec.treatment
@@ -289,7 +302,7 @@ pub(crate) fn profile_pass(spec: &Spec) -> Result<Pass, MethodError> {
         })
         .collect();
     Ok(profile(
-        spec.dialect,
+        &spec.flavor,
         &spec.source,
         spec.filter.as_ref(),
         &cols,
@@ -298,7 +311,7 @@ pub(crate) fn profile_pass(spec: &Spec) -> Result<Pass, MethodError> {
 
 /// Categorical covariates that need their levels (methods with a design matrix).
 pub(crate) fn categorical_covariates(spec: &Spec) -> Vec<String> {
-    if spec.method == Estimator::Stratify {
+    if spec.method == Method::Stratify {
         return vec![];
     }
     modelled(spec)
@@ -313,7 +326,7 @@ pub(crate) fn levels_pass(spec: &Spec, filter: Option<&Expr>) -> Result<Option<P
         return Ok(None);
     }
     Ok(Some(levels(
-        spec.dialect,
+        &spec.flavor,
         &spec.source,
         filter,
         &cats,
@@ -378,18 +391,18 @@ pub(crate) fn prepare<'a>(spec: &'a Spec, r: &mut dyn Runner) -> Result<Setup<'a
             spec.treatment
         )));
     }
-    if spec.method.binary_treatment() {
+    if spec.method.needs_binary_treatment() {
         let zero_one = matches!((&t.min, &t.max), (Cell::Number(a), Cell::Number(b)) if *a == 0.0 && *b == 1.0);
         if !zero_one || t.not01 > 0.0 {
             return Err(MethodError::Input(format!(
                 "method `{}` needs a 0/1 treatment, but `{}` ranges from {tmin} to {tmax} and {} of its values are neither 0 nor 1; recode it as 0/1, or use --method partial-out for a continuous treatment",
-                spec.method.key(),
+                spec.method.as_str(),
                 spec.treatment,
                 t.not01
             )));
         }
     }
-    let filter = complete_cases(spec.dialect, spec.filter.as_ref(), &used);
+    let filter = complete_cases(spec.flavor.dialect, spec.filter.as_ref(), &used);
     let mut levels_of: Vec<(String, Vec<(String, f64)>)> = Vec::new();
     if let Some(p) = levels_pass(spec, filter.as_ref())? {
         let a = ask(r, &p)?;
@@ -420,7 +433,7 @@ pub(crate) fn prepare<'a>(spec: &'a Spec, r: &mut dyn Runner) -> Result<Setup<'a
         terms: vec![],
         term_names: vec![],
         treatment_term: numeric_term(t)?,
-        outcome_term: if spec.method == Estimator::Stratify {
+        outcome_term: if spec.method == Method::Stratify {
             // Stratify fits no design: the term is never used, and the profile skips the
             // outcome's statistics.
             DesignTerm::Numeric {
@@ -436,10 +449,11 @@ pub(crate) fn prepare<'a>(spec: &'a Spec, r: &mut dyn Runner) -> Result<Setup<'a
             rows_read: n_rows,
             rows_excluded_null: excluded,
             null_columns,
+            notes: no_unit_note(spec).into_iter().collect(),
             ..Diagnostics::default()
         },
     };
-    if spec.method != Estimator::Stratify {
+    if spec.method != Method::Stratify {
         let (terms, names) = covariate_terms(spec, &profiled_cols, &levels_of)?;
         setup.terms = terms;
         setup.term_names = names;
@@ -570,14 +584,14 @@ pub(crate) fn placeholder<'a>(spec: &'a Spec) -> Result<Setup<'a>, MethodError> 
             (c, lv)
         })
         .collect();
-    let (terms, term_names) = if spec.method == Estimator::Stratify {
+    let (terms, term_names) = if spec.method == Method::Stratify {
         (vec![], vec![])
     } else {
         covariate_terms(spec, &profiled, &levels_of)?
     };
     Ok(Setup {
         spec,
-        filter: complete_cases(spec.dialect, spec.filter.as_ref(), &used),
+        filter: complete_cases(spec.flavor.dialect, spec.filter.as_ref(), &used),
         terms,
         term_names,
         treatment_term: numeric_term(&profiled[0])?,

@@ -1,8 +1,22 @@
 //! SQL dialects as capability questions, in the manner of DataFusion's unparser: each engine
-//! answers a few questions (quote character, float type, distinct-count function) and the same
-//! pass AST renders for all of them.
+//! answers a few questions (quote character, float and text types, list access, file readers,
+//! aggregate `FILTER`, boolean casts, integer division, result width, parameter style) and the
+//! same pass AST renders for all of them.
+//!
+//! What the *connected database* offers beyond its dialect — upshot's own DuckDB functions —
+//! is not a dialect: it is [`Functions`], which an engine reports and a [`Flavor`] carries
+//! beside the dialect.
 
 use sqlparser::dialect as sp;
+
+/// A kind of file an engine may read as a source.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum FileKind {
+    /// Comma-separated values with a header row.
+    Csv,
+    /// Parquet (one file or a pattern over many).
+    Parquet,
+}
 
 /// What upshot needs to know about an engine's SQL.
 pub trait Dialect: Sync {
@@ -16,37 +30,122 @@ pub trait Dialect: Sync {
     fn float_type(&self) -> &'static str {
         "DOUBLE"
     }
+    /// The type name of text in `CAST(x AS ...)` (one-hot levels compare text).
+    fn text_type(&self) -> &'static str {
+        "VARCHAR"
+    }
     /// An approximate distinct-count aggregate, if the engine has one (else exact `COUNT(DISTINCT)`).
     fn approx_distinct(&self) -> Option<&'static str> {
         None
     }
-    /// A fused moments aggregate, if the engine has one: its name and the most design columns
-    /// it takes. `name(w, v_1, ..., v_k)` returns, as a list, the row-major upper triangle of
-    /// `Σ w z zᵀ` for `z = (1, v_1, ..., v_k)`; passes then compute their sums of products
-    /// with one call instead of one `SUM` per product.
-    fn moments(&self) -> Option<(&'static str, usize)> {
+    /// The element `index` (1-based) of a list-valued expression `list`.
+    fn list_element(&self, list: &str, index: usize) -> String {
+        format!("list_extract({list}, {index})")
+    }
+    /// The table function that reads a file of `kind` (its one argument is the path as a
+    /// string literal), or `None` when the engine reads no files.
+    fn file_reader(&self, kind: FileKind) -> Option<&'static str> {
+        let _ = kind;
         None
     }
-    /// A linear-predictor scalar function, if the engine has one:
-    /// `name([c_0, c_1, ..., c_k], x_1, ..., x_k) = c_0 + c_1 x_1 + ... + c_k x_k`, summed left
-    /// to right. Passes then evaluate each inlined model with one call instead of two operations
-    /// per term.
-    fn linear(&self) -> Option<&'static str> {
+    /// Whether aggregates take `FILTER (WHERE ...)`; else a count of rows meeting a condition
+    /// is written `SUM(CASE WHEN ... THEN 1 ELSE 0 END)`.
+    fn aggregate_filter(&self) -> bool {
+        true
+    }
+    /// Whether `CAST(b AS <float>)` works on a boolean column; else it goes through an integer.
+    fn casts_boolean_to_float(&self) -> bool {
+        true
+    }
+    /// Whether `/` between two integers truncates (PostgreSQL: `7 / 2 = 3`). Pass builders cast
+    /// to the float type before dividing; this records why that cast must stay.
+    fn integer_division_truncates(&self) -> bool {
+        false
+    }
+    /// The most columns one query may return, if the engine limits them.
+    fn max_result_columns(&self) -> Option<usize> {
         None
+    }
+    /// The placeholder of the `n`-th (1-based) parameter of a prepared statement.
+    fn parameter(&self, n: usize) -> String {
+        format!("${n}")
     }
     /// The sqlparser dialect that parses user SQL written for this engine.
     fn parser(&self) -> Box<dyn sp::Dialect>;
 }
 
-/// The fused aggregate upshot registers in the DuckDB databases it opens (crate
-/// `upshot-duckdb-ext`, which checks these two values against its own).
+/// upshot's own functions, when the connected database has them (an engine reports this; it
+/// is a fact about the database, not about its SQL dialect).
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct Functions {
+    /// A fused moments aggregate: its name and the most design columns it takes.
+    /// `name(w, v_1, ..., v_k)` returns, as a list, the row-major upper triangle of `Σ w z zᵀ`
+    /// for `z = (1, v_1, ..., v_k)`; passes then compute their sums of products with one call
+    /// instead of one `SUM` per product.
+    pub moments: Option<(&'static str, usize)>,
+    /// A linear-predictor scalar function:
+    /// `name([c_0, c_1, ..., c_k], x_1, ..., x_k) = c_0 + c_1 x_1 + ... + c_k x_k`, summed left
+    /// to right. Passes then evaluate each inlined model with one call instead of two
+    /// operations per term.
+    pub linear: Option<&'static str>,
+}
+
+impl Functions {
+    /// No functions of upshot's: plain `SUM`s and arithmetic, for any database.
+    pub const NONE: Functions = Functions {
+        moments: None,
+        linear: None,
+    };
+    /// The functions upshot registers in the DuckDB databases it opens (crate
+    /// `upshot-duckdb-ext`, whose constants a test compares with these).
+    pub const UPSHOT_DUCKDB: Functions = Functions {
+        moments: Some(DUCKDB_MOMENTS),
+        linear: Some(DUCKDB_LINEAR),
+    };
+}
+
+/// The fused aggregate upshot registers in the DuckDB databases it opens.
 pub const DUCKDB_MOMENTS: (&str, usize) = ("upshot_moments", 160);
 
 /// The linear-predictor function upshot registers in the DuckDB databases it opens.
 pub const DUCKDB_LINEAR: &str = "upshot_linear";
 
-/// DuckDB as upshot opens it (the embedded default): with upshot's fused moments aggregate and
-/// linear-predictor function.
+/// What passes are built for: a dialect and the functions the database offers.
+#[derive(Clone, Copy)]
+pub struct Flavor {
+    /// The SQL dialect.
+    pub dialect: &'static dyn Dialect,
+    /// upshot's functions present in the database.
+    pub functions: Functions,
+}
+
+impl Flavor {
+    /// A dialect without upshot's functions.
+    pub fn plain(dialect: &'static dyn Dialect) -> Flavor {
+        Flavor {
+            dialect,
+            functions: Functions::NONE,
+        }
+    }
+    /// DuckDB as upshot opens it: with upshot's functions.
+    pub fn duckdb() -> Flavor {
+        Flavor {
+            dialect: &DuckDb,
+            functions: Functions::UPSHOT_DUCKDB,
+        }
+    }
+}
+
+impl std::fmt::Debug for Flavor {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("Flavor")
+            .field("dialect", &self.dialect.name())
+            .field("functions", &self.functions)
+            .finish()
+    }
+}
+
+/// DuckDB (the embedded default).
 pub struct DuckDb;
 
 impl Dialect for DuckDb {
@@ -56,34 +155,19 @@ impl Dialect for DuckDb {
     fn approx_distinct(&self) -> Option<&'static str> {
         Some("approx_count_distinct")
     }
-    fn moments(&self) -> Option<(&'static str, usize)> {
-        Some(DUCKDB_MOMENTS)
-    }
-    fn linear(&self) -> Option<&'static str> {
-        Some(DUCKDB_LINEAR)
-    }
-    fn parser(&self) -> Box<dyn sp::Dialect> {
-        Box::new(sp::DuckDbDialect {})
-    }
-}
-
-/// Any DuckDB, without upshot's functions: sums of products as plain `SUM`s and predictors as
-/// plain arithmetic (for plans run elsewhere, and the benchmark's comparison).
-pub struct DuckDbPlain;
-
-impl Dialect for DuckDbPlain {
-    fn name(&self) -> &'static str {
-        "duckdb-plain"
-    }
-    fn approx_distinct(&self) -> Option<&'static str> {
-        Some("approx_count_distinct")
+    fn file_reader(&self, kind: FileKind) -> Option<&'static str> {
+        Some(match kind {
+            FileKind::Csv => "read_csv_auto",
+            FileKind::Parquet => "read_parquet",
+        })
     }
     fn parser(&self) -> Box<dyn sp::Dialect> {
         Box::new(sp::DuckDbDialect {})
     }
 }
 
-/// PostgreSQL.
+/// PostgreSQL (15 measured on these machines: `SUM(int8)` is numeric, hence the casts to
+/// `DOUBLE PRECISION`; integer division truncates; at most 1,664 result columns).
 pub struct Postgres;
 
 impl Dialect for Postgres {
@@ -93,13 +177,25 @@ impl Dialect for Postgres {
     fn float_type(&self) -> &'static str {
         "DOUBLE PRECISION"
     }
+    fn list_element(&self, list: &str, index: usize) -> String {
+        format!("({list})[{index}]")
+    }
+    fn casts_boolean_to_float(&self) -> bool {
+        false
+    }
+    fn integer_division_truncates(&self) -> bool {
+        true
+    }
+    fn max_result_columns(&self) -> Option<usize> {
+        Some(1664)
+    }
     fn parser(&self) -> Box<dyn sp::Dialect> {
         Box::new(sp::PostgreSqlDialect {})
     }
 }
 
 /// Every dialect upshot renders, in documentation order.
-pub static DIALECTS: [&dyn Dialect; 3] = [&DuckDb, &DuckDbPlain, &Postgres];
+pub static DIALECTS: [&dyn Dialect; 2] = [&DuckDb, &Postgres];
 
 /// Looks a dialect up by its name.
 pub fn dialect_by_name(name: &str) -> Option<&'static dyn Dialect> {

@@ -45,6 +45,32 @@ pub enum SqlError {
         /// The value.
         value: f64,
     },
+    /// A filter that is not a row predicate over the source's columns.
+    #[error("the filter may only test each row's own columns: `{part}` is not allowed ({why})")]
+    FilterPart {
+        /// The offending part, as SQL.
+        part: String,
+        /// Why, and what is allowed.
+        why: String,
+    },
+    /// A file source on an engine that reads no files.
+    #[error("the {dialect} engine reads no {kind} files; load the file into a table there, or read it with DuckDB (the default engine)")]
+    NoFileReader {
+        /// The dialect's name.
+        dialect: &'static str,
+        /// The file kind.
+        kind: &'static str,
+    },
+    /// A pass with more result columns than the engine allows.
+    #[error("a pass would return {columns} columns, more than the {dialect} engine allows ({max}); use fewer covariates or no --interactions")]
+    TooWide {
+        /// Its result columns.
+        columns: usize,
+        /// The dialect.
+        dialect: &'static str,
+        /// The engine's limit.
+        max: usize,
+    },
     /// A zero or non-finite scale for centring.
     #[error("column `{column}` has scale {scale}; centring needs a positive finite scale (is the column constant?)")]
     BadScale {

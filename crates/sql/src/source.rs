@@ -1,13 +1,14 @@
 //! The rows a study reads: a table name or one user SELECT, and an optional filter expression.
 
-use crate::dialect::Dialect;
+use crate::dialect::{Dialect, FileKind};
 use crate::error::SqlError;
 use sqlparser::ast::{
     Expr, FunctionArg, FunctionArgExpr, Ident, ObjectName, Query, SetExpr, Statement, TableAlias,
-    TableFactor, Value,
+    TableFactor, Value, Visit, Visitor,
 };
 use sqlparser::parser::Parser;
 use sqlparser::tokenizer::Token;
+use std::ops::ControlFlow;
 
 /// Where a pass reads rows from. Invariant: a `Query` is a single read-only SELECT.
 #[derive(Clone, Debug, PartialEq)]
@@ -16,10 +17,11 @@ pub enum Source {
     Table(Vec<String>),
     /// A user query, parsed.
     Query(Box<Query>),
-    /// A CSV file read by the engine (DuckDB's `read_csv_auto`); the path is a string literal.
+    /// A CSV file read by the engine's CSV reader ([`Dialect::file_reader`]); the path is a
+    /// string literal.
     Csv(String),
-    /// A Parquet file (or a glob of them) read by the engine (DuckDB's `read_parquet`); the
-    /// path is a string literal.
+    /// A Parquet file (or a glob of them) read by the engine's Parquet reader; the path is a
+    /// string literal.
     Parquet(String),
 }
 
@@ -76,18 +78,40 @@ impl Source {
         }
     }
 
+    /// The file kind of a file source.
+    pub fn file_kind(&self) -> Option<FileKind> {
+        match self {
+            Source::Csv(_) => Some(FileKind::Csv),
+            Source::Parquet(_) => Some(FileKind::Parquet),
+            _ => None,
+        }
+    }
+
     /// The relation to put in a FROM clause.
-    pub(crate) fn relation(&self, d: &dyn Dialect, alias: Option<TableAlias>) -> TableFactor {
-        let template = sqlparser::parser::Parser::parse_sql(
-            &sqlparser::dialect::GenericDialect {},
-            match self {
-                Source::Table(_) => "SELECT 1 FROM t AS src",
-                Source::Query(_) => "SELECT 1 FROM (SELECT 1) AS src",
-                Source::Csv(_) => "SELECT 1 FROM read_csv_auto('file') AS src",
-                Source::Parquet(_) => "SELECT 1 FROM read_parquet('file') AS src",
-            },
-        )
-        .expect("fixed text parses");
+    pub(crate) fn relation(
+        &self,
+        d: &dyn Dialect,
+        alias: Option<TableAlias>,
+    ) -> Result<TableFactor, SqlError> {
+        let reader = match self.file_kind() {
+            Some(kind) => Some(d.file_reader(kind).ok_or(SqlError::NoFileReader {
+                dialect: d.name(),
+                kind: match kind {
+                    FileKind::Csv => "CSV",
+                    FileKind::Parquet => "Parquet",
+                },
+            })?),
+            None => None,
+        };
+        let text = match (self, reader) {
+            (Source::Table(_), _) => "SELECT 1 FROM t AS src".to_string(),
+            (Source::Query(_), _) => "SELECT 1 FROM (SELECT 1) AS src".to_string(),
+            (_, Some(f)) => format!("SELECT 1 FROM {f}('file') AS src"),
+            (_, None) => unreachable!("a file source has a reader"),
+        };
+        let template =
+            sqlparser::parser::Parser::parse_sql(&sqlparser::dialect::GenericDialect {}, &text)
+                .expect("fixed text parses");
         let Some(Statement::Query(q)) = template.into_iter().next() else {
             unreachable!()
         };
@@ -129,7 +153,7 @@ impl Source {
             }
             _ => unreachable!("template matches the source kind"),
         }
-        rel
+        Ok(rel)
     }
 }
 
@@ -147,8 +171,24 @@ pub fn is_parquet_pattern(path: &str) -> bool {
     is_parquet(path) && path.contains(['*', '?', '['])
 }
 
+/// Refuses anything but reading, anywhere in a source query: data-modifying statements in the
+/// body, in a `WITH` clause (`WITH d AS (DELETE ... RETURNING *) SELECT ...`), in a derived
+/// table or in a subquery, and `SELECT ... INTO`. Runs before any engine sees the query.
 fn check_read_only(q: &Query) -> Result<(), SqlError> {
-    fn body(s: &SetExpr) -> Result<(), SqlError> {
+    struct ReadOnly(Option<SqlError>);
+    impl Visitor for ReadOnly {
+        type Break = ();
+        fn pre_visit_query(&mut self, q: &Query) -> ControlFlow<()> {
+            match body_kind(&q.body) {
+                Ok(()) => ControlFlow::Continue(()),
+                Err(e) => {
+                    self.0 = Some(e);
+                    ControlFlow::Break(())
+                }
+            }
+        }
+    }
+    fn body_kind(s: &SetExpr) -> Result<(), SqlError> {
         match s {
             SetExpr::Select(sel) => {
                 if sel.into.is_some() {
@@ -158,26 +198,28 @@ fn check_read_only(q: &Query) -> Result<(), SqlError> {
                 }
                 Ok(())
             }
-            SetExpr::Query(q) => check_read_only(q),
+            SetExpr::Query(_) | SetExpr::Values(_) => Ok(()),
             SetExpr::SetOperation { left, right, .. } => {
-                body(left)?;
-                body(right)
+                body_kind(left)?;
+                body_kind(right)
             }
-            SetExpr::Values(_) => Ok(()),
             other => Err(SqlError::NotASelect {
                 kind: other
                     .to_string()
                     .split_whitespace()
                     .next()
                     .unwrap_or("")
-                    .to_string(),
+                    .to_uppercase(),
             }),
         }
     }
-    body(&q.body)
+    let mut v = ReadOnly(None);
+    let _ = q.visit(&mut v);
+    v.0.map_or(Ok(()), Err)
 }
 
-/// Parses a filter: exactly one SQL expression, with nothing after it.
+/// Parses a filter: exactly one SQL expression, with nothing after it, that is a row predicate
+/// over the source's columns (see [`crate::filter`] for what it may contain).
 pub fn parse_filter(sql: &str, d: &dyn Dialect) -> Result<Expr, SqlError> {
     if sql.trim().is_empty() {
         return Err(SqlError::Empty { what: "the filter" });
@@ -206,6 +248,7 @@ pub fn parse_filter(sql: &str, d: &dyn Dialect) -> Result<Expr, SqlError> {
             rest: rest.join(" "),
         });
     }
+    crate::filter::check_row_predicate(&e)?;
     Ok(e)
 }
 

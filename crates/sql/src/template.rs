@@ -104,34 +104,35 @@ pub(crate) fn query(
         _ => panic!("templates are queries"),
     };
     substitute(&mut q, d, binds, filter)?;
-    place_source(&mut q, source, d);
+    place_source(&mut q, source, d)?;
     Ok(q)
 }
 
 /// Replaces the relation `__src` anywhere in the query's FROM clauses.
-fn place_source(q: &mut Query, source: &Source, d: &dyn Dialect) {
-    place_in_body(q.body.as_mut(), source, d);
+fn place_source(q: &mut Query, source: &Source, d: &dyn Dialect) -> Result<(), SqlError> {
+    place_in_body(q.body.as_mut(), source, d)
 }
 
-fn place_in_body(body: &mut SetExpr, source: &Source, d: &dyn Dialect) {
+fn place_in_body(body: &mut SetExpr, source: &Source, d: &dyn Dialect) -> Result<(), SqlError> {
     match body {
         SetExpr::Select(s) => {
             for twj in &mut s.from {
                 match &mut twj.relation {
                     TableFactor::Table { name, alias, .. } if name.to_string() == "__src" => {
                         let alias = alias.take();
-                        twj.relation = source.relation(d, alias);
+                        twj.relation = source.relation(d, alias)?;
                     }
-                    TableFactor::Derived { subquery, .. } => place_source(subquery, source, d),
+                    TableFactor::Derived { subquery, .. } => place_source(subquery, source, d)?,
                     _ => {}
                 }
             }
+            Ok(())
         }
         SetExpr::SetOperation { left, right, .. } => {
-            place_in_body(left, source, d);
-            place_in_body(right, source, d);
+            place_in_body(left, source, d)?;
+            place_in_body(right, source, d)
         }
         SetExpr::Query(q) => place_source(q, source, d),
-        _ => {}
+        _ => Ok(()),
     }
 }

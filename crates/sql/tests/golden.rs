@@ -8,11 +8,20 @@
 use sqlparser::parser::Parser;
 use std::path::PathBuf;
 use upshot_sql::{
-    augmented_sums, cells, dialect_by_name, gram, levels, logistic_fits, logistic_step,
-    parse_filter, partial_out_sums, profile, residual_moments, weighting_sums, Design, DesignTerm,
-    Dialect, Fold, Key, KeyValue, Model, Models, Nuisances, Pass, ProfileColumn, Selector, Source,
-    SqlError, Target, Variants, DIALECTS,
+    cells, gram, levels, logistic_fits, parse_filter, profile, residuals, Design, DesignTerm, DuckDb,
+    Flavor, Fold, Key, KeyValue, Model, Models, Pass, Postgres, ProfileColumn, Selector, Source,
+    SqlError, Variants, DIALECTS,
 };
+
+/// The renderings with golden files: DuckDB as upshot opens it (with its functions), DuckDB
+/// without them, PostgreSQL.
+fn flavors() -> [(&'static str, Flavor); 3] {
+    [
+        ("duckdb", Flavor::duckdb()),
+        ("duckdb-plain", Flavor::plain(&DuckDb)),
+        ("postgres", Flavor::plain(&Postgres)),
+    ]
+}
 
 /// A cross-fitting design: segment and fold keys, one numeric and one squared term, the
 /// treatment and outcome as extras.
@@ -60,118 +69,19 @@ fn fold_models(offset: f64) -> Models {
     }
 }
 
-/// The passes of estimators: levels, cross-fitted logistic step, weighting, augmented and
-/// partialled-out scores (file names carry a prefix to keep them apart from the basic passes).
-fn method_passes(d: &dyn Dialect) -> Vec<(String, Pass)> {
-    let src = Source::table("customers").unwrap();
-    let design = fold_design();
-    let mut one_model = design.clone();
-    one_model.fold = None;
-    vec![
-        (
-            "levels".into(),
-            levels(
-                d,
-                &src,
-                None,
-                &["zone".into(), "mail wave".into()],
-                &["zone".into(), "mail wave".into(), "voucher".into()],
-            )
-            .unwrap(),
-        ),
-        (
-            "logistic-crossfit".into(),
-            logistic_fits(
-                d,
-                &src,
-                None,
-                &design,
-                &fold_models(0.0),
-                Variants::Complement(2),
-            )
-            .unwrap(),
-        ),
-        (
-            "logistic-by-fold".into(),
-            logistic_fits(
-                d,
-                &src,
-                None,
-                &design,
-                &Models::single(vec![0.1, 0.2, 0.3]),
-                Variants::ByFold,
-            )
-            .unwrap(),
-        ),
-        (
-            "logistic-scores".into(),
-            logistic_fits(
-                d,
-                &src,
-                None,
-                &design,
-                &fold_models(0.0),
-                Variants::ComplementScores(2),
-            )
-            .unwrap(),
-        ),
-        (
-            "weights".into(),
-            weighting_sums(
-                d,
-                &src,
-                None,
-                &one_model,
-                &Models::single(vec![0.1, 0.2, 0.3]),
-                Target::Ate,
-                0.01,
-            )
-            .unwrap(),
-        ),
-        (
-            "augmented".into(),
-            augmented_sums(
-                d,
-                &src,
-                None,
-                &design,
-                &Nuisances {
-                    propensity: &fold_models(0.0),
-                    treated: &fold_models(50.0),
-                    control: &fold_models(40.0),
-                    target: Target::Att,
-                    clip: 0.01,
-                },
-            )
-            .unwrap(),
-        ),
-        (
-            "partial-out".into(),
-            partial_out_sums(
-                d,
-                &src,
-                None,
-                &design,
-                &fold_models(0.3),
-                &fold_models(60.0),
-            )
-            .unwrap(),
-        ),
-    ]
-}
-
 fn golden_dir() -> PathBuf {
     PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("../../sql/golden")
 }
 
 /// Fixed passes over a source whose names need quoting (a space, a reserved word, a quote).
-fn passes(d: &dyn Dialect) -> Vec<Pass> {
+fn passes(f: &Flavor) -> Vec<Pass> {
+    let d = f.dialect;
     let src = Source::table("main.order lines").unwrap();
     let filter = parse_filter("\"zone\" <> 'Old Town' AND prior_orders >= 0", d).unwrap();
     let q = Source::query("SELECT * FROM customers WHERE voucher IN (0, 1)", d).unwrap();
     vec![
         profile(
-            d,
+            f,
             &src,
             Some(&filter),
             &[
@@ -191,7 +101,7 @@ fn passes(d: &dyn Dialect) -> Vec<Pass> {
         )
         .unwrap(),
         cells(
-            d,
+            f,
             &q,
             None,
             &["tenure_band".into(), "voucher".into()],
@@ -199,79 +109,143 @@ fn passes(d: &dyn Dialect) -> Vec<Pass> {
         )
         .unwrap(),
         gram(
-            d,
+            f,
             &src,
             Some(&filter),
-            &["voucher".into()],
-            &[
-                DesignTerm::Numeric {
-                    column: "prior_orders".into(),
-                    centre: 2.65,
-                    scale: 1.7,
-                },
-                DesignTerm::Level {
-                    column: "zone".into(),
-                    level: "Old Town".into(),
-                    centre: 0.17,
-                    scale: 0.375,
-                },
-                DesignTerm::Numeric {
-                    column: "say \"hi\"".into(),
-                    centre: -1e-7,
-                    scale: 3.0,
-                },
-            ],
+            &Design::grouped(
+                &["voucher".into()],
+                &[
+                    DesignTerm::Numeric {
+                        column: "prior_orders".into(),
+                        centre: 2.65,
+                        scale: 1.7,
+                    },
+                    DesignTerm::Level {
+                        column: "zone".into(),
+                        level: "Old Town".into(),
+                        centre: 0.17,
+                        scale: 0.375,
+                    },
+                    DesignTerm::Numeric {
+                        column: "say \"hi\"".into(),
+                        centre: -1e-7,
+                        scale: 3.0,
+                    },
+                ],
+                &[],
+            ),
         )
         .unwrap(),
-        logistic_step(
-            d,
+        logistic_fits(
+            f,
             &src,
             None,
-            &[],
-            &[
-                DesignTerm::Numeric {
-                    column: "prior_orders".into(),
-                    centre: 2.65,
-                    scale: 1.7,
-                },
-                DesignTerm::Level {
-                    column: "zone".into(),
-                    level: "Old Town".into(),
-                    centre: 0.17,
-                    scale: 0.375,
-                },
-            ],
-            "voucher",
-            &[0.25, -0.75, 1.0 / 3.0],
+            &Design::grouped(
+                &[],
+                &[
+                    DesignTerm::Numeric {
+                        column: "prior_orders".into(),
+                        centre: 2.65,
+                        scale: 1.7,
+                    },
+                    DesignTerm::Level {
+                        column: "zone".into(),
+                        level: "Old Town".into(),
+                        centre: 0.17,
+                        scale: 0.375,
+                    },
+                ],
+                &[("t", "voucher")],
+            ),
+            &Models::single(vec![0.25, -0.75, 1.0 / 3.0]),
+            Variants::Single,
         )
         .unwrap(),
-        residual_moments(
-            d,
+        residuals(
+            f,
             &src,
             None,
-            &["tenure_band".into()],
-            &[DesignTerm::Numeric {
-                column: "app_sessions".into(),
-                centre: 3.5,
-                scale: 2.0,
-            }],
-            "spend_30d",
-            &[80.5, 8.0],
+            &Design::grouped(
+                &["tenure_band".into()],
+                &[DesignTerm::Numeric {
+                    column: "app_sessions".into(),
+                    centre: 3.5,
+                    scale: 2.0,
+                }],
+                &[("y", "spend_30d")],
+            ),
+            &Models::single(vec![80.5, 8.0]),
         )
         .unwrap(),
+    ]
+}
+
+/// Category levels, and the logistic passes of cross-fitting (file names carry a prefix to keep them apart from
+/// the single fit's `logistic-step`).
+fn crossfit_passes(f: &Flavor) -> Vec<(String, Pass)> {
+    let src = Source::table("customers").unwrap();
+    let design = fold_design();
+    vec![
+        (
+            "levels".into(),
+            levels(
+                f,
+                &src,
+                None,
+                &["zone".into(), "mail wave".into()],
+                &["zone".into(), "mail wave".into(), "voucher".into()],
+            )
+            .unwrap(),
+        ),
+        (
+            "logistic-crossfit".into(),
+            logistic_fits(
+                f,
+                &src,
+                None,
+                &design,
+                &fold_models(0.0),
+                Variants::Complement(2),
+            )
+            .unwrap(),
+        ),
+        (
+            "logistic-by-fold".into(),
+            logistic_fits(
+                f,
+                &src,
+                None,
+                &design,
+                &Models::single(vec![0.1, 0.2, 0.3]),
+                Variants::ByFold,
+            )
+            .unwrap(),
+        ),
+        (
+            "logistic-scores".into(),
+            logistic_fits(
+                f,
+                &src,
+                None,
+                &design,
+                &fold_models(0.0),
+                Variants::ComplementScores(2),
+            )
+            .unwrap(),
+        ),
     ]
 }
 
 #[test]
 fn golden_plans_render_and_round_trip() {
     let bless = std::env::var_os("UPSHOT_BLESS").is_some();
-    for d in DIALECTS {
+    for (dir, f) in flavors() {
         let mut all: Vec<(String, Pass)> =
-            passes(d).into_iter().map(|p| (p.name.clone(), p)).collect();
-        all.extend(method_passes(d));
+            passes(&f).into_iter().map(|p| (p.name.clone(), p)).collect();
+        all.extend(crossfit_passes(&f));
         for (name, p) in all {
             let sql = p.sql() + "\n";
-            let path = golden_dir().join(d.name()).join(format!("{name}.sql"));
+            let path = golden_dir().join(dir).join(format!("{name}.sql"));
             if bless {
                 std::fs::create_dir_all(path.parent().unwrap()).unwrap();
                 std::fs::write(&path, &sql).unwrap();
@@ -284,7 +258,7 @@ fn golden_plans_render_and_round_trip() {
                 "{} changed; if intended, rerun with UPSHOT_BLESS=1",
                 path.display()
             );
-            let parsed = Parser::parse_sql(d.parser().as_ref(), &want)
+            let parsed = Parser::parse_sql(f.dialect.parser().as_ref(), &want)
                 .unwrap_or_else(|e| panic!("{}: {e}", path.display()));
             assert_eq!(parsed.len(), 1);
             assert_eq!(
@@ -299,8 +273,7 @@ fn golden_plans_render_and_round_trip() {
 
 #[test]
 fn identifiers_are_quoted_and_literals_escaped() {
-    let d = dialect_by_name("duckdb").unwrap();
-    let sql: Vec<String> = passes(d).iter().map(|p| p.sql()).collect();
+    let sql: Vec<String> = passes(&Flavor::duckdb()).iter().map(|p| p.sql()).collect();
     assert!(
         sql[0].contains("\"main\".\"order lines\" AS src"),
         "{}",
@@ -310,14 +283,14 @@ fn identifiers_are_quoted_and_literals_escaped() {
     assert!(sql[2].contains("\"say \"\"hi\"\"\""), "{}", sql[2]);
     assert!(sql[2].contains("'Old Town'"), "{}", sql[2]);
     assert!(sql[2].contains("-1e-7"), "{}", sql[2]);
-    let pg = dialect_by_name("postgres").unwrap();
-    assert!(passes(pg)[2].sql().contains("DOUBLE PRECISION"));
-    assert!(passes(pg)[0].sql().contains("COUNT(DISTINCT"));
+    let pg = Flavor::plain(&Postgres);
+    assert!(passes(&pg)[2].sql().contains("DOUBLE PRECISION"));
+    assert!(passes(&pg)[0].sql().contains("COUNT(DISTINCT"));
 }
 
 #[test]
 fn user_sql_must_be_one_select_or_one_expression() {
-    let d = dialect_by_name("duckdb").unwrap();
+    let d = &DuckDb;
     assert!(matches!(
         parse_filter("1; DROP TABLE x", d),
         Err(SqlError::TrailingInput { .. })
@@ -357,6 +330,23 @@ fn user_sql_must_be_one_select_or_one_expression() {
         d
     )
     .is_ok());
+    // Data-modifying statements are refused anywhere in a source query, before any engine
+    // sees it: in a WITH clause, in a derived table, in a subquery.
+    for p in [&DuckDb as &dyn upshot_sql::Dialect, &Postgres] {
+        for sql in [
+            "WITH gone AS (DELETE FROM customers RETURNING *) SELECT * FROM gone",
+            "WITH a AS (SELECT 1 AS v), b AS (UPDATE customers SET voucher = 1 RETURNING *) SELECT * FROM a",
+            "SELECT * FROM (SELECT * FROM customers) AS c WHERE c.id IN (WITH d AS (DELETE FROM t RETURNING id) SELECT id FROM d)",
+        ] {
+            match Source::query(sql, p) {
+                Err(SqlError::NotASelect { kind }) => {
+                    assert!(kind == "DELETE" || kind == "UPDATE", "{sql}: {kind}")
+                }
+                Err(SqlError::Parse { .. }) => {} // the dialect does not even parse it
+                other => panic!("{} accepted {sql}: {other:?}", p.name()),
+            }
+        }
+    }
     assert!(matches!(Source::table("a..b"), Err(SqlError::Empty { .. })));
     let e = parse_filter("1; DROP TABLE x", d).unwrap_err().to_string();
     assert!(
@@ -367,9 +357,8 @@ fn user_sql_must_be_one_select_or_one_expression() {
 
 #[test]
 fn csv_sources_are_string_literals() {
-    let d = dialect_by_name("duckdb").unwrap();
     let src = Source::Csv("demo-data/it's here.csv".into());
-    let sql = upshot_sql::schema_probe(d, &src).unwrap().sql();
+    let sql = upshot_sql::schema_probe(&Flavor::duckdb(), &src).unwrap().sql();
     assert!(
         sql.contains("read_csv_auto('demo-data/it''s here.csv') AS src"),
         "{sql}"
@@ -379,11 +368,10 @@ fn csv_sources_are_string_literals() {
 
 #[test]
 fn parquet_sources_are_string_literals() {
-    let d = dialect_by_name("duckdb").unwrap();
     let src = Source::file("data/part-*.PARQUET");
     assert_eq!(src, Source::Parquet("data/part-*.PARQUET".into()));
     assert_eq!(Source::file("a.csv"), Source::Csv("a.csv".into()));
-    let sql = upshot_sql::schema_probe(d, &src).unwrap().sql();
+    let sql = upshot_sql::schema_probe(&Flavor::duckdb(), &src).unwrap().sql();
     assert!(
         sql.contains("read_parquet('data/part-*.PARQUET') AS src"),
         "{sql}"
@@ -392,19 +380,21 @@ fn parquet_sources_are_string_literals() {
 
 #[test]
 fn bad_numbers_are_refused() {
-    let d = dialect_by_name("duckdb").unwrap();
     let src = Source::table("t").unwrap();
     let bad = |centre: f64, scale: f64| {
         gram(
-            d,
+            &Flavor::duckdb(),
             &src,
             None,
-            &[],
-            &[DesignTerm::Numeric {
-                column: "x".into(),
-                centre,
-                scale,
-            }],
+            &Design::grouped(
+                &[],
+                &[DesignTerm::Numeric {
+                    column: "x".into(),
+                    centre,
+                    scale,
+                }],
+                &[],
+            ),
         )
     };
     assert!(matches!(bad(0.0, 0.0), Err(SqlError::BadScale { .. })));
@@ -438,7 +428,7 @@ fn results_schema_file_is_current_and_statements_quote_the_name() {
         );
         assert!(s.insert.contains("CURRENT_TIMESTAMP"));
     }
-    let d = dialect_by_name("duckdb").unwrap();
+    let d = &DuckDb;
     let evil = upshot_sql::results_sql(d, "x\"; DROP TABLE y; --").unwrap();
     assert!(
         evil.create

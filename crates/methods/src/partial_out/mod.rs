@@ -7,17 +7,21 @@
 //! of `t` in the full regression (Frisch–Waugh–Lovell) and the standard error is its HC0 error.
 //! The treatment may be continuous.
 
-use crate::combine::{keys, row_of, segment, segment_label, Part};
-use crate::doubly_robust::{complement_moments, fold_gram_design, fold_models, folds, row_design};
+mod passes;
+
+use crate::combine::{segment, segment_label, Part};
+use crate::crossfit::{complement_moments, fold_gram_design, fold_models, folds, placeholder, row_design};
 use crate::prepare::Setup;
-use crate::{ask, Estimate, MethodError, Outcome, Runner, Segment};
+use crate::read::{keys, row_of};
+use crate::{ask, Estimand, Estimate, MethodError, Outcome, Runner, Segment};
+use passes::partial_out_sums;
 use upshot_fit::ols;
-use upshot_sql::{design_gram, partial_out_sums, KeyValue, Pass, Target};
+use upshot_sql::{gram, KeyValue, Pass};
 
 fn gram_pass(s: &Setup) -> Result<Pass, MethodError> {
     let spec = s.spec;
-    Ok(design_gram(
-        spec.dialect,
+    Ok(gram(
+        &spec.flavor,
         &spec.source,
         s.filter.as_ref(),
         &fold_gram_design(
@@ -36,7 +40,7 @@ fn scores_pass(
 ) -> Result<Pass, MethodError> {
     let spec = s.spec;
     Ok(partial_out_sums(
-        spec.dialect,
+        &spec.flavor,
         &spec.source,
         s.filter.as_ref(),
         &row_design(s),
@@ -46,7 +50,7 @@ fn scores_pass(
 }
 
 pub(crate) fn passes(s: &Setup) -> Result<Vec<Pass>, MethodError> {
-    let (segs, coef) = crate::doubly_robust::placeholder(s);
+    let (segs, coef) = placeholder(s);
     Ok(vec![gram_pass(s)?, scores_pass(s, &segs, &coef, &coef)?])
 }
 
@@ -71,11 +75,11 @@ impl Sums {
 
 pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError> {
     let spec = s.spec;
-    if spec.target != Target::Ate {
+    if spec.estimand != Estimand::Ate {
         return Err(MethodError::Input(format!(
             "method `partial-out` estimates one effect per segment (a constant-effect model), not the {}; use --estimand ATE, or --method doubly-robust / regress / weight for the {}",
-            crate::target_name(spec.target),
-            crate::target_name(spec.target)
+            spec.estimand.as_str(),
+            spec.estimand.as_str()
         )));
     }
     let nseg = spec.segments.len();
@@ -169,7 +173,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
         let mut n = 0.0;
         for row in 0..g.rows.len() {
             if keys(&g, row, nseg).ok().as_ref() == Some(seg) {
-                let m = crate::combine::moments(&g, row, &names, &terms).ok()?;
+                let m = crate::read::moments(&g, row, &names, &terms).ok()?;
                 n1 += m.mean(p) * m.n;
                 n += m.n;
             }
@@ -210,4 +214,19 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
         estimates,
         diagnostics: Default::default(),
     })
+}
+
+/// The `partial-out` estimator.
+pub(crate) struct PartialOut;
+
+impl crate::Estimator for PartialOut {
+    fn method(&self) -> crate::Method {
+        crate::Method::PartialOut
+    }
+    fn passes(&self, s: &Setup) -> Result<Vec<Pass>, MethodError> {
+        passes(s)
+    }
+    fn run(&self, s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError> {
+        run(s, r)
+    }
 }

@@ -3,10 +3,11 @@
 //! variances are unbiased (divisor n − 1); a cell with one row of an arm borrows that arm's pooled
 //! within-stratum variance.
 
-use crate::combine::{by_segment, finish, key_value, segment, segment_label, Part};
+use crate::combine::{finish, segment, segment_label, Part};
 use crate::prepare::Setup;
-use crate::{ask, Estimate, MethodError, Outcome, Runner};
-use upshot_sql::{cells, KeyValue, Pass, Target};
+use crate::read::{by_segment, key_value};
+use crate::{ask, Estimand, Estimate, MethodError, Outcome, Runner};
+use upshot_sql::{cells, KeyValue, Pass};
 
 /// Most distinct values a numeric adjustment column may have to count as discrete.
 pub const MAX_STRATUM_VALUES: f64 = 50.0;
@@ -19,7 +20,7 @@ pub(crate) fn passes(s: &Setup) -> Result<Vec<Pass>, MethodError> {
     keys.extend(crate::prepare::modelled(spec));
     keys.push(spec.treatment.clone());
     Ok(vec![cells(
-        spec.dialect,
+        &spec.flavor,
         &spec.source,
         s.filter.as_ref(),
         &keys,
@@ -144,10 +145,10 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
                 100.0 * excluded / all_rows
             ));
         }
-        let size = |a: &[Arm; 2]| match spec.target {
-            Target::Ate => a[0].n + a[1].n,
-            Target::Att => a[1].n,
-            Target::Atc => a[0].n,
+        let size = |a: &[Arm; 2]| match spec.estimand {
+            Estimand::Ate => a[0].n + a[1].n,
+            Estimand::Att => a[1].n,
+            Estimand::Atc => a[0].n,
         };
         let total: f64 = kept.iter().map(|a| size(a)).sum();
         let tau: f64 = kept
@@ -180,4 +181,19 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     }
     out.estimates = finish(s, parts);
     Ok(out)
+}
+
+/// The `stratify` estimator.
+pub(crate) struct Stratify;
+
+impl crate::Estimator for Stratify {
+    fn method(&self) -> crate::Method {
+        crate::Method::Stratify
+    }
+    fn passes(&self, s: &Setup) -> Result<Vec<Pass>, MethodError> {
+        passes(s)
+    }
+    fn run(&self, s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError> {
+        run(s, r)
+    }
 }

@@ -117,7 +117,11 @@ pub fn results_sql(d: &dyn Dialect, table: &str) -> Result<ResultsSql, SqlError>
     let cols: Vec<String> = RESULT_COLUMNS
         .iter()
         .map(|(c, t, _)| {
-            let t = if *t == "DOUBLE" { d.float_type() } else { t };
+            let t = match *t {
+                "DOUBLE" => d.float_type(),
+                "VARCHAR" => d.text_type(),
+                other => other,
+            };
             format!("{c} {t}")
         })
         .collect();
@@ -129,7 +133,7 @@ pub fn results_sql(d: &dyn Dialect, table: &str) -> Result<ResultsSql, SqlError>
                 "CURRENT_TIMESTAMP".to_string()
             } else {
                 next += 1;
-                format!("${next}")
+                d.parameter(next)
             }
         })
         .collect();
@@ -139,7 +143,10 @@ pub fn results_sql(d: &dyn Dialect, table: &str) -> Result<ResultsSql, SqlError>
             d,
             format!("CREATE TABLE IF NOT EXISTS {name} ({})", cols.join(", ")),
         )?,
-        delete: checked(d, format!("DELETE FROM {name} WHERE run_key = $1"))?,
+        delete: checked(
+            d,
+            format!("DELETE FROM {name} WHERE run_key = {}", d.parameter(1)),
+        )?,
         insert: checked(
             d,
             format!(

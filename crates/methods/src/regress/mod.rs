@@ -5,36 +5,14 @@
 //! `τ = (α₁ − α₀) + (β₁ − β₀)ᵀ x̄`, with variance `c̃ᵀ (V₁ + V₀) c̃ + (β₁ − β₀)ᵀ Σₓ (β₁ − β₀) / N`
 //! for `c̃ = (1, x̄)`, HC1 covariances `V`, and the target rows' covariate covariance `Σₓ`.
 
-use crate::combine::{
-    by_segment, finish, keys, moments, row_of, segment, segment_label, upper_matrix, Part,
-};
+use crate::combine::{finish, segment, segment_label, Part};
+use crate::outcome::{covariate_moments, fit_arm, gram_design};
 use crate::prepare::Setup;
-use crate::{ask, Estimate, MethodError, Outcome, Runner};
-use nalgebra::{DMatrix, DVector};
-use upshot_fit::{ols, Moments, Ols};
-use upshot_sql::{
-    design_gram, design_residuals, Design, Key, KeyValue, Model, Models, Pass, Selector, Target,
-};
-
-pub(crate) fn gram_design(s: &Setup, by_arm: bool) -> Design {
-    let spec = s.spec;
-    let mut keys: Vec<Key> = spec
-        .segments
-        .iter()
-        .map(|c| Key::Column(c.clone()))
-        .collect();
-    if by_arm {
-        keys.push(Key::Column(spec.treatment.clone()));
-    }
-    let mut terms = s.terms.clone();
-    terms.push(s.outcome_term.clone());
-    Design {
-        keys,
-        terms,
-        extras: vec![],
-        fold: None,
-    }
-}
+use crate::read::{by_segment, keys, moments, row_of, upper_matrix};
+use crate::{ask, Estimand, Estimate, MethodError, Outcome, Runner};
+use nalgebra::DVector;
+use upshot_fit::{Moments, Ols};
+use upshot_sql::{gram, residuals, Design, Key, KeyValue, Model, Models, Pass, Selector};
 
 fn residual_design(s: &Setup) -> Design {
     let spec = s.spec;
@@ -54,8 +32,8 @@ fn residual_design(s: &Setup) -> Design {
 
 pub(crate) fn gram_pass(s: &Setup) -> Result<Pass, MethodError> {
     let spec = s.spec;
-    Ok(design_gram(
-        spec.dialect,
+    Ok(gram(
+        &spec.flavor,
         &spec.source,
         s.filter.as_ref(),
         &gram_design(s, true),
@@ -64,8 +42,8 @@ pub(crate) fn gram_pass(s: &Setup) -> Result<Pass, MethodError> {
 
 pub(crate) fn residual_pass(s: &Setup, models: &Models) -> Result<Pass, MethodError> {
     let spec = s.spec;
-    Ok(design_residuals(
-        spec.dialect,
+    Ok(residuals(
+        &spec.flavor,
         &spec.source,
         s.filter.as_ref(),
         &residual_design(s),
@@ -103,22 +81,6 @@ pub(crate) fn passes(s: &Setup) -> Result<Vec<Pass>, MethodError> {
         gram_pass(s)?,
         residual_pass(s, &placeholder_models(s))?,
     ])
-}
-
-/// A least-squares fit of the outcome (last term) on the covariates, with context in errors.
-pub(crate) fn fit_arm(s: &Setup, m: &Moments, what: &str) -> Result<Ols, MethodError> {
-    let p = s.terms.len();
-    let x: Vec<usize> = (0..p).collect();
-    ols(m, p, &x)
-        .map_err(|e| MethodError::Input(format!("{what}: the outcome model cannot be fitted: {e}")))
-}
-
-/// Covariate means (original units) and covariance (original units, divisor n).
-pub(crate) fn covariate_moments(m: &Moments, p: usize) -> (DVector<f64>, DMatrix<f64>) {
-    let mean = DVector::from_fn(p, |i, _| m.mean(i));
-    let c = m.covariance();
-    let cov = DMatrix::from_fn(p, p, |i, j| c[(i, j)] * m.scale[i] * m.scale[j]);
-    (mean, cov)
 }
 
 pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError> {
@@ -194,12 +156,12 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
                     .map_err(|e| MethodError::Input(e.to_string()))?,
             );
         }
-        let target = match spec.target {
-            Target::Ate => seg.arms[0]
+        let target = match spec.estimand {
+            Estimand::Ate => seg.arms[0]
                 .plus(&seg.arms[1])
                 .map_err(|e| MethodError::Engine(e.to_string()))?,
-            Target::Att => seg.arms[1].clone(),
-            Target::Atc => seg.arms[0].clone(),
+            Estimand::Att => seg.arms[1].clone(),
+            Estimand::Atc => seg.arms[0].clone(),
         };
         let (xbar, sx) = covariate_moments(&target, p);
         let d = DVector::from_fn(p, |i, _| seg.fits[1].coef[i] - seg.fits[0].coef[i]);
@@ -224,4 +186,19 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
         estimates: finish(s, parts),
         diagnostics: Default::default(),
     })
+}
+
+/// The `regress` estimator.
+pub(crate) struct Regress;
+
+impl crate::Estimator for Regress {
+    fn method(&self) -> crate::Method {
+        crate::Method::Regress
+    }
+    fn passes(&self, s: &Setup) -> Result<Vec<Pass>, MethodError> {
+        passes(s)
+    }
+    fn run(&self, s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError> {
+        run(s, r)
+    }
 }

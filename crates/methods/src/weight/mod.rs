@@ -8,98 +8,26 @@
 //! logistic information and `w = (1, v)` the design. One pass after the fit returns every sum
 //! that the square of that influence function expands into.
 
-use crate::combine::{
-    by_segment, finish, logit_sums, row_of, segment, segment_label, target_size, upper_matrix,
-    vector, Part,
-};
+mod passes;
+
+use crate::combine::{finish, segment, segment_label, target_size, Part};
 use crate::prepare::Setup;
+use crate::propensity::{design, fit_propensity, per_segment, placeholder_segments, logistic_pass};
+use crate::read::{row_of, upper_matrix, vector};
 use crate::{ask, Estimate, MethodError, Outcome, Runner};
 use nalgebra::DVector;
-use upshot_fit::{logit_many, FitError, Logit, LogitSums, NewtonOptions};
-use upshot_sql::{
-    logistic_fits, weighting_sums, Aggregates, Design, Key, KeyValue, Model, Models, Pass,
-    Selector, Variants,
-};
-
-pub(crate) fn design(s: &Setup, fold: bool) -> Design {
-    let spec = s.spec;
-    Design {
-        keys: spec
-            .segments
-            .iter()
-            .map(|c| Key::Column(c.clone()))
-            .collect(),
-        terms: s.terms.clone(),
-        extras: vec![("t", spec.treatment.clone()), ("y", spec.outcome.clone())],
-        fold: if fold && crate::prepare::needs_folds(spec) {
-            Some(upshot_sql::Fold {
-                unit: spec.unit.clone().expect("checked with the schema"),
-                folds: spec.folds,
-            })
-        } else {
-            None
-        },
-    }
-}
-
-pub(crate) fn param_names(s: &Setup) -> Vec<String> {
-    let mut names = vec!["(intercept)".to_string()];
-    names.extend(s.term_names.iter().cloned());
-    names
-}
-
-/// Models keyed by segment values.
-pub(crate) fn per_segment(segs: &[Vec<KeyValue>], coefs: &[Vec<f64>]) -> Models {
-    let nseg = segs.first().map_or(0, |k| k.len());
-    if nseg == 0 {
-        return Models::single(coefs[0].clone());
-    }
-    Models {
-        selector: Selector {
-            keys: (0..nseg).collect(),
-            fold: false,
-        },
-        models: segs
-            .iter()
-            .zip(coefs)
-            .map(|(k, c)| Model {
-                key: k.clone(),
-                coef: c.clone(),
-            })
-            .collect(),
-    }
-}
-
-pub(crate) fn placeholder_segments(s: &Setup) -> Vec<Vec<KeyValue>> {
-    vec![s
-        .spec
-        .segments
-        .iter()
-        .map(|_| KeyValue::Text("<each segment>".into()))
-        .collect()]
-}
-
-pub(crate) fn logistic_pass(s: &Setup, models: &Models) -> Result<Pass, MethodError> {
-    let spec = s.spec;
-    Ok(logistic_fits(
-        spec.dialect,
-        &spec.source,
-        s.filter.as_ref(),
-        &design(s, false),
-        models,
-        Variants::Single,
-    )?)
-}
+use passes::weighting_sums;
+use upshot_sql::{Models, Pass};
 
 fn weights_pass(s: &Setup, models: &Models) -> Result<Pass, MethodError> {
     let spec = s.spec;
     Ok(weighting_sums(
-        spec.dialect,
+        &spec.flavor,
         &spec.source,
         s.filter.as_ref(),
         &design(s, false),
         models,
-        spec.target,
+        spec.estimand,
         spec.clip,
     )?)
 }
@@ -109,67 +37,6 @@ pub(crate) fn passes(s: &Setup) -> Result<Vec<Pass>, MethodError> {
     let zero = vec![vec![0.0; s.terms.len() + 1]];
     let models = per_segment(&segs, &zero);
     Ok(vec![logistic_pass(s, &models)?, weights_pass(s, &models)?])
-}
-
-/// Maps a propensity fit error to a message naming the segment.
-pub(crate) fn propensity_error(label: &str, e: FitError) -> MethodError {
-    let advice = match &e {
-        FitError::Separation { .. } => " — propensities reach 0 or 1, so some rows have no comparable rows in the other arm (positivity fails); restrict the rows or drop the named columns",
-        _ => "",
-    };
-    MethodError::Input(format!(
-        "{label}: the propensity model cannot be fitted: {e}{advice}"
-    ))
-}
-
-/// Fits one propensity model per segment; returns the segments, the treated counts and fits.
-pub(crate) fn fit_propensity(
-    s: &Setup,
-    r: &mut dyn Runner,
-) -> Result<(Vec<Vec<KeyValue>>, Vec<Logit>), MethodError> {
-    let nseg = s.spec.segments.len();
-    let k = s.terms.len() + 1;
-    let first = ask(r, &logistic_pass(s, &Models::single(vec![0.0; k]))?)?;
-    let segs: Vec<Vec<KeyValue>> = by_segment(&first, nseg)?.into_iter().map(|x| x.0).collect();
-    // At zero coefficients p = 1/2, so the intercept's score is n₁ − n/2.
-    for (row, key) in segs.iter().enumerate() {
-        let n = first.number(row, "n")?;
-        let n1 = first.number(row, "u0")? + n / 2.0;
-        check_arms(s, key, n1.round(), (n - n1).round())?;
-    }
-    let names = param_names(s);
-    let mut cached = Some(first);
-    let fits = logit_many(
-        &names,
-        segs.len(),
-        |coefs| {
-            let a: Aggregates = match cached.take() {
-                Some(a) if coefs.iter().all(|c| c.iter().all(|x| *x == 0.0)) => a,
-                _ => ask(r, &logistic_pass(s, &per_segment(&segs, coefs))?)?,
-            };
-            (0..segs.len())
-                .map(|row| logit_sums(&a, row, "", k))
-                .collect::<Result<Vec<LogitSums>, MethodError>>()
-        },
-        NewtonOptions::default(),
-    )?;
-    let mut out = Vec::new();
-    for (key, f) in segs.iter().zip(fits) {
-        out.push(f.map_err(|e| propensity_error(&segment_label(s, key), e))?);
-    }
-    Ok((segs, out))
-}
-
-pub(crate) fn check_arms(s: &Setup, key: &[KeyValue], n1: f64, n0: f64) -> Result<(), MethodError> {
-    for (n, word) in [(n1, "treated"), (n0, "untreated (control)")] {
-        if n == 0.0 {
-            return Err(MethodError::Input(format!(
-                "{} has no {word} rows; an effect there cannot be estimated — drop the segment column, or filter the segment out",
-                segment_label(s, key)
-            )));
-        }
-    }
-    Ok(())
 }
 
 /// Below this share of an arm's rows, the weights' effective sample size draws a warning.
@@ -252,7 +119,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
         e.n_treated = Some(n1);
         e.n_control = Some(n - n1);
         e.n_used = n;
-        let size = target_size(spec.target, n, n1);
+        let size = target_size(spec.estimand, n, n1);
         parts.push(Part {
             estimate: e,
             target_size: size,
@@ -260,4 +127,19 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     }
     out.estimates = finish(s, parts);
     Ok(out)
+}
+
+/// The `weight` estimator.
+pub(crate) struct Weight;
+
+impl crate::Estimator for Weight {
+    fn method(&self) -> crate::Method {
+        crate::Method::Weight
+    }
+    fn passes(&self, s: &Setup) -> Result<Vec<Pass>, MethodError> {
+        passes(s)
+    }
+    fn run(&self, s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError> {
+        run(s, r)
+    }
 }

@@ -1,0 +1,232 @@
+//! Cross-fitting: rows fall in folds by a portable hash of an integer unit key; models are
+//! chosen per row by segment and fold; the sums of "all rows but fold k" are the total minus
+//! fold k, so cross-fitting costs no extra scan.
+
+use crate::prepare::{needs_folds, Setup};
+use crate::propensity::placeholder_segments;
+use crate::read::{by_segment, keys, logit_sums, moments};
+use crate::MethodError;
+use upshot_fit::{LogitSums, Moments};
+use upshot_sql::{Aggregates, Design, Fold, Key, KeyValue, Model, Models, Selector};
+
+/// Folds actually used (1 when cross-fitting is off).
+pub(crate) fn folds(s: &Setup) -> u32 {
+    if needs_folds(s.spec) {
+        s.spec.folds
+    } else {
+        1
+    }
+}
+
+fn fold(s: &Setup) -> Option<Fold> {
+    needs_folds(s.spec).then(|| Fold {
+        unit: s.spec.unit.clone().expect("checked with the schema"),
+        folds: s.spec.folds,
+    })
+}
+
+/// The Gram design grouped by segment, fold (when cross-fitting) and, if `by_arm`, arm, over
+/// the covariates and then `last` terms.
+pub(crate) fn fold_gram_design(
+    s: &Setup,
+    by_arm: bool,
+    last: Vec<upshot_sql::DesignTerm>,
+) -> Design {
+    let spec = s.spec;
+    let mut keys: Vec<Key> = spec
+        .segments
+        .iter()
+        .map(|c| Key::Column(c.clone()))
+        .collect();
+    if needs_folds(spec) {
+        keys.push(Key::Fold);
+    }
+    if by_arm {
+        keys.push(Key::Column(spec.treatment.clone()));
+    }
+    let mut terms = s.terms.clone();
+    terms.extend(last);
+    Design {
+        keys,
+        terms,
+        extras: vec![],
+        fold: fold(s),
+    }
+}
+
+/// The row design for passes that evaluate fold-selected models: segment keys, the fold, the
+/// treatment `t` and outcome `y`.
+pub(crate) fn row_design(s: &Setup) -> Design {
+    let spec = s.spec;
+    Design {
+        keys: spec
+            .segments
+            .iter()
+            .map(|c| Key::Column(c.clone()))
+            .collect(),
+        terms: s.terms.clone(),
+        extras: vec![("t", spec.treatment.clone()), ("y", spec.outcome.clone())],
+        fold: fold(s),
+    }
+}
+
+/// Models chosen by segment and (when cross-fitting) the row's fold; `coef[i][j]` belongs to
+/// segment `i` and held-out fold `j`.
+pub(crate) fn fold_models(s: &Setup, segs: &[Vec<KeyValue>], coef: &[Vec<Vec<f64>>]) -> Models {
+    let nseg = s.spec.segments.len();
+    let crossfit = needs_folds(s.spec);
+    let mut models = Vec::new();
+    for (seg, per_fold) in segs.iter().zip(coef) {
+        for (j, c) in per_fold.iter().enumerate() {
+            let mut key = seg.clone();
+            if crossfit {
+                key.push(KeyValue::Number(j as f64));
+            }
+            models.push(Model {
+                key,
+                coef: c.clone(),
+            });
+        }
+    }
+    if nseg == 0 && !crossfit {
+        return Models::single(models.remove(0).coef);
+    }
+    Models {
+        selector: Selector {
+            keys: (0..nseg).collect(),
+            fold: crossfit,
+        },
+        models,
+    }
+}
+
+pub(crate) fn placeholder(s: &Setup) -> (Vec<Vec<KeyValue>>, Vec<Vec<Vec<f64>>>) {
+    let segs = placeholder_segments(s);
+    let k = folds(s) as usize;
+    let coef = vec![vec![vec![0.0; s.terms.len() + 1]; k]; segs.len()];
+    (segs, coef)
+}
+
+/// The rows of a fold-grouped pass that belong to segment `seg`, with their fold.
+pub(crate) fn rows_by_fold(a: &Aggregates, seg: &[KeyValue]) -> Result<Vec<(usize, usize)>, MethodError> {
+    let mut out = Vec::new();
+    for row in 0..a.rows.len() {
+        if keys(a, row, seg.len())?.as_slice() == seg {
+            out.push((a.number(row, "f")? as usize, row));
+        }
+    }
+    if out.is_empty() {
+        return Err(MethodError::Engine(format!(
+            "the {} pass lost a group",
+            a.pass
+        )));
+    }
+    Ok(out)
+}
+
+/// The logistic sums of a segment's rows of a fold-grouped pass: all of them, or (with
+/// `leave_out`) those of the other folds; `prefix` selects a fit's columns.
+pub(crate) fn fold_sum(
+    a: &Aggregates,
+    rows: &[(usize, usize)],
+    leave_out: Option<usize>,
+    prefix: &str,
+    kp: usize,
+) -> Result<LogitSums, MethodError> {
+    let mut total: Option<LogitSums> = None;
+    for (f, row) in rows {
+        if Some(*f) == leave_out {
+            continue;
+        }
+        let x = logit_sums(a, *row, prefix, kp)?;
+        total = Some(match total {
+            None => x,
+            Some(t) => add_logit_sums(t, &x),
+        });
+    }
+    total.ok_or_else(|| {
+        MethodError::Input(format!(
+            "every row of a segment falls in fold {}; use fewer folds (--folds) or more rows",
+            leave_out.unwrap_or(0)
+        ))
+    })
+}
+
+/// The sums of two disjoint sets of rows.
+fn add_logit_sums(a: LogitSums, b: &LogitSums) -> LogitSums {
+    LogitSums {
+        n: a.n + b.n,
+        score: a.score + &b.score,
+        information: a.information + &b.information,
+        loglik: a.loglik + b.loglik,
+        min_p: a.min_p.min(b.min_p),
+        max_p: a.max_p.max(b.max_p),
+    }
+}
+
+/// A segment's key values and, per held-out fold, the moments of each arm outside the fold.
+pub(crate) type Complements = (Vec<KeyValue>, Vec<[Option<Moments>; 2]>);
+
+/// Per segment, per held-out fold: the moments of the rows outside that fold (all rows when
+/// cross-fitting is off), for each group value of the last key when `by_arm`.
+pub(crate) fn complement_moments(
+    s: &Setup,
+    g: &Aggregates,
+    names: &[String],
+    terms: &[upshot_sql::DesignTerm],
+    by_arm: bool,
+) -> Result<Vec<Complements>, MethodError> {
+    let nseg = s.spec.segments.len();
+    let k = folds(s) as usize;
+    let crossfit = needs_folds(s.spec);
+    let mut out = Vec::new();
+    for (seg, rows) in by_segment(g, nseg)? {
+        // per fold, per arm
+        let mut fold_m: Vec<[Option<Moments>; 2]> = vec![[None, None]; k];
+        let mut total: [Option<Moments>; 2] = [None, None];
+        for row in rows {
+            let key = keys(
+                g,
+                row,
+                g.names.iter().filter(|n| n.starts_with('k')).count(),
+            )?;
+            let j = if crossfit {
+                match key[nseg] {
+                    KeyValue::Number(x) => x as usize,
+                    _ => 0,
+                }
+            } else {
+                0
+            };
+            let arm = if by_arm {
+                usize::from(key[key.len() - 1] == KeyValue::Number(1.0))
+            } else {
+                0
+            };
+            let m = moments(g, row, names, terms)?;
+            total[arm] = Some(match total[arm].take() {
+                None => m.clone(),
+                Some(t) => t.plus(&m).map_err(|e| MethodError::Engine(e.to_string()))?,
+            });
+            fold_m[j][arm] = Some(m);
+        }
+        let mut comp = Vec::new();
+        for f in fold_m.iter().take(k) {
+            let mut c: [Option<Moments>; 2] = [None, None];
+            for arm in 0..2 {
+                c[arm] = match (&total[arm], &f[arm], crossfit) {
+                    (Some(t), _, false) => Some(t.clone()),
+                    (Some(t), Some(x), true) => {
+                        let m = t.minus(x).map_err(|e| MethodError::Engine(e.to_string()))?;
+                        (m.n > 0.0).then_some(m)
+                    }
+                    (Some(t), None, true) => Some(t.clone()),
+                    (None, _, _) => None,
+                };
+            }
+            comp.push(c);
+        }
+        out.push((seg, comp));
+    }
+    Ok(out)
+}

@@ -1,0 +1,85 @@
+//! The augmented score pass of `doubly-robust`.
+
+use upshot_sql::design::{predictor, propensity_columns, Out, PassText};
+use upshot_sql::{Design, Expr, Flavor, Models, Pass, Source, SqlError};
+use upshot_study::Estimand;
+
+/// The nuisance models of the augmented score pass and what it targets.
+#[derive(Clone, Copy, Debug)]
+pub(crate) struct Nuisances<'a> {
+    /// The propensity model(s).
+    pub propensity: &'a Models,
+    /// The treated arm's outcome model(s).
+    pub treated: &'a Models,
+    /// The control arm's outcome model(s).
+    pub control: &'a Models,
+    /// The estimand.
+    pub target: Estimand,
+    /// Propensities are clipped to `[clip, 1 - clip]`.
+    pub clip: f64,
+}
+
+/// The augmented (doubly robust) score pass: with each row's cross-fitted propensity and arm
+/// outcome models inlined, per group `n`, `n1` (treated rows), `sn = Σ num`, `snn = Σ num²`,
+/// `sdn = Σ d·num`, `sd = Σ d` and clipped-row counts, where `num` is the row's score and
+/// `d` its weight in the target population (1, `t` or `1 - t`): the estimate is `sn / sd`.
+pub(crate) fn augmented_sums(
+    flavor: &Flavor,
+    source: &Source,
+    filter: Option<&Expr>,
+    design: &Design,
+    models: &Nuisances,
+) -> Result<Pass, SqlError> {
+    let Nuisances {
+        propensity,
+        treated,
+        control,
+        target,
+        clip,
+    } = *models;
+    let mut t = PassText::new(flavor);
+    let rows = design.rows(&mut t)?;
+    let k = design.terms.len();
+    let (eta, e) = propensity_columns(&mut t, propensity, k, clip)?;
+    let m1 = predictor(&mut t, treated, k)?;
+    let m0 = predictor(&mut t, control, k)?;
+    let (num, den) = match target {
+        Estimand::Ate => (
+            "m1 - m0 + t * (y - m1) / e - (1.0 - t) * (y - m0) / (1.0 - e)",
+            "1.0",
+        ),
+        Estimand::Att => ("t * (y - m0) - (1.0 - t) * e / (1.0 - e) * (y - m0)", "t"),
+        Estimand::Atc => (
+            "(1.0 - t) * (m1 - y) + t * (1.0 - e) / e * (y - m1)",
+            "(1.0 - t)",
+        ),
+    };
+    let mut outs = vec![Out::plain("COUNT(*)", "n")];
+    for (alias, e) in [
+        ("n1", "SUM(t)"),
+        ("sn", "SUM(num)"),
+        ("snn", "SUM(num * num)"),
+        ("sdn", "SUM(den * num)"),
+        ("sd", "SUM(den)"),
+        ("clipped1", "SUM(t * (1.0 - inside))"),
+        ("clipped0", "SUM((1.0 - t) * (1.0 - inside))"),
+        ("min_e", "MIN(e_raw)"),
+        ("max_e", "MAX(e_raw)"),
+    ] {
+        outs.push(Out::plain(e, alias));
+    }
+    let from = format!(
+        "(SELECT *, {num} AS num, {den} AS den FROM (SELECT *, {e}, {m1} AS m1, {m0} AS m0 FROM (SELECT *, {eta} FROM ({rows}) AS rows_) AS linear_) AS nuisance_) AS scores_"
+    );
+    t.sql = t.aggregate(k, &design.key_names(), &outs, &from);
+    t.finish(
+        "scores",
+        format!(
+            "augmented inverse-probability-weighted scores from the cross-fitted propensity and outcome models: sum and sum of squares{}",
+            design.per()
+        ),
+        source,
+        filter,
+    )
+}
+

@@ -1,0 +1,46 @@
+//! The score pass of `partial-out`.
+
+use upshot_sql::design::{predictor, Out, PassText};
+use upshot_sql::{Design, Expr, Flavor, Models, Pass, Source, SqlError};
+
+/// The partialled-out score pass: with each row's cross-fitted linear models of the treatment
+/// (`gt`) and the outcome (`gy`) inlined and residuals `rt = t - gt`, `ry = y - gy`, per group
+/// `n`, `stt = Σ rt²`, `sty = Σ rt ry`, `s22 = Σ rt² ry²`, `s31 = Σ rt³ ry`, `s40 = Σ rt⁴`.
+pub(crate) fn partial_out_sums(
+    flavor: &Flavor,
+    source: &Source,
+    filter: Option<&Expr>,
+    design: &Design,
+    treatment: &Models,
+    outcome: &Models,
+) -> Result<Pass, SqlError> {
+    let mut t = PassText::new(flavor);
+    let rows = design.rows(&mut t)?;
+    let k = design.terms.len();
+    let gt = predictor(&mut t, treatment, k)?;
+    let gy = predictor(&mut t, outcome, k)?;
+    let mut outs = vec![Out::plain("COUNT(*)", "n")];
+    for (alias, e) in [
+        ("stt", "rt * rt"),
+        ("sty", "rt * ry"),
+        ("s22", "rt * rt * ry * ry"),
+        ("s31", "rt * rt * rt * ry"),
+        ("s40", "rt * rt * rt * rt"),
+    ] {
+        outs.push(Out::plain(format!("SUM({e})"), alias));
+    }
+    let from = format!(
+        "(SELECT *, t - ({gt}) AS rt, y - ({gy}) AS ry FROM ({rows}) AS rows_) AS residuals_"
+    );
+    t.sql = t.aggregate(k, &design.key_names(), &outs, &from);
+    t.finish(
+        "scores",
+        format!(
+            "residuals of treatment and outcome on the covariates (cross-fitted models): their sums of products{}",
+            design.per()
+        ),
+        source,
+        filter,
+    )
+}
+

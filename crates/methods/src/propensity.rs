@@ -1,0 +1,357 @@
+//! The propensity model shared by the weighting estimators: a logistic regression of the
+//! treatment on the covariate terms, fitted per segment by Newton's method over aggregate
+//! passes (the current coefficients inlined as literals), and — for cross-fitting — the fits
+//! that each leave one fold out.
+
+use crate::crossfit::{fold_models, fold_sum, folds, row_design, rows_by_fold};
+use crate::prepare::{needs_folds, Setup};
+use crate::read::{by_segment, logit_sums, row_of};
+use crate::combine::segment_label;
+use crate::{ask, MethodError, Runner};
+use upshot_fit::{logit_many, FitError, Logit, LogitSums, NewtonOptions};
+use upshot_sql::{
+    logistic_fits, Aggregates, Design, Key, KeyValue, Model, Models, Pass, Selector, Variants,
+};
+
+pub(crate) fn design(s: &Setup, fold: bool) -> Design {
+    let spec = s.spec;
+    Design {
+        keys: spec
+            .segments
+            .iter()
+            .map(|c| Key::Column(c.clone()))
+            .collect(),
+        terms: s.terms.clone(),
+        extras: vec![("t", spec.treatment.clone()), ("y", spec.outcome.clone())],
+        fold: if fold && crate::prepare::needs_folds(spec) {
+            Some(upshot_sql::Fold {
+                unit: spec.unit.clone().expect("checked with the schema"),
+                folds: spec.folds,
+            })
+        } else {
+            None
+        },
+    }
+}
+
+pub(crate) fn param_names(s: &Setup) -> Vec<String> {
+    let mut names = vec!["(intercept)".to_string()];
+    names.extend(s.term_names.iter().cloned());
+    names
+}
+
+/// Models keyed by segment values.
+pub(crate) fn per_segment(segs: &[Vec<KeyValue>], coefs: &[Vec<f64>]) -> Models {
+    let nseg = segs.first().map_or(0, |k| k.len());
+    if nseg == 0 {
+        return Models::single(coefs[0].clone());
+    }
+    Models {
+        selector: Selector {
+            keys: (0..nseg).collect(),
+            fold: false,
+        },
+        models: segs
+            .iter()
+            .zip(coefs)
+            .map(|(k, c)| Model {
+                key: k.clone(),
+                coef: c.clone(),
+            })
+            .collect(),
+    }
+}
+
+pub(crate) fn placeholder_segments(s: &Setup) -> Vec<Vec<KeyValue>> {
+    vec![s
+        .spec
+        .segments
+        .iter()
+        .map(|_| KeyValue::Text("<each segment>".into()))
+        .collect()]
+}
+
+pub(crate) fn logistic_pass(s: &Setup, models: &Models) -> Result<Pass, MethodError> {
+    let spec = s.spec;
+    Ok(logistic_fits(
+        &spec.flavor,
+        &spec.source,
+        s.filter.as_ref(),
+        &design(s, false),
+        models,
+        Variants::Single,
+    )?)
+}
+
+/// Maps a propensity fit error to a message naming the segment.
+pub(crate) fn propensity_error(label: &str, e: FitError) -> MethodError {
+    let advice = match &e {
+        FitError::Separation { .. } => " — propensities reach 0 or 1, so some rows have no comparable rows in the other arm (positivity fails); restrict the rows or drop the named columns",
+        _ => "",
+    };
+    MethodError::Input(format!(
+        "{label}: the propensity model cannot be fitted: {e}{advice}"
+    ))
+}
+
+/// Fits one propensity model per segment; returns the segments, the treated counts and fits.
+pub(crate) fn fit_propensity(
+    s: &Setup,
+    r: &mut dyn Runner,
+) -> Result<(Vec<Vec<KeyValue>>, Vec<Logit>), MethodError> {
+    let nseg = s.spec.segments.len();
+    let k = s.terms.len() + 1;
+    let first = ask(r, &logistic_pass(s, &Models::single(vec![0.0; k]))?)?;
+    let segs: Vec<Vec<KeyValue>> = by_segment(&first, nseg)?.into_iter().map(|x| x.0).collect();
+    // At zero coefficients p = 1/2, so the intercept's score is n₁ − n/2.
+    for (row, key) in segs.iter().enumerate() {
+        let n = first.number(row, "n")?;
+        let n1 = first.number(row, "u0")? + n / 2.0;
+        check_arms(s, key, n1.round(), (n - n1).round())?;
+    }
+    let names = param_names(s);
+    let mut cached = Some(first);
+    let fits = logit_many(
+        &names,
+        segs.len(),
+        |coefs| {
+            let a: Aggregates = match cached.take() {
+                Some(a) if coefs.iter().all(|c| c.iter().all(|x| *x == 0.0)) => a,
+                _ => ask(r, &logistic_pass(s, &per_segment(&segs, coefs))?)?,
+            };
+            (0..segs.len())
+                .map(|row| logit_sums(&a, row, "", k))
+                .collect::<Result<Vec<LogitSums>, MethodError>>()
+        },
+        NewtonOptions::default(),
+    )?;
+    let mut out = Vec::new();
+    for (key, f) in segs.iter().zip(fits) {
+        out.push(f.map_err(|e| propensity_error(&segment_label(s, key), e))?);
+    }
+    Ok((segs, out))
+}
+
+pub(crate) fn check_arms(s: &Setup, key: &[KeyValue], n1: f64, n0: f64) -> Result<(), MethodError> {
+    for (n, word) in [(n1, "treated"), (n0, "untreated (control)")] {
+        if n == 0.0 {
+            return Err(MethodError::Input(format!(
+                "{} has no {word} rows; an effect there cannot be estimated — drop the segment column, or filter the segment out",
+                segment_label(s, key)
+            )));
+        }
+    }
+    Ok(())
+}
+
+/// A logistic pass over the row design (segments, fold, `t`, `y`).
+fn row_logistic(s: &Setup, models: &Models, variants: Variants) -> Result<Pass, MethodError> {
+    let spec = s.spec;
+    Ok(logistic_fits(
+        &spec.flavor,
+        &spec.source,
+        s.filter.as_ref(),
+        &row_design(s),
+        models,
+        variants,
+    )?)
+}
+
+/// Newton step of every fold-leaving-out fit (or of the one fit without cross-fitting).
+pub(crate) fn complement_pass(s: &Setup, models: &Models) -> Result<Pass, MethodError> {
+    let variants = match needs_folds(s.spec) {
+        true => Variants::Complement(s.spec.folds),
+        false => Variants::Single,
+    };
+    row_logistic(s, models, variants)
+}
+
+/// Newton step of each segment's fit on all its rows, summed per fold.
+pub(crate) fn by_fold_pass(s: &Setup, models: &Models) -> Result<Pass, MethodError> {
+    row_logistic(s, models, Variants::ByFold)
+}
+
+/// Scores of the fold-leaving-out fits.
+pub(crate) fn scores_pass_only(s: &Setup, models: &Models) -> Result<Pass, MethodError> {
+    row_logistic(s, models, Variants::ComplementScores(s.spec.folds))
+}
+
+/// Propensity models per segment and held-out fold by Newton's method, all side by side in
+/// the same passes (each pass carries every model's information matrix).
+fn newton_complements(
+    s: &Setup,
+    r: &mut dyn Runner,
+    segs: &[Vec<KeyValue>],
+) -> Result<Vec<Vec<Vec<f64>>>, MethodError> {
+    let spec = s.spec;
+    let p = s.terms.len();
+    let k = folds(s) as usize;
+    let param = param_names(s);
+    let kp = p + 1;
+    let fits = logit_many(
+        &param,
+        segs.len() * k,
+        |flat| {
+            let coef: Vec<Vec<Vec<f64>>> = flat.chunks(k).map(|c| c.to_vec()).collect();
+            let a = ask(r, &complement_pass(s, &fold_models(s, segs, &coef))?)?;
+            let mut out: Vec<LogitSums> = Vec::new();
+            for seg in segs {
+                if !needs_folds(spec) {
+                    out.push(logit_sums(&a, row_of(&a, seg)?, "", kp)?);
+                    continue;
+                }
+                // One row per fold of the segment; fit j adds up the rows of the other folds.
+                let rows = rows_by_fold(&a, seg)?;
+                for j in 0..k {
+                    let mut sums =
+                        fold_sum(&a, &rows, Some(j), &format!("m{j}_"), kp).map_err(|e| {
+                            MethodError::Input(format!("{}: {e}", segment_label(s, seg)))
+                        })?;
+                    sums.n = f64::NAN;
+                    out.push(sums);
+                }
+            }
+            Ok::<_, MethodError>(out)
+        },
+        NewtonOptions::default(),
+    )?;
+    let mut ecoef = Vec::new();
+    for (i, seg) in segs.iter().enumerate() {
+        let mut per = Vec::new();
+        for j in 0..k {
+            let label = if k > 1 {
+                format!("{}, rows outside fold {j}", segment_label(s, seg))
+            } else {
+                segment_label(s, seg)
+            };
+            let f = fits[i * k + j]
+                .clone()
+                .map_err(|e| propensity_error(&label, e))?;
+            per.push(f.coef);
+        }
+        ecoef.push(per);
+    }
+    Ok(ecoef)
+}
+
+/// Most score passes of [`shared_curvature_complements`] before it gives way to Newton.
+const SHARED_CURVATURE_PASSES: usize = 30;
+
+/// The fold-leaving-out propensity fits, cheaply: each segment's model is fitted on all its
+/// rows by Newton, with one small pass per iteration grouped by fold; at its optimum the sums of
+/// the folds other than j give fit j's score and information, and fit j then steps from there
+/// with that information matrix held fixed, using only the fits' scores, which one pass grouped
+/// by fold returns for all of them. The fixed point is the same maximum-likelihood estimate
+/// Newton reaches (the score is zero there), and the iteration contracts fast because a fit
+/// leaving out one fold of K is close to the full fit. Returns `None` (and the caller uses full
+/// Newton passes) when a fit does not settle within [`SHARED_CURVATURE_PASSES`] or its
+/// coefficients run away, which is where separation would show.
+fn shared_curvature_complements(
+    s: &Setup,
+    r: &mut dyn Runner,
+    segs: &[Vec<KeyValue>],
+) -> Result<Option<Vec<Vec<Vec<f64>>>>, MethodError> {
+    let kp = s.terms.len() + 1;
+    let k = folds(s) as usize;
+    // Each segment's model on all its rows, by Newton, with the sums grouped by fold.
+    let names = param_names(s);
+    let mut last: Option<Aggregates> = None;
+    let full = logit_many(
+        &names,
+        segs.len(),
+        |coefs| {
+            let a = ask(
+                r,
+                &by_fold_pass(s, &per_segment(segs, coefs))?,
+            )?;
+            let mut out = Vec::new();
+            for seg in segs {
+                let rows = rows_by_fold(&a, seg)?;
+                out.push(fold_sum(&a, &rows, None, "", kp)?);
+            }
+            last = Some(a);
+            Ok::<_, MethodError>(out)
+        },
+        NewtonOptions::default(),
+    )?;
+    let last = last.expect("Newton runs at least one pass");
+    let opts = NewtonOptions::default();
+    let mut coef: Vec<Vec<Vec<f64>>> = Vec::new();
+    let mut curvature = Vec::new();
+    for (seg, fit) in segs.iter().zip(full) {
+        let fit = fit.map_err(|e| propensity_error(&segment_label(s, seg), e))?;
+        // The last pass evaluated every segment's model at its final coefficients: the sums of
+        // the folds other than j are fit j's score and information there, so its first step
+        // needs no pass.
+        let rows = rows_by_fold(&last, seg)?;
+        let mut cs = Vec::new();
+        let mut start = Vec::new();
+        for j in 0..k {
+            let sums = fold_sum(&last, &rows, Some(j), "", kp)?;
+            let Some(c) = sums.information.cholesky() else {
+                return Ok(None);
+            };
+            let step = c.solve(&sums.score);
+            start.push(
+                fit.coef
+                    .iter()
+                    .zip(step.iter())
+                    .map(|(x, d)| x + d)
+                    .collect::<Vec<f64>>(),
+            );
+            cs.push(c);
+        }
+        curvature.push(cs);
+        coef.push(start);
+    }
+    let mut settled = vec![vec![false; k]; segs.len()];
+    for _ in 0..SHARED_CURVATURE_PASSES {
+        let a = ask(r, &scores_pass_only(s, &fold_models(s, segs, &coef))?)?;
+        for (i, seg) in segs.iter().enumerate() {
+            let rows = rows_by_fold(&a, seg)?;
+            for j in 0..k {
+                let mut score = nalgebra::DVector::<f64>::zeros(kp);
+                for (f, row) in &rows {
+                    if *f != j {
+                        score += crate::read::vector(&a, *row, &format!("m{j}_u"), kp)?;
+                    }
+                }
+                let step = curvature[i][j].solve(&score);
+                let c = &mut coef[i][j];
+                let small = step
+                    .iter()
+                    .zip(c.iter())
+                    .all(|(d, x)| d.abs() <= opts.tolerance * (1.0 + x.abs()));
+                for (x, d) in c.iter_mut().zip(step.iter()) {
+                    *x += d;
+                }
+                if !c.iter().all(|x| x.is_finite())
+                    || c[1..].iter().any(|x| x.abs() > opts.max_coefficient)
+                {
+                    return Ok(None);
+                }
+                settled[i][j] = small;
+            }
+        }
+        if settled.iter().flatten().all(|x| *x) {
+            return Ok(Some(coef));
+        }
+    }
+    Ok(None)
+}
+
+/// The propensity models per segment and held-out fold (one per segment without
+/// cross-fitting): stepped from each segment's full fit with a fixed curvature where that
+/// settles, by Newton passes otherwise.
+pub(crate) fn cross_fitted_propensity(
+    s: &Setup,
+    r: &mut dyn Runner,
+    segs: &[Vec<KeyValue>],
+) -> Result<Vec<Vec<Vec<f64>>>, MethodError> {
+    if needs_folds(s.spec) {
+        if let Some(c) = shared_curvature_complements(s, r, segs)? {
+            return Ok(c);
+        }
+    }
+    newton_complements(s, r, segs)
+}

@@ -1,0 +1,425 @@
+//! Pass shapes shared by estimators: the profile, the cell table, category levels, the
+//! centred Gram matrix, residual moments of linear fits (the HC1 meat) and logistic Newton
+//! steps; and the schema probe. An estimator's own passes live with the estimator (crate
+//! `upshot-methods`), built from the same kit ([`crate::design`]).
+
+use crate::design::{
+    factor, not_null, predictor, products_of, Design, KeyValue, Model, Models, Out, PassText,
+    Products, Selector, SIGMOID,
+};
+use crate::dialect::Flavor;
+use crate::error::SqlError;
+use crate::source::Source;
+use sqlparser::ast::{Expr, Query};
+
+/// One aggregate query of a plan.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Pass {
+    /// Short name (`profile`, `cells`, `gram`).
+    pub name: String,
+    /// What it computes, for `upshot plan`.
+    pub purpose: String,
+    /// The query.
+    pub query: Query,
+}
+
+impl Pass {
+    /// The query as SQL text, laid out on several lines.
+    pub fn sql(&self) -> String {
+        format!("{:#}", self.query)
+    }
+}
+
+/// A column to profile.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct ProfileColumn {
+    /// Column name.
+    pub name: String,
+    /// Whether to compute a mean (numeric columns).
+    pub numeric: bool,
+    /// Whether to count distinct values (approximately where the engine can): hashing every
+    /// value is the costliest part of a profile, so only columns whose checks need it ask.
+    pub distinct: bool,
+    /// Whether to count the values that are neither 0 nor 1 (`c{i}_not01`): the exact, cheap
+    /// check of a 0/1 treatment.
+    pub zero_one: bool,
+}
+
+/// The profile pass: row count, and per column non-NULL count, and for numeric columns
+/// minimum, maximum, mean and sum of squares and, where asked, distinct count
+/// (approximate where the engine has it). Output aliases: `n_rows`, then `c{i}_n`, `c{i}_min`, `c{i}_max`, `c{i}_mean`,
+/// `c{i}_ss`, `c{i}_not01`, `c{i}_distinct` (where asked), and `n_complete` (rows with no NULL in any of the columns). Means and deviations centre and scale the later passes.
+pub fn profile(
+    flavor: &Flavor,
+    source: &Source,
+    filter: Option<&Expr>,
+    columns: &[ProfileColumn],
+) -> Result<Pass, SqlError> {
+    let mut t = PassText::new(flavor);
+    let d = flavor.dialect;
+    let mut items = vec!["COUNT(*) AS n_rows".to_string()];
+    for (i, c) in columns.iter().enumerate() {
+        let p = t.column(&c.name);
+        items.push(format!("COUNT({p}) AS c{i}_n"));
+        if c.numeric {
+            // Text columns get no MIN/MAX: comparing strings row by row costs more than the
+            // rest of the pass, and their levels come from the levels pass.
+            items.push(format!("MIN({p}) AS c{i}_min"));
+            items.push(format!("MAX({p}) AS c{i}_max"));
+            items.push(format!("AVG(CAST({p} AS {})) AS c{i}_mean", d.float_type()));
+            // The sum of squares, not STDDEV_POP: the deviation only scales the later passes
+            // (their sums are centred on the exact mean), and a running-variance aggregate
+            // costs several times a sum.
+            items.push(format!(
+                "SUM(CAST({p} AS {f}) * CAST({p} AS {f})) AS c{i}_ss",
+                f = d.float_type()
+            ));
+        }
+        if c.zero_one {
+            items.push(if d.aggregate_filter() {
+                format!("COUNT(*) FILTER (WHERE {p} <> 0 AND {p} <> 1) AS c{i}_not01")
+            } else {
+                format!("SUM(CASE WHEN {p} <> 0 AND {p} <> 1 THEN 1 ELSE 0 END) AS c{i}_not01")
+            });
+        }
+        if c.distinct {
+            items.push(match d.approx_distinct() {
+                Some(f) => format!("{f}({p}) AS c{i}_distinct"),
+                None => format!("COUNT(DISTINCT {p}) AS c{i}_distinct"),
+            });
+        }
+    }
+    if !columns.is_empty() {
+        let mut all = Vec::new();
+        for c in columns {
+            let p = t.column(&c.name);
+            all.push(format!("{p} IS NOT NULL"));
+        }
+        items.push(format!(
+            "SUM(CASE WHEN {} THEN 1 ELSE 0 END) AS n_complete",
+            all.join(" AND ")
+        ));
+    }
+    t.sql = format!(
+        "SELECT {} FROM __src AS src WHERE __filter",
+        items.join(", ")
+    );
+    Ok(Pass {
+        name: "profile".into(),
+        purpose: "row count; per column: non-NULL count, and for numbers min, max, mean, sum of squares (and a distinct count where a check needs it)".into(),
+        query: t.query(source, filter)?,
+    })
+}
+
+/// The cell table: per combination of `keys` (segments, strata, treatment), the row count and
+/// the sum and sum of squares of `value`. Rows with NULL in a key or the value are excluded.
+/// Output aliases: `k{i}`, `n`, `sy`, `syy`; ordered by the keys.
+pub fn cells(
+    flavor: &Flavor,
+    source: &Source,
+    filter: Option<&Expr>,
+    keys: &[String],
+    value: &str,
+) -> Result<Pass, SqlError> {
+    let mut t = PassText::new(flavor);
+    let d = flavor.dialect;
+    let mut used = keys.to_vec();
+    used.push(value.to_string());
+    let y = t.column(value);
+    let ks: Vec<String> = keys
+        .iter()
+        .map(|k| t.column(k))
+        .collect();
+    let f = d.float_type();
+    let mut items: Vec<String> = ks
+        .iter()
+        .enumerate()
+        .map(|(i, k)| format!("{k} AS k{i}"))
+        .collect();
+    items.push("COUNT(*) AS n".into());
+    items.push(format!("SUM(CAST({y} AS {f})) AS sy"));
+    items.push(format!("SUM(CAST({y} AS {f}) * CAST({y} AS {f})) AS syy"));
+    let w = not_null(&mut t, &used);
+    let mut sql = format!("SELECT {} FROM __src AS src WHERE {w}", items.join(", "));
+    if !ks.is_empty() {
+        let order: Vec<String> = (1..=ks.len()).map(|i| i.to_string()).collect();
+        sql.push_str(&format!(
+            " GROUP BY {} ORDER BY {}",
+            ks.join(", "),
+            order.join(", ")
+        ));
+    }
+    t.sql = sql;
+    Ok(Pass {
+        name: "cells".into(),
+        purpose: format!(
+            "per cell of ({}): n, sum and sum of squares of the outcome",
+            keys.join(", ")
+        ),
+        query: t.query(source, filter)?,
+    })
+}
+
+/// The centred Gram pass of a design: per group `n`, `s{i} = Σ v_i`, `g{i}_{j} = Σ v_i v_j`.
+pub fn gram(
+    flavor: &Flavor,
+    source: &Source,
+    filter: Option<&Expr>,
+    design: &Design,
+) -> Result<Pass, SqlError> {
+    let mut t = PassText::new(flavor);
+    let rows = design.rows(&mut t)?;
+    let k = design.terms.len();
+    let mut entries = Vec::new();
+    for i in 0..k {
+        entries.push((format!("s{i}"), format!("v{i}"), 0, i + 1));
+    }
+    for i in 0..k {
+        for j in i..k {
+            entries.push((format!("g{i}_{j}"), format!("v{i} * v{j}"), i + 1, j + 1));
+        }
+    }
+    let outs = [
+        Out::plain("COUNT(*)", "n"),
+        Out::Products(Products {
+            weight: "1.0".into(),
+            entries,
+        }),
+    ];
+    t.sql = t.aggregate(
+        k,
+        &design.key_names(),
+        &outs,
+        &format!("({rows}) AS rows_"),
+    );
+    Ok(Pass {
+        name: "gram".into(),
+        purpose: format!("centred Gram matrix of {k} terms{}", design.per()),
+        query: t.query(source, filter)?,
+    })
+}
+
+/// How many logistic fits a pass evaluates per group.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Variants {
+    /// One fit over all the group's rows; outputs unprefixed (`u0`, `h0_0`, `loglik`, ...).
+    Single,
+    /// Cross-fitting: fit `m` uses the rows whose fold is not `m`, for `m` in `0..folds`;
+    /// outputs prefixed `m{m}_` (`m0_u0`, ...). The models' selector must end with the fold,
+    /// whose value then names the held-out fold. The pass is grouped by the row's fold `f` as
+    /// well (after the design's keys) and every model is summed over every fold's rows, so the
+    /// sums of fit `m` are those of the groups with `f <> m` (added up by the caller): plain
+    /// sums, with no per-model condition, cost half as much as `CASE`-restricted ones.
+    Complement(u32),
+    /// As [`Variants::Complement`] (grouped by the fold too), but only the scores `u{i}` of
+    /// each fit: for fits that step with a fixed curvature matrix, whose sums of products are
+    /// the costly part of a Newton pass.
+    ComplementScores(u32),
+    /// One fit per group, as [`Variants::Single`], with the sums grouped by the row's fold `f`
+    /// too (the design must have a fold): the group's sums are those of all its folds, and the
+    /// fits leaving one fold out can start from the sums of the others.
+    ByFold,
+}
+
+impl Variants {
+    fn complement(self) -> Option<u32> {
+        match self {
+            Variants::Single | Variants::ByFold => None,
+            Variants::Complement(k) | Variants::ComplementScores(k) => Some(k),
+        }
+    }
+}
+
+/// One Newton step of logistic regressions of the 0/1 extra `t` on the design terms, with each
+/// model's coefficients inlined. Per group and variant: `u{i} = Σ w_i (t - p)`,
+/// `h{i}_{j} = Σ p (1 - p) w_i w_j` (i ≤ j) for `w = (1, v...)`, `loglik`, `min_p`, `max_p`;
+/// for [`Variants::Complement`] the sums are prefixed `m{m}_` and grouped by the fold `f` too;
+/// [`Variants::ComplementScores`] keeps only their `u{i}`; [`Variants::ByFold`] is one fit per
+/// group with the sums grouped by fold.
+pub fn logistic_fits(
+    flavor: &Flavor,
+    source: &Source,
+    filter: Option<&Expr>,
+    design: &Design,
+    models: &Models,
+    variants: Variants,
+) -> Result<Pass, SqlError> {
+    let mut t = PassText::new(flavor);
+    let rows = design.rows(&mut t)?;
+    let k = design.terms.len();
+    let mut keys = design.key_names();
+    if variants.complement().is_some() || variants == Variants::ByFold {
+        assert!(
+            design.fold.is_some(),
+            "grouping by fold needs the design's fold"
+        );
+        keys.push("f".into());
+    }
+    let mut outs = vec![Out::plain("COUNT(*)", "n")];
+    let mut etas = Vec::new();
+    let list: Vec<(String, Option<u32>)> = match variants.complement() {
+        None => {
+            etas.push(format!("{} AS eta", predictor(&mut t, models, k)?));
+            vec![(String::new(), None)]
+        }
+        Some(folds) => {
+            let sel = &models.selector;
+            assert!(
+                sel.fold,
+                "complement fits select their model by the held-out fold"
+            );
+            for m in 0..folds {
+                let own = Models {
+                    selector: Selector {
+                        keys: sel.keys.clone(),
+                        fold: false,
+                    },
+                    models: models
+                        .models
+                        .iter()
+                        .filter(|x| x.key.last() == Some(&KeyValue::Number(f64::from(m))))
+                        .map(|x| Model {
+                            key: x.key[..x.key.len() - 1].to_vec(),
+                            coef: x.coef.clone(),
+                        })
+                        .collect(),
+                };
+                etas.push(format!("{} AS eta{m}", predictor(&mut t, &own, k)?));
+            }
+            (0..folds).map(|m| (format!("m{m}_"), Some(m))).collect()
+        }
+    };
+    let mut probs = Vec::new();
+    for (pre, m) in &list {
+        let (eta, p) = match m {
+            None => ("eta".to_string(), "p".to_string()),
+            Some(m) => (format!("eta{m}"), format!("p{m}")),
+        };
+        probs.push(format!("{} AS {p}", SIGMOID.replace("eta", &eta)));
+        for i in 0..=k {
+            outs.push(Out::plain(
+                format!("SUM((t - {p}){})", factor(i)),
+                format!("{pre}u{i}"),
+            ));
+        }
+        if let Variants::ComplementScores(_) = variants {
+            continue;
+        }
+        let curvature = format!("{p} * (1.0 - {p})");
+        outs.push(Out::Products(products_of(
+            &curvature,
+            &format!("{pre}h"),
+            k,
+        )));
+        outs.push(Out::plain(
+            format!("SUM(t * {eta} - CASE WHEN {eta} > 0 THEN {eta} + LN(1.0 + EXP(-{eta})) ELSE LN(1.0 + EXP({eta})) END)"),
+            format!("{pre}loglik"),
+        ));
+        outs.push(Out::plain(format!("MIN({p})"), format!("{pre}min_p")));
+        outs.push(Out::plain(format!("MAX({p})"), format!("{pre}max_p")));
+    }
+    let from = format!(
+        "(SELECT *, {} FROM (SELECT *, {} FROM ({rows}) AS rows_) AS linear_) AS fitted_",
+        probs.join(", "),
+        etas.join(", "),
+    );
+    t.sql = t.aggregate(k, &keys, &outs, &from);
+    let what = match variants {
+        Variants::Single => String::new(),
+        Variants::ByFold => ", per fold".to_string(),
+        Variants::Complement(k) => format!(", {k} cross-fitting fits (each leaving one fold out)"),
+        Variants::ComplementScores(k) => {
+            return Ok(Pass {
+                name: "logistic-scores".into(),
+                purpose: format!(
+                    "scores of {k} cross-fitting propensity fits (each leaving one fold out) at their current coefficients{}, per fold; each fit steps with a fixed curvature matrix",
+                    design.per()
+                ),
+                query: t.query(source, filter)?,
+            })
+        }
+    };
+    Ok(Pass {
+        name: "logistic-step".into(),
+        purpose: format!(
+            "one Newton step of the propensity model: score, information and log-likelihood at the current coefficients{}{what}",
+            design.per()
+        ),
+        query: t.query(source, filter)?,
+    })
+}
+
+/// Residual moments of per-group linear models of the extra `y`: with each row's model
+/// inlined and `e = y - fitted`, per group `n` and `r{i}_{j} = Σ e² w_i w_j` for
+/// `w = (1, v...)` (the HC1 meat; `r0_0` is the residual sum of squares).
+pub fn residuals(
+    flavor: &Flavor,
+    source: &Source,
+    filter: Option<&Expr>,
+    design: &Design,
+    models: &Models,
+) -> Result<Pass, SqlError> {
+    let mut t = PassText::new(flavor);
+    let rows = design.rows(&mut t)?;
+    let k = design.terms.len();
+    let fitted = predictor(&mut t, models, k)?;
+    let outs = [
+        Out::plain("COUNT(*)", "n"),
+        Out::Products(products_of("e * e", "r", k)),
+    ];
+    let from = format!("(SELECT *, y - ({fitted}) AS e FROM ({rows}) AS rows_) AS residuals_");
+    t.sql = t.aggregate(k, &design.key_names(), &outs, &from);
+    Ok(Pass {
+        name: "residuals".into(),
+        purpose: format!(
+            "residual moments of the outcome models at their fitted coefficients (HC1 meat){}",
+            design.per()
+        ),
+        query: t.query(source, filter)?,
+    })
+}
+
+/// Levels of categorical columns: `which` (the column's index), `level` (as text) and `n`,
+/// ordered; rows with NULL in any of `complete` are excluded so the levels match the rows
+/// every later pass reads.
+pub fn levels(
+    flavor: &Flavor,
+    source: &Source,
+    filter: Option<&Expr>,
+    columns: &[String],
+    complete: &[String],
+) -> Result<Pass, SqlError> {
+    let mut t = PassText::new(flavor);
+    let d = flavor.dialect;
+    let mut branches = Vec::new();
+    for (i, c) in columns.iter().enumerate() {
+        let p = t.column(c);
+        let w = not_null(&mut t, complete);
+        branches.push(format!(
+            "SELECT {i} AS which, CAST({p} AS {text}) AS level, COUNT(*) AS n FROM __src AS src WHERE {w} GROUP BY {p}",
+            text = d.text_type()
+        ));
+    }
+    t.sql = format!(
+        "SELECT which, level, n FROM ({}) AS levels_ ORDER BY which, level",
+        branches.join(" UNION ALL ")
+    );
+    Ok(Pass {
+        name: "levels".into(),
+        purpose: format!("the levels of {} and their row counts", columns.join(", ")),
+        query: t.query(source, filter)?,
+    })
+}
+
+/// A query returning the source's columns and no rows (`LIMIT 0`), for schema checks.
+pub fn schema_probe(flavor: &Flavor, source: &Source) -> Result<Pass, SqlError> {
+    Ok(Pass {
+        name: "schema".into(),
+        purpose: "the source's column names and types (reads no rows)".into(),
+        query: {
+            let mut t = PassText::new(flavor);
+            t.sql = "SELECT * FROM __src AS src LIMIT 0".into();
+            t.query(source, None)?
+        },
+    })
+}
