@@ -22,8 +22,9 @@
 //! [--methods weight,doubly-robust] (only those rows of the table)
 
 use std::collections::BTreeMap;
-use upshot_engine::{DuckDbEngine, Engine, MEMORY};
-use upshot_methods::{estimate, Basis, ColumnType, Estimator, NullPolicy, Spec, Target};
+use upshot_engine::Engine;
+use upshot_engine_duckdb::{DuckDbEngine, MEMORY};
+use upshot_methods::{estimate, Basis, ColumnType, Estimand, Method as Estimator, NullPolicy, Spec};
 use upshot_sql::{DuckDb, Source};
 
 fn arg(name: &str, default: u64) -> u64 {
@@ -142,7 +143,7 @@ fn main() {
         .into_iter()
         .filter(|r| {
             only.as_ref()
-                .is_none_or(|o| o.iter().any(|k| k == r.method.key()))
+                .is_none_or(|o| o.iter().any(|k| k == r.method.as_str()))
         })
         .collect();
     let mut tallies: Vec<Tally> = methods.iter().map(|_| Tally::default()).collect();
@@ -178,7 +179,7 @@ fn main() {
         for (row, tally) in methods.iter().zip(tallies.iter_mut()) {
             let (method, adjust) = (&row.method, &row.adjust);
             let spec = Spec {
-                dialect: &DuckDb,
+                flavor: engine.flavor(),
                 question: "coverage".into(),
                 source: source.clone(),
                 filter: row
@@ -188,7 +189,7 @@ fn main() {
                 outcome: "spend_30d".into(),
                 adjust: adjust.iter().map(|s| s.to_string()).collect(),
                 segments: vec!["tenure_band".into()],
-                target: Target::Ate,
+                estimand: Estimand::Ate,
                 method: *method,
                 folds,
                 unit: Some("customer_id".into()),
@@ -200,7 +201,7 @@ fn main() {
             };
             let mut runner = |p: &upshot_sql::Pass| engine.run(p).map_err(|e| e.to_string());
             let out = estimate(&spec, &mut runner)
-                .unwrap_or_else(|e| panic!("replicate {r}, {}: {e}", method.key()));
+                .unwrap_or_else(|e| panic!("replicate {r}, {}: {e}", method.as_str()));
             for e in &out.estimates {
                 if e.segment == "all" {
                     tally.estimates.push(e.estimate);
@@ -237,7 +238,7 @@ fn main() {
         let c = |b: &str| f64::from(*t.cate_hits.get(b).unwrap_or(&0)) / n;
         println!(
             "{:<14} {:>8.3} {:>8.3} {:>8.3} {:>8.3} {:>10.3} {:>9.3} {:>9.3} {:>8.2}  {{{}}}{}",
-            method.key(),
+            method.as_str(),
             ate,
             c("new"),
             c("1y"),

@@ -4,10 +4,12 @@
 
 use nalgebra::{DMatrix, DVector};
 use serde_json::{json, Value};
-use upshot_engine::{DuckDbEngine, Engine, MEMORY};
+use upshot_engine::Engine;
+use upshot_engine_duckdb::{DuckDbEngine, MEMORY};
 use upshot_fit::{logit, ols, LogitSums, Moments, NewtonOptions};
 use upshot_sql::{
-    gram, logistic_step, profile, residual_moments, DesignTerm, ProfileColumn, Source,
+    gram, logistic_fits, profile, residuals, Design, DesignTerm, Models, ProfileColumn, Source,
+    Variants,
 };
 
 fn fail(msg: String) -> ! {
@@ -18,7 +20,8 @@ fn fail(msg: String) -> ! {
 /// Least squares (`logistic = false`) or logistic regression of `outcome` on `covariates`.
 pub fn fit(path: &str, outcome: &str, covariates: &[String], logistic: bool) -> Value {
     let e = DuckDbEngine::open(MEMORY, false).unwrap_or_else(|e| fail(e.to_string()));
-    let d = e.dialect();
+    let d = e.flavor();
+    let d = &d;
     let src = Source::Csv(path.to_string());
     let mut cols: Vec<String> = covariates.to_vec();
     cols.push(outcome.to_string());
@@ -64,7 +67,14 @@ pub fn fit(path: &str, outcome: &str, covariates: &[String], logistic: bool) -> 
                 passes += 1;
                 let a = e
                     .run(
-                        &logistic_step(d, &src, None, &[], x_terms, outcome, c)
+                        &logistic_fits(
+                            d,
+                            &src,
+                            None,
+                            &Design::grouped(&[], x_terms, &[("t", outcome)]),
+                            &Models::single(c.to_vec()),
+                            Variants::Single,
+                        )
                             .map_err(|e| e.to_string())?,
                     )
                     .map_err(|e| e.to_string())?;
@@ -110,7 +120,7 @@ pub fn fit(path: &str, outcome: &str, covariates: &[String], logistic: bool) -> 
         };
     }
     let g = e
-        .run(&gram(d, &src, None, &[], &terms).unwrap())
+        .run(&gram(d, &src, None, &Design::grouped(&[], &terms, &[])).unwrap())
         .unwrap_or_else(|e| fail(e.to_string()));
     let sum: Vec<f64> = (0..k).map(|i| num(&g, &format!("s{i}"))).collect();
     let mut upper = Vec::new();
@@ -126,7 +136,16 @@ pub fn fit(path: &str, outcome: &str, covariates: &[String], logistic: bool) -> 
         Ok(f) => {
             let c = f.design_coefficients(&m, &x);
             let r = e
-                .run(&residual_moments(d, &src, None, &[], &terms[..k - 1], outcome, &c).unwrap())
+                .run(
+                    &residuals(
+                        d,
+                        &src,
+                        None,
+                        &Design::grouped(&[], &terms[..k - 1], &[("y", outcome)]),
+                        &Models::single(c.clone()),
+                    )
+                    .unwrap(),
+                )
                 .unwrap_or_else(|e| fail(e.to_string()));
             let mut meat = DMatrix::zeros(k, k);
             for i in 0..k {

@@ -8,7 +8,7 @@
 //!   pass (`scan.rs`), once with one `SUM` per product and once (**scan-fused**) with upshot's
 //!   `upshot_moments` aggregate; the faster is the floor for any in-database method;
 //! - **upshot**: the method end to end through the library (every pass) on the same file, as
-//!   `run` executes it, and (**upshot-plain**) rendered for the `duckdb-plain` dialect, without
+//!   `run` executes it, and (**upshot-plain**) rendered without
 //!   upshot's functions;
 //! - **rust**: every needed column exported through Arrow and the same estimator fitted in
 //!   memory with nalgebra (`memfit.rs`);
@@ -40,8 +40,11 @@ use serde_json::{json, Value};
 use std::path::{Path, PathBuf};
 use std::process::Command;
 use std::time::Instant;
-use upshot_engine::{DuckDbEngine, Engine};
-use upshot_methods::{estimate, Basis, ColumnType, Estimator, NullPolicy, Spec, Target};
+use upshot_engine::Engine;
+use upshot_engine_duckdb::DuckDbEngine;
+use upshot_methods::{
+    estimate, Basis, ColumnType, Estimand, Method as Estimator, NullPolicy, Spec,
+};
 use work::Work;
 
 #[derive(Parser, Debug)]
@@ -188,13 +191,13 @@ fn measure(approach: &str, db: &Path, w: &Work) -> Result<Value, String> {
                     integer: c.integer,
                 })
                 .collect();
-            let dialect: &'static dyn upshot_sql::Dialect = if approach == "upshot" {
-                &upshot_sql::DuckDb
+            let flavor = if approach == "upshot" {
+                engine.flavor()
             } else {
-                &upshot_sql::DuckDbPlain
+                upshot_sql::Flavor::plain(engine.dialect())
             };
             let spec = Spec {
-                dialect,
+                flavor,
                 question: "bench".into(),
                 source,
                 filter: None,
@@ -206,7 +209,7 @@ fn measure(approach: &str, db: &Path, w: &Work) -> Result<Value, String> {
                 } else {
                     vec![]
                 },
-                target: Target::Ate,
+                estimand: Estimand::Ate,
                 method: w.method,
                 folds: w.folds(),
                 unit: Some("customer_id".into()),
@@ -296,7 +299,7 @@ fn child(args: &Args, approach: &str, db: &Path, w: &Work) -> Result<Value, Stri
         };
         cmd.arg("--db")
             .arg(db)
-            .args(["--methods", w.method.key()])
+            .args(["--methods", w.method.as_str()])
             .args(["--p", &w.p.to_string()])
             .args(["--segments", if w.segments { "on" } else { "off" }]);
         let out = cmd
@@ -335,7 +338,7 @@ struct Row {
     /// The faster of the two: the floor the targets are measured against.
     floor_s: f64,
     upshot_s: f64,
-    /// upshot rendering one `SUM` per product (dialect duckdb-plain).
+    /// upshot rendering one `SUM` per product (without upshot's functions).
     upshot_plain_s: f64,
     /// upshot-plain ÷ the plain-sum scan: the ratio before the fused aggregate.
     plain_over_scan: f64,
@@ -655,7 +658,7 @@ fn write_results(dir: &Path, rows: &[Row], verdicts: &[String]) -> Result<(), St
         csv.push_str(&format!(
             "{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{}\n",
             r.rows,
-            r.work.method.key(),
+            r.work.method.as_str(),
             if r.work.method == Estimator::Stratify {
                 String::new()
             } else {

@@ -14,7 +14,7 @@ use duckdb::arrow::datatypes::{DataType, Float64Type};
 use duckdb::Connection;
 use nalgebra::{DMatrix, DVector};
 use std::collections::HashMap;
-use upshot_methods::Estimator;
+use upshot_methods::Method as Estimator;
 
 /// The exported rows, as columns.
 pub struct Rows {

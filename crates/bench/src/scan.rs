@@ -16,7 +16,7 @@
 //! it by hand; centring constants are the columns' means, computed before the clock starts.
 
 use crate::work::{zone_dummies, Work, FOLDS};
-use upshot_methods::Estimator;
+use upshot_methods::Method as Estimator;
 
 /// The fold hash of upshot's design passes, written out by hand (see `upshot_sql::fold_of`).
 fn fold_expr() -> String {

@@ -1,7 +1,7 @@
 //! What one benchmark row estimates: a method, a design width and whether it is segmented.
 
 use serde::Serialize;
-use upshot_methods::Estimator;
+use upshot_methods::Method as Estimator;
 
 /// One benchmark workload on the benchmark table `customers`.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize)]
@@ -16,7 +16,7 @@ pub struct Work {
 }
 
 fn method_key<S: serde::Serializer>(m: &Estimator, s: S) -> Result<S::Ok, S::Error> {
-    s.serialize_str(m.key())
+    s.serialize_str(m.as_str())
 }
 
 /// Every method the benchmark measures, in report order.
@@ -30,7 +30,7 @@ pub const METHODS: [Estimator; 5] = [
 
 /// The method with key `k`.
 pub fn method(k: &str) -> Option<Estimator> {
-    METHODS.into_iter().find(|m| m.key() == k)
+    METHODS.into_iter().find(|m| m.as_str() == k)
 }
 
 /// Zone levels other than the reference (`Northgate`, the most frequent): the one-hot columns.
@@ -90,7 +90,7 @@ impl Work {
         };
         format!(
             "{} p={} {}",
-            self.method.key(),
+            self.method.as_str(),
             p,
             if self.segments { "seg" } else { "all" }
         )

@@ -1,14 +1,13 @@
 //! `upshot check`: identification report per question, as text or JSON.
 
-use crate::exit::{Failure, NOT_IDENTIFIED, OK};
-use serde::Serialize;
+use crate::exit::{emit, Failure, NOT_IDENTIFIED, OK};
+use crate::ENGINES;
 use std::io::Read;
 use std::path::{Path, PathBuf};
-use upshot_graph::report::{
-    self, Declared, Identification, NamedIndependence, NamedMarkovStatement,
-};
-use upshot_graph::{Kind, Role};
-use upshot_study::{Method, Question, QuestionInput, Route, Study};
+use upshot_core::identify::{self, route_word, set, CheckReport};
+use upshot_core::{Access, Study};
+use upshot_graph::Role;
+use upshot_study::QuestionInput;
 
 /// Flags of `upshot check`.
 #[derive(clap::Args)]
@@ -56,61 +55,6 @@ pub struct Args {
     offline: bool,
 }
 
-/// Checks that every observed variable of the diagram is a column of the study's source, when
-/// the source is a CSV file or a table in a DuckDB file. Reads the schema only, no rows.
-fn check_columns(study: &Study) -> Result<(), Failure> {
-    use upshot_engine::{DuckDbEngine, Engine, MEMORY};
-    use upshot_study::SourceKind;
-    let label = study
-        .path
-        .as_ref()
-        .map(|p| p.display().to_string())
-        .unwrap_or_default();
-    let (source, what, location) = match (&study.source.rows, &study.source.database) {
-        (Some(SourceKind::File(p)), db) => {
-            let shown = p.display().to_string();
-            let glob = upshot_sql::is_parquet_pattern(&shown);
-            if !glob && !p.is_file() {
-                return Err(Failure::input(format!("{label}: [source].file: no file {}; fix the path (relative to the study file) or use --offline", p.display())));
-            }
-            (
-                upshot_sql::Source::file(&p.display().to_string()),
-                p.display().to_string(),
-                db.clone().unwrap_or_else(|| MEMORY.into()),
-            )
-        }
-        (Some(SourceKind::Table(t)), Some(db)) => (
-            upshot_sql::Source::table(t)
-                .map_err(|e| Failure::input(format!("{label}: [source].table: {e}")))?,
-            format!("table {t}"),
-            db.clone(),
-        ),
-        (Some(SourceKind::Query(q)), Some(db)) => (
-            upshot_sql::Source::query(q, &upshot_sql::DuckDb)
-                .map_err(|e| Failure::input(format!("{label}: [source].query: {e}")))?,
-            "the source query".to_string(),
-            db.clone(),
-        ),
-        _ => return Ok(()),
-    };
-    let engine = DuckDbEngine::open(&location, false)
-        .map_err(|e| Failure::input(format!("{label}: [source]: {e}")))?;
-    let columns = engine
-        .columns(&source)
-        .map_err(|e| Failure::input(format!("{label}: [source]: cannot read {what}: {e}")))?;
-    let names: Vec<&str> = columns.iter().map(|c| c.name.as_str()).collect();
-    for n in study.diagram.nodes() {
-        if n.role == Role::Observed && n.confounds.is_none() && !names.contains(&n.name.as_str()) {
-            return Err(Failure::input(format!(
-                "{label}: the diagram's observed variable `{}` is not a column of {what}; columns: {}. Rename it, or declare it `latent` if it is not recorded",
-                n.name,
-                names.join(", ")
-            )));
-        }
-    }
-    Ok(())
-}
-
 pub(crate) fn clean(v: Vec<String>) -> Vec<String> {
     v.into_iter()
         .map(|s| s.trim().to_string())
@@ -144,298 +88,6 @@ pub(crate) fn read_graph(value: &str) -> Result<(String, String), Failure> {
     )))
 }
 
-/// The route upshot would use for a question, and the set it would use.
-#[derive(Serialize, Clone, Debug)]
-pub(crate) struct Chosen {
-    pub route: Route,
-    /// Adjustment set, mediators, or instrument.
-    pub set: Vec<String>,
-    /// Conditioning set of an instrument.
-    #[serde(skip_serializing_if = "Vec::is_empty")]
-    pub given: Vec<String>,
-    pub why: String,
-}
-
-#[derive(Serialize)]
-struct QuestionReport {
-    name: String,
-    treatment: Vec<String>,
-    outcome: Vec<String>,
-    estimand: &'static str,
-    method: &'static str,
-    segments: Vec<String>,
-    identified: bool,
-    usable_routes: Vec<Route>,
-    chosen: Option<Chosen>,
-    problems: Vec<String>,
-    assumptions: Vec<String>,
-    identification: Identification,
-}
-
-#[derive(Serialize)]
-struct Variable {
-    name: String,
-    role: Role,
-    kind: Kind,
-}
-
-#[derive(Serialize)]
-struct DiagramSummary {
-    variables: Vec<Variable>,
-    edges: Vec<[String; 2]>,
-    latent_common_causes: Vec<[String; 2]>,
-}
-
-#[derive(Serialize)]
-struct Document {
-    format: &'static str,
-    tool_version: &'static str,
-    study: Option<String>,
-    study_name: String,
-    diagram: DiagramSummary,
-    questions: Vec<QuestionReport>,
-    implied_independences: Vec<NamedIndependence>,
-    local_markov_basis: Option<Vec<NamedMarkovStatement>>,
-    exit_code: i32,
-}
-
-fn usable(id: &Identification) -> Vec<Route> {
-    let mut r = Vec::new();
-    if id.adjustment.exists {
-        r.push(Route::Adjustment);
-    }
-    if !id.front_door.sets.is_empty() {
-        r.push(Route::FrontDoor);
-    }
-    if !id.instrument.found.is_empty() {
-        r.push(Route::Instrument);
-    }
-    r
-}
-
-/// Decides the question's status from the routes and what it declares.
-pub(crate) fn assess(q: &Question, id: &Identification) -> (bool, Option<Chosen>, Vec<String>) {
-    let mut problems = Vec::new();
-    // With `auto`, a declared set says which route the user means.
-    let wanted = q.method.route().or(if q.adjust.is_some() {
-        Some(Route::Adjustment)
-    } else if q.mediators.is_some() {
-        Some(Route::FrontDoor)
-    } else if q.instruments.is_some() {
-        Some(Route::Instrument)
-    } else {
-        None
-    });
-    let adjust = || -> Option<Chosen> {
-        if let Some(dc) = &id.adjustment.declared {
-            if !dc.valid {
-                return None;
-            }
-            return Some(Chosen {
-                route: Route::Adjustment,
-                set: dc.set.clone(),
-                given: vec![],
-                why: "the declared adjustment set is valid".into(),
-            });
-        }
-        if let Some(o) = &id.adjustment.optimal_set {
-            return Some(Chosen {
-                route: Route::Adjustment,
-                set: o.clone(),
-                given: vec![],
-                why: "optimal adjustment set (smallest asymptotic variance among valid sets; Henckel et al. 2022)".into(),
-            });
-        }
-        id.adjustment.minimal_sets.first().map(|s| Chosen {
-            route: Route::Adjustment,
-            set: s.clone(),
-            given: vec![],
-            why: "smallest minimal adjustment set".into(),
-        })
-    };
-    let front = || -> Option<Chosen> {
-        if let Some(dc) = &id.front_door.declared {
-            return dc.valid.then(|| Chosen {
-                route: Route::FrontDoor,
-                set: dc.set.clone(),
-                given: vec![],
-                why: "the declared mediators meet the front-door criterion".into(),
-            });
-        }
-        id.front_door.sets.first().map(|s| Chosen {
-            route: Route::FrontDoor,
-            set: s.clone(),
-            given: vec![],
-            why: "smallest front-door mediator set".into(),
-        })
-    };
-    let instrument = || -> Option<Chosen> {
-        if !id.instrument.declared.is_empty() {
-            return id
-                .instrument
-                .declared
-                .iter()
-                .all(|c| c.valid)
-                .then(|| Chosen {
-                    route: Route::Instrument,
-                    set: id
-                        .instrument
-                        .declared
-                        .iter()
-                        .flat_map(|c| c.set.clone())
-                        .collect(),
-                    given: q.instrument_given.clone(),
-                    why: "the declared instruments are valid".into(),
-                });
-        }
-        id.instrument.found.first().map(|i| Chosen {
-            route: Route::Instrument,
-            set: vec![i.instrument.clone()],
-            given: i.given.clone(),
-            why: "first instrument found".into(),
-        })
-    };
-    for (label, c) in [
-        ("adjustment set", &id.adjustment.declared),
-        ("front-door mediators", &id.front_door.declared),
-    ] {
-        if let Some(c) = c {
-            if !c.valid {
-                problems.push(format!(
-                    "declared {label} {{{}}} does not work: {}",
-                    c.set.join(", "),
-                    c.problems.join("; ")
-                ));
-            }
-        }
-    }
-    for c in &id.instrument.declared {
-        if !c.valid {
-            problems.push(format!(
-                "declared instrument {} does not work: {}",
-                c.set.join(", "),
-                c.problems.join("; ")
-            ));
-        }
-    }
-    if !id.causal_path {
-        return (
-            true,
-            None,
-            vec!["the diagram has no directed path from the treatment to the outcome: the effect is zero by assumption".into()],
-        );
-    }
-    let chosen = match wanted {
-        Some(Route::Adjustment) => adjust(),
-        Some(Route::FrontDoor) => front(),
-        Some(Route::Instrument) => instrument(),
-        None => adjust().or_else(front).or_else(instrument),
-    };
-    if chosen.is_none() {
-        if let Some(r) = wanted {
-            let works = usable(id).contains(&r);
-            if works {
-                let instead = match r {
-                    Route::Adjustment => id
-                        .adjustment
-                        .optimal_set
-                        .clone()
-                        .or_else(|| id.adjustment.minimal_sets.first().cloned())
-                        .map(|s| format!("the adjustment set {}", set(&s))),
-                    Route::FrontDoor => id
-                        .front_door
-                        .sets
-                        .first()
-                        .map(|s| format!("the mediators {}", set(s))),
-                    Route::Instrument => id.instrument.found.first().map(|i| {
-                        let given = if i.given.is_empty() {
-                            String::new()
-                        } else {
-                            format!(" given {}", set(&i.given))
-                        };
-                        format!("the instrument {}{given}", i.instrument)
-                    }),
-                };
-                if let Some(instead) = instead {
-                    problems.push(format!(
-                        "{} works: declare it instead, or drop the declaration",
-                        instead
-                    ));
-                }
-            } else {
-                let why =
-                    match r {
-                        Route::Adjustment => id.adjustment.open_path.as_ref().map(|p| {
-                            format!("the path {p} cannot be blocked by observed variables")
-                        }),
-                        Route::FrontDoor => id.front_door.reason.clone(),
-                        Route::Instrument => id.instrument.reason.clone(),
-                    };
-                let others: Vec<&str> = usable(id)
-                    .into_iter()
-                    .map(|u| match u {
-                        Route::Adjustment => {
-                            "a backdoor method (regress, weight, doubly-robust, ...)"
-                        }
-                        Route::FrontDoor => "--method front-door",
-                        Route::Instrument => "--method iv",
-                    })
-                    .collect();
-                let hint = if others.is_empty() {
-                    String::new()
-                } else {
-                    format!("; routes that do work: use {}", others.join(" or "))
-                };
-                let what = if q.method == Method::Auto {
-                    "the declared set".to_string()
-                } else {
-                    format!("method `{}`", q.method.as_str())
-                };
-                problems.push(format!(
-                    "{what} needs the {} route, which does not identify this effect{}{hint}",
-                    route_word(r),
-                    why.map(|w| format!(": {w}")).unwrap_or_default()
-                ));
-            }
-        }
-    }
-    (chosen.is_some(), chosen, problems)
-}
-
-fn route_word(r: Route) -> &'static str {
-    match r {
-        Route::Adjustment => "adjustment (backdoor)",
-        Route::FrontDoor => "front-door",
-        Route::Instrument => "instrument",
-    }
-}
-
-pub(crate) fn assumptions(c: &Option<Chosen>, method: Method) -> Vec<String> {
-    let mut a = vec![
-        "the diagram is complete: no unmeasured common cause beyond the latent variables it declares".to_string(),
-        "consistency and no interference: each unit's outcome depends only on its own treatment, which is well defined".to_string(),
-    ];
-    match c.as_ref().map(|c| c.route) {
-        Some(Route::Adjustment) => a.push(
-            "positivity: within every stratum of the adjustment set both treated and untreated units occur (checked on the data when estimating)".into(),
-        ),
-        Some(Route::FrontDoor) => {
-            a.push("the mediators carry the whole effect, and mediator and outcome share no unmeasured cause".into());
-            a.push("positivity: every mediator value occurs under each treatment value".into());
-        }
-        Some(Route::Instrument) => {
-            a.push("exclusion: the instrument reaches the outcome only through the treatment; it shares no unmeasured cause with the outcome".into());
-            a.push("relevance is tested on the data (first-stage F; below 10 is weak, common practice after Staiger & Stock 1997)".into());
-            a.push("a point estimate needs a constant effect, or monotonicity, in which case it is the effect among compliers (LATE), not the ATE".into());
-        }
-        None => {}
-    }
-    if !matches!(method, Method::Stratify | Method::Coarsen) {
-        a.push("estimators that fit models (outcome or propensity) assume those models are correctly specified".into());
-    }
-    a
-}
-
 /// Loads a study file, or builds one from --graph and the question flags; flags override.
 pub(crate) fn load_study(
     study: Option<&Path>,
@@ -460,6 +112,7 @@ pub(crate) fn load_study(
     })
 }
 
+/// `upshot check`.
 pub fn run(a: Args) -> Result<i32, Failure> {
     let json = match a.format.as_str() {
         "text" => false,
@@ -482,96 +135,25 @@ pub fn run(a: Args) -> Result<i32, Failure> {
         instrument_given: clean(a.instrument_given),
     };
     let study = load_study(a.study.as_deref(), a.graph.as_deref(), overrides, "check")?;
-    if !a.offline {
-        check_columns(&study)?;
+    if !a.offline && upshot_core::has_columns_to_check(&study) {
+        let rows = upshot_core::source_of(&study, &upshot_sql::DuckDb)
+            .map_err(|e| Failure::input(format!("{e}; or use --offline")))?;
+        let engine = upshot_core::connect(ENGINES, &rows.database, Access::ReadOnly)
+            .map_err(|e| Failure::input(format!("[source]: {e}")))?;
+        upshot_core::check_columns(&study, engine.as_ref())?;
     }
-    let mut questions: Vec<&Question> = study.questions.iter().collect();
-    if let Some(name) = &a.question {
-        questions.retain(|q| &q.name == name);
-        if questions.is_empty() {
-            let names: Vec<&str> = study.questions.iter().map(|q| q.name.as_str()).collect();
-            return Err(Failure::input(format!(
-                "--question: no question `{name}`; the study has: {}",
-                names.join(", ")
-            )));
-        }
-    }
-    let d = &study.diagram;
-    let mut reports = Vec::new();
-    for q in questions {
-        let declared = Declared {
-            adjust: q.adjust.clone(),
-            mediators: q.mediators.clone(),
-            instruments: q.instruments.clone(),
-            instrument_given: q.instrument_given.clone(),
-        };
-        let id = report::identify(d, &q.treatment, &q.outcome, &declared);
-        let (identified, chosen, problems) = assess(q, &id);
-        reports.push(QuestionReport {
-            name: q.name.clone(),
-            treatment: q.treatment.clone(),
-            outcome: q.outcome.clone(),
-            estimand: q.estimand.as_str(),
-            method: q.method.as_str(),
-            segments: q.segments.clone(),
-            identified,
-            usable_routes: usable(&id),
-            assumptions: assumptions(&chosen, q.method),
-            chosen,
-            problems,
-            identification: id,
-        });
-    }
-    let code = if reports.iter().all(|r| r.identified) {
-        OK
-    } else {
-        NOT_IDENTIFIED
-    };
-    let (edges, pairs) = d.declared_edges();
-    let doc = Document {
-        format: "upshot-check/1",
-        tool_version: env!("CARGO_PKG_VERSION"),
-        study: study.path.as_ref().map(|p| p.display().to_string()),
-        study_name: study.name.clone(),
-        diagram: DiagramSummary {
-            variables: d
-                .nodes()
-                .iter()
-                .filter(|n| n.confounds.is_none())
-                .map(|n| Variable {
-                    name: n.name.clone(),
-                    role: n.role,
-                    kind: n.kind,
-                })
-                .collect(),
-            edges: edges
-                .iter()
-                .map(|&(x, y)| [d.name(x).to_string(), d.name(y).to_string()])
-                .collect(),
-            latent_common_causes: pairs
-                .iter()
-                .map(|&(x, y)| [d.name(x).to_string(), d.name(y).to_string()])
-                .collect(),
-        },
-        implied_independences: report::implied(d),
-        local_markov_basis: report::markov_basis(d),
-        questions: reports,
-        exit_code: code,
-    };
+    let doc = identify::check(&study, a.question.as_deref())?;
+    let code = if doc.exit_code == 0 { OK } else { NOT_IDENTIFIED };
     let out = if json {
         serde_json::to_string_pretty(&doc).map_err(|e| Failure::internal(e.to_string()))? + "\n"
     } else {
         render(&doc)
     };
-    print!("{out}");
+    emit(&out)?;
     Ok(code)
 }
 
-fn set(s: &[String]) -> String {
-    format!("{{{}}}", s.join(", "))
-}
-
-fn render(doc: &Document) -> String {
+fn render(doc: &CheckReport) -> String {
     use std::fmt::Write;
     let mut o = String::new();
     let latent = doc

@@ -68,15 +68,15 @@ pub fn run(a: Args) -> Result<i32, Failure> {
             Failure::internal(format!("cannot write {}: {e}", truth_path.display()))
         })?;
         let s = &truth.outcomes["spend_30d"];
-        println!(
-            "wrote {} ({} rows, {} with a voucher) and {}: true ATE on spend_30d {:.3}, naive difference {:.3}",
+        crate::exit::emit(&format!(
+            "wrote {} ({} rows, {} with a voucher) and {}: true ATE on spend_30d {:.3}, naive difference {:.3}\n",
             csv.display(),
             truth.rows,
             truth.treated,
             truth_path.display(),
             s.ate,
             s.naive_difference
-        );
+        ))?;
     }
     Ok(OK)
 }

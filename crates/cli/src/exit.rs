@@ -1,6 +1,9 @@
 //! Exit codes (also in README.md):
-//! 0 success (for `check`: every question identified), 1 internal or I/O failure,
-//! 2 invalid input (flags, study file, diagram), 3 not identified (`check`).
+//! 0 success (for `check`: every question identified), 1 internal or I/O failure (a failed
+//! query, output that could not be written), 2 invalid input (flags, study file, diagram,
+//! source, data), 3 not identified.
+
+use std::io::Write as _;
 
 /// Success.
 pub const OK: i32 = 0;
@@ -41,4 +44,28 @@ impl From<upshot_study::StudyError> for Failure {
     fn from(e: upshot_study::StudyError) -> Self {
         Failure::input(e.to_string())
     }
+}
+
+impl From<upshot_core::CoreError> for Failure {
+    fn from(e: upshot_core::CoreError) -> Self {
+        use upshot_core::CoreError as E;
+        match e {
+            E::Input(m) => Failure::input(m),
+            E::NotIdentified(m) => Failure {
+                code: NOT_IDENTIFIED,
+                message: m,
+            },
+            E::Engine(m) => Failure::internal(m),
+        }
+    }
+}
+
+/// Writes `text` to standard output and flushes it. A closed or full output (`| head -c0`,
+/// `> /dev/full`) is a failure with exit code 1, never a panic; callers write nothing else
+/// (no results table) after it fails.
+pub fn emit(text: &str) -> Result<(), Failure> {
+    let mut out = std::io::stdout().lock();
+    out.write_all(text.as_bytes())
+        .and_then(|()| out.flush())
+        .map_err(|e| Failure::internal(format!("cannot write the output: {e}")))
 }

@@ -1,14 +1,19 @@
-//! `upshot`: causal effects computed inside the database. This binary is a thin layer over the
-//! library crates: it parses flags, loads studies, calls the libraries and prints results.
+//! `upshot`: causal effects computed inside the database. This binary binds flags and renders
+//! results; every step in between — identification, route and method choice, source
+//! resolution, plans, runs, the results table — is the core library's (`upshot-core`).
 //! Exit codes are documented in README.md and in [`exit`].
 
 mod check;
 mod demo;
 mod estimate;
 mod exit;
+mod render;
 
 use clap::{Parser, Subcommand};
 use exit::Failure;
+
+/// The engines this binary links: the one place an engine is registered with the CLI.
+pub(crate) static ENGINES: &[&dyn upshot_core::Connector] = &[&upshot_engine_duckdb::DUCKDB];
 
 #[derive(Parser)]
 #[command(name = "upshot", version, about = "Causal effects computed inside the database", long_about = None)]
@@ -40,7 +45,8 @@ fn main() {
     match result {
         Ok(code) => std::process::exit(code),
         Err(f) => {
-            eprintln!("upshot: error: {}", f.message);
+            use std::io::Write as _;
+            let _ = writeln!(std::io::stderr(), "upshot: error: {}", f.message);
             std::process::exit(f.code);
         }
     }

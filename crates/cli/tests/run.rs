@@ -6,7 +6,8 @@
 use serde_json::Value;
 use std::path::{Path, PathBuf};
 use std::process::{Command, Output};
-use upshot_engine::{DuckDbEngine, Engine};
+use upshot_engine::Engine;
+use upshot_engine_duckdb::DuckDbEngine;
 
 fn repo() -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR")).join("../..")
@@ -561,7 +562,7 @@ fn parquet_files_and_patterns_give_the_csv_estimate() {
     let dir = std::env::temp_dir().join(format!("upshot-run-{}-parquet", std::process::id()));
     let _ = std::fs::remove_dir_all(&dir);
     std::fs::create_dir_all(dir.join("parts")).unwrap();
-    let e = DuckDbEngine::open(upshot_engine::MEMORY, true).unwrap();
+    let e = DuckDbEngine::open(upshot_engine_duckdb::MEMORY, true).unwrap();
     let csv = repo().join(SAMPLE);
     let one = dir.join("customers.parquet");
     e.execute_batch(&format!(
@@ -712,4 +713,169 @@ fn into_appends_atomically_and_a_run_key_replaces() {
     assert_eq!(o.status.code(), Some(2), "{}", text(&o));
     let e = DuckDbEngine::open(db, false).unwrap();
     assert!(e.query_number("SELECT COUNT(*) FROM never").is_err());
+}
+
+#[test]
+fn plan_and_run_without_a_unit_key_fit_on_all_rows_and_say_so() {
+    // Formerly a panic (exit 101): doubly-robust and partial-out without --unit.
+    for method in ["doubly-robust", "partial-out", "auto"] {
+        let args = [
+            "--graph",
+            GRAPH,
+            "--source",
+            SAMPLE,
+            "--treatment",
+            "voucher",
+            "--outcome",
+            "spend_30d",
+            "--method",
+            method,
+        ];
+        let mut p = vec!["plan"];
+        p.extend(args);
+        let out = upshot(&p);
+        assert_eq!(out.status.code(), Some(0), "{method}: {}", text(&out));
+        let s = String::from_utf8_lossy(&out.stdout);
+        assert!(!s.contains("logistic-scores"), "{method}: cross-fitted without a unit: {s}");
+        let mut r = vec!["run"];
+        r.extend(args);
+        let out = upshot(&r);
+        assert_eq!(out.status.code(), Some(0), "{method}: {}", text(&out));
+        let s = String::from_utf8_lossy(&out.stdout);
+        assert!(s.contains("note: no unit key was named"), "{method}: {s}");
+    }
+}
+
+#[test]
+fn filters_are_row_predicates_and_sources_read_only() {
+    let db = scratch("hostile");
+    let db = db.to_str().unwrap();
+    let g = "prior_orders, zone -> voucher; prior_orders, zone, voucher -> spend_30d";
+    let base = |extra: &[&str]| {
+        let mut a = vec![
+            "run",
+            "--db",
+            db,
+            "--graph",
+            g,
+            "--treatment",
+            "voucher",
+            "--outcome",
+            "spend_30d",
+            "--method",
+            "regress",
+        ];
+        a.extend(extra);
+        a.iter().map(|s| s.to_string()).collect::<Vec<_>>()
+    };
+    let go = |a: Vec<String>, needles: &[&str]| {
+        let refs: Vec<&str> = a.iter().map(|s| s.as_str()).collect();
+        fails(&refs, 2, needles);
+    };
+    // A subquery in a filter read a file's contents; now it is refused by name.
+    go(
+        base(&[
+            "--source",
+            "customers",
+            "--filter",
+            "prior_orders < (SELECT count(*) FROM read_text('/etc/hostname'))",
+        ]),
+        &["--filter", "subquery", "read_text"],
+    );
+    go(
+        base(&["--source", "customers", "--filter", "getenv('HOME') <> ''"]),
+        &["getenv"],
+    );
+    // Data-modifying statements anywhere in a source query are refused before any query runs.
+    for q in [
+        "WITH gone AS (DELETE FROM customers RETURNING *) SELECT * FROM gone",
+        "WITH a AS (SELECT * FROM customers), b AS (UPDATE customers SET voucher = 0 RETURNING *) SELECT * FROM a",
+    ] {
+        let a = base(&["--source", q]);
+        let refs: Vec<&str> = a.iter().map(|s| s.as_str()).collect();
+        let out = upshot(&refs);
+        assert_eq!(out.status.code(), Some(2), "{q}: {}", text(&out));
+        assert!(out.stdout.is_empty());
+    }
+    let e = DuckDbEngine::open(db, false).unwrap();
+    assert_eq!(
+        e.query_number("SELECT COUNT(*) FROM customers WHERE voucher = 1").unwrap(),
+        e.query_number("SELECT SUM(voucher) FROM customers").unwrap()
+    );
+    assert_eq!(e.query_number("SELECT COUNT(*) FROM customers").unwrap(), 5000.0);
+}
+
+#[test]
+fn a_closed_or_full_output_is_exit_1_and_writes_nothing() {
+    let db = scratch("closed");
+    let db = db.to_str().unwrap();
+    let args = [
+        "run",
+        "demo-data/voucher-backdoor.toml",
+        "--db",
+        db,
+        "--source",
+        SAMPLE,
+        "--question",
+        "spend",
+        "--method",
+        "regress",
+        "--into",
+        "effects",
+    ];
+    // A full device: every write fails.
+    let full = std::fs::OpenOptions::new().write(true).open("/dev/full").unwrap();
+    let out = Command::new(env!("CARGO_BIN_EXE_upshot"))
+        .args(args)
+        .current_dir(repo())
+        .stdout(full)
+        .output()
+        .unwrap();
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(1), "{err}");
+    assert!(err.contains("cannot write the output"), "{err}");
+    assert!(!err.contains("panicked"), "{err}");
+    let e = DuckDbEngine::open(db, false).unwrap();
+    assert!(e.query_number("SELECT COUNT(*) FROM effects").is_err(), "nothing written");
+    drop(e);
+    // A closed pipe (`| head -c0`): no panic, whether or not the reader left first.
+    for verb in ["run", "check"] {
+        let script = format!(
+            "set -o pipefail; \"$0\" {verb} demo-data/voucher-backdoor.toml | head -c0; echo \"status ${{PIPESTATUS[0]}}\"",
+        );
+        let out = Command::new("bash")
+            .args(["-c", &script, env!("CARGO_BIN_EXE_upshot")])
+            .current_dir(repo())
+            .output()
+            .unwrap();
+        let all = text(&out);
+        assert!(!all.contains("panicked"), "{verb}: {all}");
+        assert!(
+            all.contains("status 0") || all.contains("status 1"),
+            "{verb}: {all}"
+        );
+    }
+}
+
+#[test]
+fn the_one_binary_treatment_rule() {
+    // regress fits one model per arm: a declared non-binary treatment is refused at the study,
+    // as for every adjustment method that compares arms.
+    fails(
+        &[
+            "run",
+            "--graph",
+            "t: continuous; x -> t -> spend_30d; x -> spend_30d",
+            "--source",
+            SAMPLE,
+            "--treatment",
+            "t",
+            "--outcome",
+            "spend_30d",
+            "--method",
+            "regress",
+        ],
+        2,
+        &["binary", "partial-out"],
+    );
 }

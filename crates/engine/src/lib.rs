@@ -1,23 +1,23 @@
-//! Engines that run upshot's passes where the data lives.
+//! The seam between upshot and the databases it runs in, with no database client of its own.
 //!
-//! The primary trait is [`Engine`]: run one pass and return its small result as
-//! [`Aggregates`], and report a source's columns. [`DuckDbEngine`] is the embedded default
-//! (a DuckDB file, or `duckdb::memory:`), which can also read CSV and Parquet files as a source;
-//! it opens databases through `upshot-duckdb-ext`, so upshot's `upshot_moments` aggregate is
-//! registered for the passes rendered in the `duckdb` dialect.
+//! The primary trait is [`Engine`]: report a source's columns, run one pass and return its
+//! small result as [`Aggregates`], write upshot's results table in one transaction, and say
+//! what the database offers ([`Capabilities`]: upshot's own functions, reading files). A
+//! [`Connector`] opens an engine from a locator (a DuckDB file or `duckdb::memory:` today;
+//! `postgresql://…` and `sc://…` later); the binary lists the connectors it links, and
+//! [`connect`] picks the one that accepts a locator.
 //!
-//! Key design decision: an engine receives a built [`upshot_sql::Pass`] and renders it with its
-//! own dialect; it never builds SQL from strings, and results are converted from Arrow into a
-//! tiny row table at once, because a pass returns a handful of rows (one per group).
+//! Key design decision: this crate depends on no database client, so that every surface —
+//! the CLI, and a DuckDB loadable extension that must not pull in a second, bundled DuckDB
+//! (cargo unifies features) — can use the core library. Each engine is a crate of its own
+//! (`upshot-engine-duckdb`). An engine receives a built [`Pass`] (an AST, built for the
+//! engine's [`Flavor`]) and renders it; it never builds SQL from strings.
 //!
-//! This crate does I/O (it talks to databases); it knows nothing of diagrams or estimators.
+//! This crate does no I/O itself; it knows nothing of diagrams or estimators.
 #![deny(missing_docs)]
 
-mod duck;
-
-pub use duck::{DuckDbEngine, MEMORY};
 pub use upshot_sql::{Aggregates, Cell};
-use upshot_sql::{Dialect, Pass, Source};
+use upshot_sql::{Dialect, Flavor, Functions, Pass, Source};
 
 /// An error from the database, with the pass that failed.
 #[derive(Debug, thiserror::Error)]
@@ -25,10 +25,18 @@ pub enum EngineError {
     /// The database could not be opened.
     #[error("cannot open {location}: {message}")]
     Open {
-        /// What was opened.
+        /// What was opened (never with a password).
         location: String,
         /// The database's message.
         message: String,
+    },
+    /// No connector accepts the locator.
+    #[error("no engine opens `{location}`; {expected}")]
+    Unknown {
+        /// The locator.
+        location: String,
+        /// What locators the linked engines accept.
+        expected: String,
     },
     /// A query failed.
     #[error("the {pass} pass failed in the database: {message}")]
@@ -70,18 +78,96 @@ pub enum Param {
 /// One statement of upshot's own and the rows of parameters it runs with.
 #[derive(Clone, Debug, PartialEq)]
 pub struct Write {
-    /// The statement, with numbered parameters.
+    /// The statement, with numbered parameters in the dialect's style.
     pub sql: String,
     /// One execution per row.
     pub rows: Vec<Vec<Param>>,
 }
 
-/// Runs passes.
+/// What the connected database offers beyond its dialect.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct Capabilities {
+    /// upshot's own functions, where registered (DuckDB databases upshot opens).
+    pub functions: Functions,
+    /// Whether file sources (CSV, Parquet) can be read.
+    pub reads_files: bool,
+    /// Whether written rows outlive the process (false for an in-memory database).
+    pub durable: bool,
+}
+
+/// How an engine is opened.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Access {
+    /// Estimation only: nothing is written.
+    ReadOnly,
+    /// `--into`: the results table is written (in one transaction).
+    ReadWrite,
+}
+
+/// A database upshot runs passes in.
 pub trait Engine {
-    /// The dialect passes are rendered in.
+    /// The SQL dialect passes are rendered in.
     fn dialect(&self) -> &'static dyn Dialect;
-    /// Runs one pass.
+    /// What the database offers.
+    fn capabilities(&self) -> Capabilities;
+    /// What passes are built for: the dialect and the functions present.
+    fn flavor(&self) -> Flavor {
+        Flavor {
+            dialect: self.dialect(),
+            functions: self.capabilities().functions,
+        }
+    }
+    /// Runs one pass and returns its few rows.
     fn run(&self, pass: &Pass) -> Result<Aggregates, EngineError>;
     /// The columns of a source (reads no rows).
     fn columns(&self, source: &Source) -> Result<Vec<Column>, EngineError>;
+    /// Runs statements of upshot's own in one transaction: each statement once per row of
+    /// parameters (once without parameters when it has no rows). Either every statement takes
+    /// effect or none does.
+    fn write(&self, statements: &[Write]) -> Result<(), EngineError>;
+}
+
+/// Opens engines of one kind from locators.
+pub trait Connector: Sync {
+    /// The engine's name (`duckdb`).
+    fn name(&self) -> &'static str;
+    /// The locators it opens, for messages (`a DuckDB file or duckdb::memory:`).
+    fn locators(&self) -> &'static str;
+    /// Whether it opens `locator`.
+    fn accepts(&self, locator: &str) -> bool;
+    /// The SQL dialect of the engines it opens (user SQL is parsed with it before connecting).
+    fn dialect(&self) -> &'static dyn Dialect;
+    /// Opens `locator`.
+    fn connect(&self, locator: &str, access: Access) -> Result<Box<dyn Engine>, EngineError>;
+}
+
+/// The first of `connectors` that accepts `locator`.
+pub fn connector<'a>(
+    connectors: &[&'a dyn Connector],
+    locator: &str,
+) -> Result<&'a dyn Connector, EngineError> {
+    connectors
+        .iter()
+        .copied()
+        .find(|c| c.accepts(locator))
+        .ok_or_else(|| EngineError::Unknown {
+            location: locator.to_string(),
+            expected: format!(
+                "expected {}",
+                connectors
+                    .iter()
+                    .map(|c| c.locators())
+                    .collect::<Vec<_>>()
+                    .join(", or ")
+            ),
+        })
+}
+
+/// Opens `locator` with the first of `connectors` that accepts it.
+pub fn connect(
+    connectors: &[&dyn Connector],
+    locator: &str,
+    access: Access,
+) -> Result<Box<dyn Engine>, EngineError> {
+    connector(connectors, locator)?.connect(locator, access)
 }

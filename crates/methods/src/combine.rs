@@ -81,3 +81,37 @@ pub(crate) fn target_size(target: Estimand, n: f64, n1: f64) -> f64 {
         Estimand::Atc => n - n1,
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::prepare::placeholder;
+    use crate::tests::spec;
+    use crate::Method;
+
+    /// The `all` row: target-size weighted mean, variance `Σ w² V + Σ w (τ_s − τ)² / N`,
+    /// checked against the formula worked by hand.
+    #[test]
+    fn segments_combine_into_the_all_row() {
+        let sp = spec(Method::Regress);
+        let s = placeholder(&sp).unwrap();
+        let part = |tau: f64, se: f64, n: f64| {
+            let mut e = Estimate::new(&sp, &Segment { values: vec![] }, tau, se);
+            e.n_used = n;
+            e.n_treated = Some(n / 2.0);
+            e.n_control = Some(n / 2.0);
+            Part {
+                estimate: e,
+                target_size: n,
+            }
+        };
+        let all = overall(&s, &[part(2.0, 0.5, 100.0), part(5.0, 1.0, 300.0)]);
+        // w = 1/4, 3/4; τ = 0.5 + 3.75 = 4.25.
+        assert!((all.estimate - 4.25).abs() < 1e-15);
+        let var = 0.0625 * 0.25 + 0.5625 * 1.0 + (0.25 * 2.25f64.powi(2) + 0.75 * 0.75f64.powi(2)) / 400.0;
+        assert!((all.std_error - var.sqrt()).abs() < 1e-15, "{}", all.std_error);
+        assert_eq!(all.n_used, 400.0);
+        assert_eq!(all.n_treated, Some(200.0));
+        assert!((all.ci_high - all.estimate - crate::Z_975 * all.std_error).abs() < 1e-14);
+    }
+}

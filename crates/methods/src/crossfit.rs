@@ -3,11 +3,10 @@
 //! fold k, so cross-fitting costs no extra scan.
 
 use crate::prepare::{needs_folds, Setup};
-use crate::propensity::placeholder_segments;
 use crate::read::{by_segment, keys, logit_sums, moments};
 use crate::MethodError;
 use upshot_fit::{LogitSums, Moments};
-use upshot_sql::{Aggregates, Design, Fold, Key, KeyValue, Model, Models, Selector};
+use upshot_sql::{Aggregates, Design, Fold, Key, KeyValue};
 
 /// Folds actually used (1 when cross-fitting is off).
 pub(crate) fn folds(s: &Setup) -> u32 {
@@ -68,43 +67,6 @@ pub(crate) fn row_design(s: &Setup) -> Design {
         extras: vec![("t", spec.treatment.clone()), ("y", spec.outcome.clone())],
         fold: fold(s),
     }
-}
-
-/// Models chosen by segment and (when cross-fitting) the row's fold; `coef[i][j]` belongs to
-/// segment `i` and held-out fold `j`.
-pub(crate) fn fold_models(s: &Setup, segs: &[Vec<KeyValue>], coef: &[Vec<Vec<f64>>]) -> Models {
-    let nseg = s.spec.segments.len();
-    let crossfit = needs_folds(s.spec);
-    let mut models = Vec::new();
-    for (seg, per_fold) in segs.iter().zip(coef) {
-        for (j, c) in per_fold.iter().enumerate() {
-            let mut key = seg.clone();
-            if crossfit {
-                key.push(KeyValue::Number(j as f64));
-            }
-            models.push(Model {
-                key,
-                coef: c.clone(),
-            });
-        }
-    }
-    if nseg == 0 && !crossfit {
-        return Models::single(models.remove(0).coef);
-    }
-    Models {
-        selector: Selector {
-            keys: (0..nseg).collect(),
-            fold: crossfit,
-        },
-        models,
-    }
-}
-
-pub(crate) fn placeholder(s: &Setup) -> (Vec<Vec<KeyValue>>, Vec<Vec<Vec<f64>>>) {
-    let segs = placeholder_segments(s);
-    let k = folds(s) as usize;
-    let coef = vec![vec![vec![0.0; s.terms.len() + 1]; k]; segs.len()];
-    (segs, coef)
 }
 
 /// The rows of a fold-grouped pass that belong to segment `seg`, with their fold.

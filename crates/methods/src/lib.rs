@@ -12,8 +12,8 @@
 //! its unit tests; [`ESTIMATORS`] is the one registration point. Shared machinery has modules of
 //! its own, used by name: `prepare` (profile and levels passes, input checks, design terms),
 //! `outcome` (per-arm linear outcome models), `propensity` (logistic propensity fits, and the
-//! fits that leave one fold out), `crossfit` (folds, fold-selected models, "all but fold k"
-//! sums), `read` (typed reading of pass results), `combine` (segments into the `all` row).
+//! fits that leave one fold out), `models` (per-group models: by segment, by segment and
+//! fold), `crossfit` (folds, "all but fold k" sums), `read` (typed reading of pass results), `combine` (segments into the `all` row).
 //!
 //! Key design decision: an estimator is straight-line code over a `Runner` rather than an
 //! explicit state enum; the runner is the only place where a pass leaves the process, so
@@ -24,8 +24,11 @@
 #![deny(missing_docs)]
 
 mod combine;
+#[cfg(test)]
+mod golden;
 mod crossfit;
 mod doubly_robust;
+mod models;
 mod outcome;
 mod partial_out;
 mod plan;
@@ -372,5 +375,83 @@ pub fn auto(treatment_binary: bool, adjust_all_discrete: bool) -> Method {
         (true, true) => Method::Stratify,
         (true, false) => Method::DoublyRobust,
         (false, _) => Method::PartialOut,
+    }
+}
+
+#[cfg(test)]
+pub(crate) mod tests {
+    use super::*;
+
+    /// A spec over a table `t` with treatment `t`, outcome `y` and adjustment `x`.
+    pub(crate) fn spec(method: Method) -> Spec {
+        Spec {
+            flavor: Flavor::duckdb(),
+            question: "q".into(),
+            source: Source::table("t").unwrap(),
+            filter: None,
+            treatment: "t".into(),
+            outcome: "y".into(),
+            adjust: vec!["x".into()],
+            segments: vec![],
+            estimand: Estimand::Ate,
+            method,
+            folds: 5,
+            unit: None,
+            on_null: NullPolicy::Exclude,
+            clip: 0.01,
+            categorical: vec![],
+            basis: Basis::default(),
+            columns: None,
+        }
+    }
+
+    #[test]
+    fn unchecked_values_are_refused_for_plan_and_run_alike() {
+        for (folds, clip) in [(0, 0.01), (21, 0.01), (5, 0.5), (5, -0.1), (5, f64::NAN)] {
+            let mut s = spec(Method::DoublyRobust);
+            s.folds = folds;
+            s.clip = clip;
+            assert!(matches!(s.check(), Err(MethodError::Input(_))), "{folds} {clip}");
+            assert!(plan(&s).is_err(), "{folds} {clip}");
+            let mut never = |_: &Pass| -> Result<Aggregates, String> { panic!("no pass may run") };
+            assert!(estimate(&s, &mut never).is_err(), "{folds} {clip}");
+        }
+        let mut auto = spec(Method::Auto);
+        auto.folds = 5;
+        assert!(auto.check().is_err());
+        assert!(plan(&spec(Method::Iv)).is_err());
+    }
+
+    #[test]
+    fn without_a_unit_key_nothing_is_cross_fitted_and_the_plan_says_one_fit() {
+        let s = spec(Method::DoublyRobust);
+        assert!(!s.cross_fits());
+        let passes = plan(&s).unwrap();
+        // profile, Gram, one propensity Newton step (repeated), augmented scores.
+        let names: Vec<&str> = passes.iter().map(|p| p.name.as_str()).collect();
+        assert_eq!(names, ["profile", "gram", "logistic-step", "scores"]);
+        let mut with_unit = spec(Method::DoublyRobust);
+        with_unit.unit = Some("id".into());
+        assert!(with_unit.cross_fits());
+        assert!(prepare::no_unit_note(&s).unwrap().contains("--unit"));
+        assert!(prepare::no_unit_note(&with_unit).is_none());
+    }
+
+    #[test]
+    fn the_auto_rule() {
+        assert_eq!(auto(true, true), Method::Stratify);
+        assert_eq!(auto(true, false), Method::DoublyRobust);
+        assert_eq!(auto(false, true), Method::PartialOut);
+        assert_eq!(auto(false, false), Method::PartialOut);
+        assert_eq!(
+            available(),
+            [
+                Method::Stratify,
+                Method::Regress,
+                Method::Weight,
+                Method::DoublyRobust,
+                Method::PartialOut
+            ]
+        );
     }
 }

@@ -3,15 +3,14 @@
 //! passes (the current coefficients inlined as literals), and — for cross-fitting — the fits
 //! that each leave one fold out.
 
-use crate::crossfit::{fold_models, fold_sum, folds, row_design, rows_by_fold};
+use crate::crossfit::{fold_sum, folds, row_design, rows_by_fold};
+use crate::models::{fold_models, per_segment};
 use crate::prepare::{needs_folds, Setup};
 use crate::read::{by_segment, logit_sums, row_of};
 use crate::combine::segment_label;
 use crate::{ask, MethodError, Runner};
 use upshot_fit::{logit_many, FitError, Logit, LogitSums, NewtonOptions};
-use upshot_sql::{
-    logistic_fits, Aggregates, Design, Key, KeyValue, Model, Models, Pass, Selector, Variants,
-};
+use upshot_sql::{logistic_fits, Aggregates, Design, Key, KeyValue, Models, Pass, Variants};
 
 pub(crate) fn design(s: &Setup, fold: bool) -> Design {
     let spec = s.spec;
@@ -38,37 +37,6 @@ pub(crate) fn param_names(s: &Setup) -> Vec<String> {
     let mut names = vec!["(intercept)".to_string()];
     names.extend(s.term_names.iter().cloned());
     names
-}
-
-/// Models keyed by segment values.
-pub(crate) fn per_segment(segs: &[Vec<KeyValue>], coefs: &[Vec<f64>]) -> Models {
-    let nseg = segs.first().map_or(0, |k| k.len());
-    if nseg == 0 {
-        return Models::single(coefs[0].clone());
-    }
-    Models {
-        selector: Selector {
-            keys: (0..nseg).collect(),
-            fold: false,
-        },
-        models: segs
-            .iter()
-            .zip(coefs)
-            .map(|(k, c)| Model {
-                key: k.clone(),
-                coef: c.clone(),
-            })
-            .collect(),
-    }
-}
-
-pub(crate) fn placeholder_segments(s: &Setup) -> Vec<Vec<KeyValue>> {
-    vec![s
-        .spec
-        .segments
-        .iter()
-        .map(|_| KeyValue::Text("<each segment>".into()))
-        .collect()]
 }
 
 pub(crate) fn logistic_pass(s: &Setup, models: &Models) -> Result<Pass, MethodError> {

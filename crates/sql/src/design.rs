@@ -9,10 +9,27 @@
 
 use crate::dialect::Flavor;
 use crate::error::SqlError;
-use crate::passes::Pass;
 use crate::source::Source;
 use crate::template::{self, Bind};
-use sqlparser::ast::Expr;
+use sqlparser::ast::{Expr, Query};
+
+/// One aggregate query of a plan.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Pass {
+    /// Short name (`profile`, `cells`, `gram`).
+    pub name: String,
+    /// What it computes, for `upshot plan`.
+    pub purpose: String,
+    /// The query.
+    pub query: Query,
+}
+
+impl Pass {
+    /// The query as SQL text, laid out on several lines.
+    pub fn sql(&self) -> String {
+        format!("{:#}", self.query)
+    }
+}
 
 /// The SQL text of a pass under construction, with its placeholders' bindings.
 pub struct PassText {

@@ -32,8 +32,8 @@ mod template;
 
 pub use aggregates::{Aggregates, Cell, ResultError};
 pub use design::{
-    fold_of, Design, DesignTerm, Fold, Key, KeyValue, Model, Models, Out, PassText, Selector,
-    FOLD_PRIME,
+    fold_of, Design, DesignTerm, Fold, Key, KeyValue, Model, Models, Out, Pass, PassText,
+    Selector, FOLD_PRIME,
 };
 pub use dialect::{
     dialect_by_name, Dialect, DuckDb, FileKind, Flavor, Functions, Postgres, DIALECTS,
@@ -42,8 +42,7 @@ pub use dialect::{
 pub use error::SqlError;
 pub use filter::FUNCTIONS as FILTER_FUNCTIONS;
 pub use passes::{
-    cells, gram, levels, logistic_fits, profile, residuals, schema_probe, Pass, ProfileColumn,
-    Variants,
+    cells, gram, levels, logistic_fits, profile, residuals, schema_probe, ProfileColumn, Variants,
 };
 pub use results_table::{results_schema_file, results_sql, ResultsSql, RESULT_COLUMNS};
 pub use source::{complete_cases, is_parquet, is_parquet_pattern, parse_filter, Source};

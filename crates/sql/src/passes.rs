@@ -4,31 +4,14 @@
 //! `upshot-methods`), built from the same kit ([`crate::design`]).
 
 use crate::design::{
-    factor, not_null, predictor, products_of, Design, KeyValue, Model, Models, Out, PassText,
-    Products, Selector, SIGMOID,
+    factor, not_null, predictor, products_of, Design, KeyValue, Model, Models, Out, Pass,
+    PassText, Products, Selector, SIGMOID,
 };
 use crate::dialect::Flavor;
 use crate::error::SqlError;
 use crate::source::Source;
-use sqlparser::ast::{Expr, Query};
+use sqlparser::ast::Expr;
 
-/// One aggregate query of a plan.
-#[derive(Clone, Debug, PartialEq)]
-pub struct Pass {
-    /// Short name (`profile`, `cells`, `gram`).
-    pub name: String,
-    /// What it computes, for `upshot plan`.
-    pub purpose: String,
-    /// The query.
-    pub query: Query,
-}
-
-impl Pass {
-    /// The query as SQL text, laid out on several lines.
-    pub fn sql(&self) -> String {
-        format!("{:#}", self.query)
-    }
-}
 
 /// A column to profile.
 #[derive(Clone, Debug, PartialEq, Eq)]

@@ -125,11 +125,13 @@ impl Method {
         }
     }
 
-    /// Whether the method needs a binary (0/1) treatment.
+    /// Whether the method needs a binary (0/1) treatment: the one rule, used when a study is
+    /// checked against the diagram's declared kinds and when an estimator checks the data.
     pub fn needs_binary_treatment(self) -> bool {
         matches!(
             self,
             Method::Stratify
+                | Method::Regress
                 | Method::Weight
                 | Method::DoublyRobust
                 | Method::Match
@@ -391,10 +393,20 @@ impl Study {
                 ));
             }
             source.rows = kinds.pop().map(|k| k.2);
+            // A database file is relative to the study file, like every path a study names
+            // (memory and URL locators are left as they are).
             source.database = rs
                 .database
                 .map(|d| nonempty(&lines, "source.database", d))
-                .transpose()?;
+                .transpose()?
+                .map(|d| {
+                    let p = Path::new(&d);
+                    if d.contains("::") || d.contains("://") || p.is_absolute() {
+                        d
+                    } else {
+                        base.join(p).display().to_string()
+                    }
+                });
             source.filter = rs
                 .filter
                 .map(|f| nonempty(&lines, "source.filter", f))
@@ -851,7 +863,7 @@ fn build_question(d: &Diagram, p: QuestionParts) -> Result<Question, StudyError>
             return Err(mat.err(
                 "method",
                 format!(
-                    "method `{}` needs a binary (0/1) treatment, but `{}` is declared {}; use `regress` or `partial-out`",
+                    "method `{}` needs a binary (0/1) treatment, but `{}` is declared {}; use `partial-out` (any numeric treatment)",
                     method.as_str(),
                     tr[0],
                     k.word()

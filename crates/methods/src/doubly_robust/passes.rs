@@ -83,3 +83,31 @@ pub(crate) fn augmented_sums(
     )
 }
 
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::golden::{self, fold_models};
+
+    #[test]
+    fn golden_augmented_pass() {
+        let src = Source::table("customers").unwrap();
+        for (dir, f) in golden::flavors() {
+            let p = augmented_sums(
+                &f,
+                &src,
+                None,
+                &golden::fold_design(),
+                &Nuisances {
+                    propensity: &fold_models(0.0),
+                    treated: &fold_models(50.0),
+                    control: &fold_models(40.0),
+                    target: Estimand::Att,
+                    clip: 0.01,
+                },
+            )
+            .unwrap();
+            golden::check(dir, &f, "augmented", &p);
+        }
+    }
+}

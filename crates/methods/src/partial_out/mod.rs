@@ -10,7 +10,8 @@
 mod passes;
 
 use crate::combine::{segment, segment_label, Part};
-use crate::crossfit::{complement_moments, fold_gram_design, fold_models, folds, placeholder, row_design};
+use crate::crossfit::{complement_moments, fold_gram_design, folds, row_design};
+use crate::models::{fold_models, placeholder};
 use crate::prepare::Setup;
 use crate::read::{keys, row_of};
 use crate::{ask, Estimand, Estimate, MethodError, Outcome, Runner, Segment};
@@ -228,5 +229,34 @@ impl crate::Estimator for PartialOut {
     }
     fn run(&self, s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError> {
         run(s, r)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::Sums;
+
+    /// θ = Σ r_t r_y / Σ r_t² and its influence-function variance, against direct sums over
+    /// residuals (the formula written out per row).
+    #[test]
+    fn theta_and_variance_from_the_score_sums() {
+        let rt = [0.5, -1.25, 2.0, -0.75, 0.1, 1.5];
+        let ry = [1.1, -2.0, 3.9, -1.7, 0.4, 2.6];
+        let sum = |f: &dyn Fn(f64, f64) -> f64| rt.iter().zip(&ry).map(|(a, b)| f(*a, *b)).sum();
+        let s = Sums {
+            n: 6.0,
+            stt: sum(&|a, _| a * a),
+            sty: sum(&|a, b| a * b),
+            s22: sum(&|a, b| a * a * b * b),
+            s31: sum(&|a, b| a * a * a * b),
+            s40: sum(&|a, _| a.powi(4)),
+        };
+        let theta = s.theta();
+        let direct: f64 = sum(&|a, b| a * b) / sum(&|a, _| a * a);
+        assert!((theta - direct).abs() < 1e-15);
+        let meat: f64 = sum(&|a, b| (a * (b - theta * a)).powi(2));
+        let want = meat / s.stt.powi(2);
+        assert!((s.var(theta) - want).abs() < 1e-14 * want, "{} vs {want}", s.var(theta));
+        assert_eq!(s.n, 6.0);
     }
 }

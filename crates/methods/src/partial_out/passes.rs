@@ -44,3 +44,26 @@ pub(crate) fn partial_out_sums(
     )
 }
 
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::golden::{self, fold_models};
+
+    #[test]
+    fn golden_partial_out_pass() {
+        let src = Source::table("customers").unwrap();
+        for (dir, f) in golden::flavors() {
+            let p = partial_out_sums(
+                &f,
+                &src,
+                None,
+                &golden::fold_design(),
+                &fold_models(0.3),
+                &fold_models(60.0),
+            )
+            .unwrap();
+            golden::check(dir, &f, "partial-out", &p);
+        }
+    }
+}

@@ -197,3 +197,37 @@ impl crate::Estimator for Stratify {
         run(s, r)
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::{pooled, Arm};
+
+    /// Cell variances with divisor n − 1; a single-row cell borrows the arm's pooled variance.
+    #[test]
+    fn cell_variances() {
+        let ys = [2.0, 4.0, 9.0];
+        let a = Arm {
+            n: 3.0,
+            sy: ys.iter().sum(),
+            syy: ys.iter().map(|y| y * y).sum(),
+        };
+        assert!((a.mean() - 5.0).abs() < 1e-15);
+        // (9 + 1 + 16) / 2
+        assert!((a.var(99.0) - 13.0).abs() < 1e-12);
+        let single = Arm {
+            n: 1.0,
+            sy: 3.0,
+            syy: 9.0,
+        };
+        assert_eq!(single.var(7.5), 7.5);
+        let b = Arm {
+            n: 2.0,
+            sy: 2.0,
+            syy: 2.0,
+        };
+        // pooled over the cells with ≥ 2 rows: (26 + 0) / (2 + 1)
+        let cells = [[a, a], [b, b], [single, single]];
+        let kept: Vec<&[Arm; 2]> = cells.iter().collect();
+        assert!((pooled(&kept, 1) - 26.0 / 3.0).abs() < 1e-12);
+    }
+}

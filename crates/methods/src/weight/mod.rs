@@ -12,7 +12,8 @@ mod passes;
 
 use crate::combine::{finish, segment, segment_label, target_size, Part};
 use crate::prepare::Setup;
-use crate::propensity::{design, fit_propensity, per_segment, placeholder_segments, logistic_pass};
+use crate::models::{per_segment, placeholder_segments};
+use crate::propensity::{design, fit_propensity, logistic_pass};
 use crate::read::{row_of, upper_matrix, vector};
 use crate::{ask, Estimate, MethodError, Outcome, Runner};
 use nalgebra::DVector;

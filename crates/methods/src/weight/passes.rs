@@ -92,3 +92,29 @@ pub(crate) fn weighting_sums(
     )
 }
 
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::golden;
+
+    #[test]
+    fn golden_weighting_pass() {
+        let src = Source::table("customers").unwrap();
+        let mut design = golden::fold_design();
+        design.fold = None;
+        for (dir, f) in golden::flavors() {
+            let p = weighting_sums(
+                &f,
+                &src,
+                None,
+                &design,
+                &Models::single(vec![0.1, 0.2, 0.3]),
+                Estimand::Ate,
+                0.01,
+            )
+            .unwrap();
+            golden::check(dir, &f, "weights", &p);
+        }
+    }
+}

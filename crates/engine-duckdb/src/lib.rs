@@ -1,6 +1,16 @@
-//! The embedded DuckDB engine.
+//! The embedded DuckDB engine: a DuckDB file or an in-memory database, opened through
+//! `upshot-duckdb-ext` so that upshot's functions (`upshot_moments`, `upshot_linear`) are
+//! registered; CSV and Parquet files read as sources. Results come back as Arrow and are
+//! turned into a tiny row table at once (a pass returns one row per group).
+//!
+//! [`DUCKDB`] is the [`Connector`] the binary links; [`DuckDbEngine::open`] opens one directly
+//! (tests, the benchmark). This crate builds no SQL from strings and knows nothing of diagrams
+//! or estimators; it is the one crate that links the bundled DuckDB build.
+#![deny(missing_docs)]
 
-use crate::{Aggregates, Cell, Column, Engine, EngineError, Param, Write};
+use upshot_engine::{
+    Access, Aggregates, Capabilities, Cell, Column, Connector, Engine, EngineError, Param, Write,
+};
 use duckdb::arrow::array::{Array, AsArray};
 use duckdb::arrow::compute::cast;
 use duckdb::arrow::datatypes::DataType;
@@ -8,12 +18,12 @@ use duckdb::arrow::record_batch::RecordBatch;
 use duckdb::arrow::util::display::{ArrayFormatter, FormatOptions};
 use duckdb::Connection;
 use upshot_duckdb_ext::Database;
-use upshot_sql::{Dialect, DuckDb, Pass, Source};
+use upshot_sql::{Dialect, DuckDb, Functions, Pass, Source};
 
-/// DuckDB, embedded in the process, with upshot's fused moments aggregate registered (so
-/// passes render for [`DuckDb`], which uses it).
+/// DuckDB, embedded in the process, with upshot's functions registered.
 pub struct DuckDbEngine {
     db: Database,
+    memory: bool,
 }
 
 /// The location string of a fresh in-memory database.
@@ -23,11 +33,22 @@ impl DuckDbEngine {
     /// Opens `location`: [`MEMORY`], or a database file (opened read-only unless `write`).
     pub fn open(location: &str, write: bool) -> Result<Self, EngineError> {
         let path = (location != MEMORY).then(|| std::path::Path::new(location));
+        if let Some(p) = path {
+            if !write && !p.is_file() {
+                return Err(EngineError::Open {
+                    location: location.to_string(),
+                    message: "no such database file; check the path (databases are opened read-only unless results are written)".into(),
+                });
+            }
+        }
         let db = Database::open(path, write).map_err(|e| EngineError::Open {
             location: location.to_string(),
             message: e.to_string(),
         })?;
-        Ok(DuckDbEngine { db })
+        Ok(DuckDbEngine {
+            db,
+            memory: path.is_none(),
+        })
     }
 
     fn conn(&self) -> &Connection {
@@ -44,10 +65,7 @@ impl DuckDbEngine {
             })
     }
 
-    /// Runs statements of upshot's own in one transaction: each statement once per row of
-    /// parameters (once without parameters when it has no rows). Either every statement takes
-    /// effect or none does.
-    pub fn write(&self, statements: &[Write]) -> Result<(), EngineError> {
+    fn write_all(&self, statements: &[Write]) -> Result<(), EngineError> {
         let err = |e: duckdb::Error| EngineError::Query {
             pass: "write".into(),
             message: e.to_string(),
@@ -177,6 +195,18 @@ impl Engine for DuckDbEngine {
         &DuckDb
     }
 
+    fn capabilities(&self) -> Capabilities {
+        Capabilities {
+            functions: Functions::UPSHOT_DUCKDB,
+            reads_files: true,
+            durable: !self.memory,
+        }
+    }
+
+    fn write(&self, statements: &[Write]) -> Result<(), EngineError> {
+        self.write_all(statements)
+    }
+
     fn run(&self, pass: &Pass) -> Result<Aggregates, EngineError> {
         let sql = pass.query.to_string();
         let batches = self.query(&pass.name, &sql)?;
@@ -185,7 +215,7 @@ impl Engine for DuckDbEngine {
 
     fn columns(&self, source: &Source) -> Result<Vec<Column>, EngineError> {
         let pass =
-            upshot_sql::schema_probe(self.dialect(), source).map_err(|e| EngineError::Query {
+            upshot_sql::schema_probe(&self.flavor(), source).map_err(|e| EngineError::Query {
                 pass: "schema".into(),
                 message: e.to_string(),
             })?;
@@ -207,5 +237,32 @@ impl Engine for DuckDbEngine {
                 integer: f.data_type().is_integer(),
             })
             .collect())
+    }
+}
+
+/// Opens DuckDB files and in-memory databases (any locator without `://`).
+pub struct DuckDbConnector;
+
+/// The DuckDB connector.
+pub static DUCKDB: DuckDbConnector = DuckDbConnector;
+
+impl Connector for DuckDbConnector {
+    fn name(&self) -> &'static str {
+        "duckdb"
+    }
+    fn locators(&self) -> &'static str {
+        "a DuckDB file or duckdb::memory:"
+    }
+    fn accepts(&self, locator: &str) -> bool {
+        !locator.contains("://")
+    }
+    fn dialect(&self) -> &'static dyn Dialect {
+        &DuckDb
+    }
+    fn connect(&self, locator: &str, access: Access) -> Result<Box<dyn Engine>, EngineError> {
+        Ok(Box::new(DuckDbEngine::open(
+            locator,
+            access == Access::ReadWrite,
+        )?))
     }
 }

@@ -1,8 +1,9 @@
 //! The DuckDB engine on the committed demo sample: passes run in the database and return only
 //! aggregates; results agree with the generator's own figures (demo-data/sample/*.truth.json).
 
-use upshot_engine::{DuckDbEngine, Engine, EngineError, MEMORY};
-use upshot_sql::{cells, gram, parse_filter, profile, DesignTerm, ProfileColumn, Source};
+use upshot_engine::{Engine, EngineError};
+use upshot_engine_duckdb::{DuckDbEngine, MEMORY};
+use upshot_sql::{cells, gram, parse_filter, profile, Design, DesignTerm, ProfileColumn, Source};
 
 fn sample() -> String {
     format!(
@@ -46,7 +47,8 @@ fn schema_of_a_csv_source() {
 #[test]
 fn profile_and_cells_match_the_generator() {
     let e = DuckDbEngine::open(MEMORY, false).unwrap();
-    let d = e.dialect();
+    let f = e.flavor();
+    let d = &f;
     let src = Source::Csv(sample());
     let p = e
         .run(
@@ -99,21 +101,25 @@ fn profile_and_cells_match_the_generator() {
 fn quoted_names_filters_and_groups() {
     let e = DuckDbEngine::open(MEMORY, false).unwrap();
     e.execute_batch("CREATE TABLE \"order lines\" (\"spend 30d\" DOUBLE, \"select\" VARCHAR, g INTEGER); INSERT INTO \"order lines\" VALUES (1, 'a', 0), (2, 'b', 0), (4, 'a', 1), (NULL, 'a', 1)").unwrap();
-    let d = e.dialect();
+    let f = e.flavor();
+    let d = &f;
     let src = Source::table("order lines").unwrap();
-    let f = parse_filter("\"select\" = 'a'", d).unwrap();
+    let filter = parse_filter("\"select\" = 'a'", d.dialect).unwrap();
     let g = e
         .run(
             &gram(
                 d,
                 &src,
-                Some(&f),
-                &["g".into()],
-                &[DesignTerm::Numeric {
-                    column: "spend 30d".into(),
-                    centre: 2.0,
-                    scale: 1.0,
-                }],
+                Some(&filter),
+                &Design::grouped(
+                    &["g".into()],
+                    &[DesignTerm::Numeric {
+                        column: "spend 30d".into(),
+                        centre: 2.0,
+                        scale: 1.0,
+                    }],
+                    &[],
+                ),
             )
             .unwrap(),
         )
@@ -141,7 +147,8 @@ fn quoted_names_filters_and_groups() {
 #[test]
 fn database_errors_name_the_pass() {
     let e = DuckDbEngine::open(MEMORY, false).unwrap();
-    let d = e.dialect();
+    let f = e.flavor();
+    let d = &f;
     let err = e
         .run(
             &profile(
@@ -168,18 +175,17 @@ fn database_errors_name_the_pass() {
     assert!(err.to_string().contains("/no/such/dir/db.duckdb"), "{err}");
 }
 
-/// Every pass with sums of products or inlined models gives the same numbers rendered with
-/// upshot's functions (`duckdb`, what `run` uses: the fused moments aggregate and the
-/// linear-predictor function) and without them (`duckdb-plain`: one `SUM` per product, plain
-/// arithmetic): Gram, logistic steps (single, by fold, cross-fitting), residual moments, the
-/// weighting, augmented and partial-out score passes — grouped by tenure band, on the demo
-/// sample.
+/// Every shared pass with sums of products or inlined models gives the same numbers built
+/// with upshot's functions (what `run` uses on the DuckDB databases it opens: the fused
+/// moments aggregate and the linear-predictor function) and without them (one `SUM` per
+/// product, plain arithmetic): Gram, logistic steps (single, by fold, cross-fitting) and
+/// residual moments, grouped by tenure band, on the demo sample. The estimators' own passes
+/// are compared end to end in crates/methods/tests/duckdb.rs.
 #[test]
 fn fused_moments_equal_plain_sums() {
     use upshot_sql::{
-        augmented_sums, design_gram, design_residuals, logistic_fits, partial_out_sums,
-        weighting_sums, Design, DuckDb, DuckDbPlain, Fold, Key, KeyValue, Model, Models, Nuisances,
-        Selector, Target, Variants,
+        logistic_fits, residuals, DuckDb, Flavor, Fold, Key, KeyValue, Model, Models, Selector,
+        Variants,
     };
     let e = DuckDbEngine::open(MEMORY, false).unwrap();
     let src = Source::Csv(sample());
@@ -223,59 +229,35 @@ fn fused_moments_equal_plain_sums() {
             })
             .collect(),
     };
-    type Build<'a> = dyn Fn(&dyn upshot_sql::Dialect) -> upshot_sql::Pass + 'a;
+    type Build<'a> = dyn Fn(&Flavor) -> upshot_sql::Pass + 'a;
     let passes: Vec<(&str, Box<Build<'_>>)> = vec![
-        (
-            "gram",
-            Box::new(|d| design_gram(d, &src, None, &design).unwrap()),
-        ),
+        ("gram", Box::new(|f| gram(f, &src, None, &design).unwrap())),
         (
             "logistic",
-            Box::new(|d| logistic_fits(d, &src, None, &design, &one, Variants::Single).unwrap()),
+            Box::new(|f| logistic_fits(f, &src, None, &design, &one, Variants::Single).unwrap()),
         ),
         (
             "logistic by fold",
-            Box::new(|d| logistic_fits(d, &src, None, &design, &one, Variants::ByFold).unwrap()),
+            Box::new(|f| logistic_fits(f, &src, None, &design, &one, Variants::ByFold).unwrap()),
         ),
         (
             "logistic cross-fit",
-            Box::new(|d| {
-                logistic_fits(d, &src, None, &design, &by_fold, Variants::Complement(3)).unwrap()
+            Box::new(|f| {
+                logistic_fits(f, &src, None, &design, &by_fold, Variants::Complement(3)).unwrap()
             }),
         ),
         (
             "residuals",
-            Box::new(|d| design_residuals(d, &src, None, &design, &one).unwrap()),
-        ),
-        (
-            "weights",
-            Box::new(|d| weighting_sums(d, &src, None, &design, &one, Target::Ate, 0.01).unwrap()),
-        ),
-        (
-            "augmented scores",
-            Box::new(|d| {
-                let n = Nuisances {
-                    propensity: &by_fold,
-                    treated: &one,
-                    control: &by_fold,
-                    target: Target::Att,
-                    clip: 0.01,
-                };
-                augmented_sums(d, &src, None, &design, &n).unwrap()
-            }),
-        ),
-        (
-            "partial-out scores",
-            Box::new(|d| partial_out_sums(d, &src, None, &design, &by_fold, &one).unwrap()),
+            Box::new(|f| residuals(f, &src, None, &design, &one).unwrap()),
         ),
     ];
     for (what, build) in &passes {
-        let fused = build(&DuckDb);
+        let fused = build(&e.flavor());
         assert!(
             fused.sql().contains("upshot_moments(") || fused.sql().contains("upshot_linear("),
             "{what}"
         );
-        let plain = build(&DuckDbPlain);
+        let plain = build(&Flavor::plain(&DuckDb));
         assert!(!plain.sql().contains("upshot_"), "{what}");
         let a = e.run(&fused).unwrap();
         let b = e.run(&plain).unwrap();

@@ -1,0 +1,207 @@
+//! Rendering of the core library's typed results: `run` as text, JSON or CSV; `plan` as SQL
+//! text or JSON.
+
+use crate::exit::Failure;
+use upshot_core::{Answer, Estimate, QuestionPlan, QuestionSummary, Study};
+
+fn fmt_num(x: f64) -> String {
+    if !x.is_finite() {
+        return "—".into();
+    }
+    let a = x.abs();
+    if a != 0.0 && !(1e-3..1e7).contains(&a) {
+        format!("{x:.4e}")
+    } else {
+        format!("{x:.4}")
+    }
+}
+
+fn count(x: Option<f64>) -> String {
+    x.map_or("—".into(), |v| format!("{v:.0}"))
+}
+
+/// The text report of `run`.
+pub fn run_text(answers: &[Answer]) -> String {
+    let mut o = String::new();
+    for a in answers {
+        let s = &a.summary;
+        o.push_str(&format!(
+            "question {}: {} of {} on {} — method {}, adjusting for {{{}}}\n",
+            s.question,
+            s.estimand.as_str(),
+            s.treatment,
+            s.outcome,
+            s.method.as_str(),
+            s.adjustment_set.join(", ")
+        ));
+        let header = [
+            "segment",
+            "estimate",
+            "std. error",
+            "95% interval",
+            "treated",
+            "control",
+        ];
+        let mut rows: Vec<[String; 6]> = vec![header.map(str::to_string)];
+        for e in &a.estimates {
+            rows.push([
+                e.segment.clone(),
+                fmt_num(e.estimate),
+                fmt_num(e.std_error),
+                format!("[{}, {}]", fmt_num(e.ci_low), fmt_num(e.ci_high)),
+                count(e.n_treated),
+                count(e.n_control),
+            ]);
+        }
+        let mut width = [0usize; 6];
+        for row in &rows {
+            for (w, c) in width.iter_mut().zip(row) {
+                *w = (*w).max(c.chars().count());
+            }
+        }
+        for row in &rows {
+            o.push_str("  ");
+            for (i, (c, w)) in row.iter().zip(width).enumerate() {
+                let pad = w - c.chars().count();
+                if i == 0 {
+                    o.push_str(c);
+                    o.push_str(&" ".repeat(pad));
+                } else {
+                    o.push_str("  ");
+                    o.push_str(&" ".repeat(pad));
+                    o.push_str(c);
+                }
+            }
+            o.push('\n');
+        }
+        let d = &s.diagnostics;
+        o.push_str(&format!(
+            "  rows: {} read, {} excluded for NULL{}{}; {} passes\n",
+            d.rows_read,
+            d.rows_excluded_null,
+            if d.null_columns.is_empty() {
+                String::new()
+            } else {
+                format!(
+                    " ({})",
+                    d.null_columns
+                        .iter()
+                        .map(|(c, n)| format!("{c}: {n}"))
+                        .collect::<Vec<_>>()
+                        .join(", ")
+                )
+            },
+            d.rows_excluded_other
+                .iter()
+                .map(|(why, n)| format!(", {n} excluded {why}"))
+                .collect::<String>(),
+            d.passes
+        ));
+        o.push_str(&format!("  adjustment set: {}\n", s.why_this_set));
+        for w in &d.warnings {
+            o.push_str(&format!("  warning: {w}\n"));
+        }
+        for n in &d.notes {
+            o.push_str(&format!("  note: {n}\n"));
+        }
+        o.push_str("  rests on:\n");
+        for x in &s.assumptions {
+            o.push_str(&format!("    - {x}\n"));
+        }
+        o.push('\n');
+    }
+    o
+}
+
+/// The JSON document of `run` (docs/run-output.md): every estimate row, then every question's
+/// summary and diagnostics.
+pub fn run_json(study: &Study, answers: &[Answer]) -> Result<String, Failure> {
+    let estimates: Vec<&Estimate> = answers.iter().flat_map(|a| &a.estimates).collect();
+    let questions: Vec<&QuestionSummary> = answers.iter().map(|a| &a.summary).collect();
+    let doc = serde_json::json!({
+        "format": "upshot-run/1",
+        "tool_version": env!("CARGO_PKG_VERSION"),
+        "study": study.name,
+        "estimates": estimates,
+        "questions": questions,
+    });
+    Ok(serde_json::to_string_pretty(&doc).map_err(|e| Failure::internal(e.to_string()))? + "\n")
+}
+
+fn csv_field(s: &str) -> String {
+    if s.contains([',', '"', '\n']) {
+        format!("\"{}\"", s.replace('"', "\"\""))
+    } else {
+        s.to_string()
+    }
+}
+
+/// The CSV of `run`: one line per estimate row.
+pub fn run_csv(answers: &[Answer]) -> String {
+    let mut o = String::from(
+        "question,segment,estimand,method,estimate,std_error,ci_low,ci_high,n_treated,n_control,n_used,adjustment_set\n",
+    );
+    let opt = |x: Option<f64>| x.map_or(String::new(), |v| format!("{v}"));
+    for a in answers {
+        for e in &a.estimates {
+            o.push_str(&format!(
+                "{},{},{},{},{:?},{:?},{:?},{:?},{},{},{},{}\n",
+                csv_field(&e.question),
+                csv_field(&e.segment),
+                e.estimand.as_str(),
+                e.method.as_str(),
+                e.estimate,
+                e.std_error,
+                e.ci_low,
+                e.ci_high,
+                opt(e.n_treated),
+                opt(e.n_control),
+                e.n_used,
+                csv_field(&e.adjustment_set.join(";"))
+            ));
+        }
+    }
+    o
+}
+
+/// The JSON document of `plan`.
+pub fn plan_json(plans: &[QuestionPlan]) -> Result<String, Failure> {
+    let doc = serde_json::json!({"format": "upshot-plan/1", "tool_version": env!("CARGO_PKG_VERSION"), "questions": plans});
+    Ok(serde_json::to_string_pretty(&doc).map_err(|e| Failure::internal(e.to_string()))? + "\n")
+}
+
+/// The SQL text of `plan`: per question a header comment, then each pass with its purpose.
+pub fn plan_text(plans: &[QuestionPlan]) -> String {
+    let mut out = String::new();
+    for doc in plans {
+        out.push_str(&format!(
+            "-- question {}: {} of {} on {} by method {}, adjusting for {{{}}} ({} SQL, plan {})\n",
+            doc.question,
+            doc.estimand.as_str(),
+            doc.treatment,
+            doc.outcome,
+            doc.method.as_str(),
+            doc.adjustment_set.join(", "),
+            doc.dialect,
+            doc.plan_hash
+        ));
+        for (i, p) in doc.passes.iter().enumerate() {
+            out.push_str(&format!(
+                "\n-- pass {}: {} — {}\n",
+                i + 1,
+                p.name,
+                p.purpose
+            ));
+            if let Some(x) = &p.inlines {
+                out.push_str(&format!("-- inlines: {x}\n"));
+            }
+            if let Some(x) = &p.repeats {
+                out.push_str(&format!("-- runs: {x}\n"));
+            }
+            out.push_str(&p.sql);
+            out.push_str(";\n");
+        }
+        out.push('\n');
+    }
+    out
+}

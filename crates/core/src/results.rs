@@ -1,0 +1,211 @@
+//! Running resolved questions on an engine, the typed results, and the results table.
+
+use crate::resolve::{plan_hash, Resolved};
+use crate::CoreError;
+use serde::Serialize;
+use upshot_engine::{Engine, Param, Write};
+use upshot_methods::{estimate, ColumnType, Diagnostics, Estimate, MethodError};
+use upshot_study::{Estimand, Method, Study};
+
+/// What a question's estimate is about, and what was found besides the estimates.
+#[derive(Clone, Debug, Serialize)]
+pub struct QuestionSummary {
+    /// Question name.
+    pub question: String,
+    /// Method used.
+    pub method: Method,
+    /// Estimand.
+    pub estimand: Estimand,
+    /// Treatment column.
+    pub treatment: String,
+    /// Outcome column.
+    pub outcome: String,
+    /// Adjustment set.
+    pub adjustment_set: Vec<String>,
+    /// Why this set.
+    pub why_this_set: String,
+    /// The rows read: table, file or `query`.
+    pub source: String,
+    /// Hash of the plan's SQL.
+    pub plan_hash: String,
+    /// What the estimate rests on.
+    pub assumptions: Vec<String>,
+    /// Rows read and excluded, notes, warnings, passes.
+    pub diagnostics: Diagnostics,
+}
+
+/// One question's answer: its summary and one estimate row per segment (the `all` row first).
+#[derive(Clone, Debug)]
+pub struct Answer {
+    /// The question and its diagnostics.
+    pub summary: QuestionSummary,
+    /// The estimate rows.
+    pub estimates: Vec<Estimate>,
+}
+
+/// Runs resolved questions on `engine`, calling `progress(question, pass)` before each pass.
+pub fn run(
+    engine: &dyn Engine,
+    resolved: Vec<Resolved>,
+    progress: &mut dyn FnMut(&str, &str),
+) -> Result<Vec<Answer>, CoreError> {
+    let mut answers = Vec::new();
+    for mut r in resolved {
+        if r.spec.source.file_kind().is_some() && !engine.capabilities().reads_files {
+            return Err(CoreError::Input(format!(
+                "question `{}`: the {} engine reads no files; load {} into a table there",
+                r.question,
+                engine.dialect().name(),
+                r.source_label
+            )));
+        }
+        r.spec.flavor = engine.flavor();
+        let cols = engine.columns(&r.spec.source).map_err(|e| {
+            CoreError::Input(format!(
+                "question `{}`: cannot read the columns of {}: {e}; check the table name (quoted names are case-sensitive), the file path or the query",
+                r.question, r.source_label
+            ))
+        })?;
+        r.spec.columns = Some(
+            cols.into_iter()
+                .map(|c| ColumnType {
+                    name: c.name,
+                    numeric: c.numeric,
+                    integer: c.integer,
+                })
+                .collect(),
+        );
+        let hash = plan_hash(&r.spec);
+        let question = r.question.clone();
+        let mut runner = |p: &upshot_sql::Pass| {
+            progress(&question, &p.name);
+            engine.run(p).map_err(|e| e.to_string())
+        };
+        let outcome = estimate(&r.spec, &mut runner).map_err(|e| match e {
+            MethodError::Engine(m) => CoreError::Engine(format!("question `{}`: {m}", r.question)),
+            other => CoreError::Input(format!("question `{}`: {other}", r.question)),
+        })?;
+        answers.push(Answer {
+            summary: QuestionSummary {
+                question: r.question.clone(),
+                method: r.spec.method,
+                estimand: r.spec.estimand,
+                treatment: r.spec.treatment.clone(),
+                outcome: r.spec.outcome.clone(),
+                adjustment_set: r.spec.adjust.clone(),
+                why_this_set: r.chosen.why.clone(),
+                source: r.source_label.clone(),
+                plan_hash: hash,
+                assumptions: r.assumptions.clone(),
+                diagnostics: outcome.diagnostics,
+            },
+            estimates: outcome.estimates,
+        });
+    }
+    Ok(answers)
+}
+
+/// The run id and the rows of the results table (`sql/results.sql`, one per estimate), in
+/// column order but `run_at` (the database's time at the write).
+pub fn results_rows(
+    study: &Study,
+    run_key: Option<&str>,
+    answers: &[Answer],
+    now_millis: u128,
+) -> (String, Vec<Vec<Param>>) {
+    let run_id = match run_key {
+        Some(k) => k.to_string(),
+        None => format!(
+            "{}-{now_millis}",
+            answers
+                .first()
+                .map_or("run", |a| a.summary.plan_hash.as_str())
+        ),
+    };
+    let text = |s: &str| Param::Text(s.to_string());
+    let num = |x: f64| {
+        if x.is_finite() {
+            Param::Number(x)
+        } else {
+            Param::Null
+        }
+    };
+    let opt = |x: Option<f64>| x.map_or(Param::Null, num);
+    let mut rows = Vec::new();
+    for a in answers {
+        let s = &a.summary;
+        let d = &s.diagnostics;
+        let other: f64 = d.rows_excluded_other.iter().map(|x| x.1).sum();
+        for e in &a.estimates {
+            rows.push(vec![
+                text(&run_id),
+                run_key.map_or(Param::Null, text),
+                text(env!("CARGO_PKG_VERSION")),
+                text(&study.name),
+                text(&s.question),
+                text(&s.plan_hash),
+                text(&s.treatment),
+                text(&s.outcome),
+                text(&e.segment),
+                text(e.estimand.as_str()),
+                text(e.method.as_str()),
+                num(e.estimate),
+                num(e.std_error),
+                num(e.ci_low),
+                num(e.ci_high),
+                opt(e.n_treated),
+                opt(e.n_control),
+                num(e.n_used),
+                num(d.rows_read),
+                num(d.rows_excluded_null),
+                num(other),
+                text(&e.adjustment_set.join(", ")),
+                text(&s.source),
+            ]);
+        }
+    }
+    (run_id, rows)
+}
+
+/// Writes the answers to the results table `table` in one transaction: creates it if missing,
+/// replaces the rows of an earlier run with the same `run_key`, appends these. Nothing is
+/// written when any statement fails.
+pub fn write_results(
+    engine: &dyn Engine,
+    table: &str,
+    run_key: Option<&str>,
+    study: &Study,
+    answers: &[Answer],
+) -> Result<(), CoreError> {
+    if !engine.capabilities().durable {
+        return Err(CoreError::Input(
+            "--into needs a database that keeps what is written: give --db FILE (a DuckDB file; it is created if missing)".into(),
+        ));
+    }
+    let sql = upshot_sql::results_sql(engine.dialect(), table)
+        .map_err(|e| CoreError::Input(format!("--into: {e}")))?;
+    let now = std::time::SystemTime::now()
+        .duration_since(std::time::UNIX_EPOCH)
+        .map(|d| d.as_millis())
+        .unwrap_or(0);
+    let (_, rows) = results_rows(study, run_key, answers, now);
+    let mut statements = vec![Write {
+        sql: sql.create,
+        rows: vec![],
+    }];
+    if let Some(k) = run_key {
+        statements.push(Write {
+            sql: sql.delete,
+            rows: vec![vec![Param::Text(k.to_string())]],
+        });
+    }
+    statements.push(Write {
+        sql: sql.insert,
+        rows,
+    });
+    engine.write(&statements).map_err(|e| {
+        CoreError::Engine(format!(
+            "--into {table}: nothing was written (the transaction was rolled back): {e}"
+        ))
+    })
+}

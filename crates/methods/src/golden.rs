@@ -1,0 +1,88 @@
+//! Golden plans of the estimators' own passes (`sql/golden/<rendering>/<pass>.sql`, beside the
+//! shared passes' files that `upshot-sql`'s test checks): the fixtures and the comparison.
+
+use upshot_sql::{
+    Design, DesignTerm, DuckDb, Flavor, Fold, Key, KeyValue, Model, Models, Pass, Postgres,
+    Selector,
+};
+
+/// The renderings with golden files: DuckDB as upshot opens it (with its functions), DuckDB
+/// without them, PostgreSQL.
+pub(crate) fn flavors() -> [(&'static str, Flavor); 3] {
+    [
+        ("duckdb", Flavor::duckdb()),
+        ("duckdb-plain", Flavor::plain(&DuckDb)),
+        ("postgres", Flavor::plain(&Postgres)),
+    ]
+}
+
+/// A cross-fitting design: segment and fold keys, one numeric and one squared term, the
+/// treatment and outcome as extras.
+pub(crate) fn fold_design() -> Design {
+    let x = DesignTerm::Numeric {
+        column: "prior orders".into(),
+        centre: 2.5,
+        scale: 1.5,
+    };
+    Design {
+        keys: vec![Key::Column("tenure_band".into())],
+        terms: vec![
+            x.clone(),
+            DesignTerm::Product {
+                factors: vec![x.clone(), x],
+                centre: 1.0,
+                scale: 1.0,
+            },
+        ],
+        extras: vec![("t", "voucher".into()), ("y", "spend_30d".into())],
+        fold: Some(Fold {
+            unit: "customer_id".into(),
+            folds: 2,
+        }),
+    }
+}
+
+/// Models per tenure band and fold.
+pub(crate) fn fold_models(offset: f64) -> Models {
+    let mut models = Vec::new();
+    for band in ["new", "1y"] {
+        for f in 0..2 {
+            models.push(Model {
+                key: vec![KeyValue::Text(band.into()), KeyValue::Number(f as f64)],
+                coef: vec![offset + f as f64, 0.5, -0.25],
+            });
+        }
+    }
+    Models {
+        selector: Selector {
+            keys: vec![0],
+            fold: true,
+        },
+        models,
+    }
+}
+
+/// Compares `pass` with `sql/golden/<dir>/<name>.sql` (rewrites it with `UPSHOT_BLESS=1`) and
+/// checks that the file round-trips through the dialect's parser.
+pub(crate) fn check(dir: &str, flavor: &Flavor, name: &str, pass: &Pass) {
+    let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("../../sql/golden")
+        .join(dir)
+        .join(format!("{name}.sql"));
+    let sql = pass.sql() + "\n";
+    if std::env::var_os("UPSHOT_BLESS").is_some() {
+        std::fs::write(&path, &sql).unwrap();
+    }
+    let want = std::fs::read_to_string(&path)
+        .unwrap_or_else(|e| panic!("{}: {e}; run with UPSHOT_BLESS=1", path.display()));
+    assert_eq!(
+        sql,
+        want,
+        "{} changed; if intended, rerun with UPSHOT_BLESS=1",
+        path.display()
+    );
+    let parsed = sqlparser::parser::Parser::parse_sql(flavor.dialect.parser().as_ref(), &want)
+        .unwrap_or_else(|e| panic!("{}: {e}", path.display()));
+    assert_eq!(parsed.len(), 1);
+    assert_eq!(format!("{:#}", parsed[0]) + "\n", want, "{} does not round-trip", path.display());
+}
