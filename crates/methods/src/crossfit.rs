@@ -3,10 +3,10 @@
 //! fold k, so cross-fitting costs no extra scan.
 
 use crate::prepare::{needs_folds, Setup};
-use crate::read::{by_segment, keys, logit_sums, moments};
+use crate::read::{by_segment, logit_sums, moments};
 use crate::MethodError;
 use upshot_fit::{LogitSums, Moments};
-use upshot_sql::{Aggregates, Design, Fold, Key, KeyValue};
+use upshot_sql::{Aggregates, Design, Fold, GramLayout, Key, KeyValue, LogisticLayout};
 
 /// Folds actually used (1 when cross-fitting is off).
 pub(crate) fn folds(s: &Setup) -> u32 {
@@ -70,11 +70,15 @@ pub(crate) fn row_design(s: &Setup) -> Design {
 }
 
 /// The rows of a fold-grouped pass that belong to segment `seg`, with their fold.
-pub(crate) fn rows_by_fold(a: &Aggregates, seg: &[KeyValue]) -> Result<Vec<(usize, usize)>, MethodError> {
+pub(crate) fn rows_by_fold(
+    layout: &LogisticLayout,
+    a: &Aggregates,
+    seg: &[KeyValue],
+) -> Result<Vec<(usize, usize)>, MethodError> {
     let mut out = Vec::new();
     for row in 0..a.rows.len() {
-        if keys(a, row, seg.len())?.as_slice() == seg {
-            out.push((a.number(row, "f")? as usize, row));
+        if layout.keys(a, row)?.as_slice() == seg {
+            out.push((layout.fold(a, row)?, row));
         }
     }
     if out.is_empty() {
@@ -87,20 +91,20 @@ pub(crate) fn rows_by_fold(a: &Aggregates, seg: &[KeyValue]) -> Result<Vec<(usiz
 }
 
 /// The logistic sums of a segment's rows of a fold-grouped pass: all of them, or (with
-/// `leave_out`) those of the other folds; `prefix` selects a fit's columns.
+/// `leave_out`) those of the other folds; `fit` selects a cross-fitting fit's sums.
 pub(crate) fn fold_sum(
+    layout: &LogisticLayout,
     a: &Aggregates,
     rows: &[(usize, usize)],
     leave_out: Option<usize>,
-    prefix: &str,
-    kp: usize,
+    fit: Option<usize>,
 ) -> Result<LogitSums, MethodError> {
     let mut total: Option<LogitSums> = None;
     for (f, row) in rows {
         if Some(*f) == leave_out {
             continue;
         }
-        let x = logit_sums(a, *row, prefix, kp)?;
+        let x = logit_sums(layout, a, *row, fit)?;
         total = Some(match total {
             None => x,
             Some(t) => add_logit_sums(t, &x),
@@ -133,6 +137,7 @@ pub(crate) type Complements = (Vec<KeyValue>, Vec<[Option<Moments>; 2]>);
 /// cross-fitting is off), for each group value of the last key when `by_arm`.
 pub(crate) fn complement_moments(
     s: &Setup,
+    layout: &GramLayout,
     g: &Aggregates,
     names: &[String],
     terms: &[upshot_sql::DesignTerm],
@@ -147,11 +152,8 @@ pub(crate) fn complement_moments(
         let mut fold_m: Vec<[Option<Moments>; 2]> = vec![[None, None]; k];
         let mut total: [Option<Moments>; 2] = [None, None];
         for row in rows {
-            let key = keys(
-                g,
-                row,
-                g.names.iter().filter(|n| n.starts_with('k')).count(),
-            )?;
+            // The Gram design's keys: the segments, the fold when cross-fitting, the arm.
+            let key = layout.keys(g, row)?;
             let j = if crossfit {
                 match key[nseg] {
                     KeyValue::Number(x) => x as usize,
@@ -165,7 +167,7 @@ pub(crate) fn complement_moments(
             } else {
                 0
             };
-            let m = moments(g, row, names, terms)?;
+            let m = moments(layout, g, row, names, terms)?;
             total[arm] = Some(match total[arm].take() {
                 None => m.clone(),
                 Some(t) => t.plus(&m).map_err(|e| MethodError::Engine(e.to_string()))?,

@@ -34,9 +34,9 @@ pub fn plan(spec: &Spec) -> Result<Vec<PlannedPass>, MethodError> {
         inlines: inlines.map(str::to_string),
         repeats: repeats.map(str::to_string),
     };
-    out.push(planned(profile_pass(spec)?, None, None));
+    out.push(planned(profile_pass(spec)?.pass, None, None));
     if let Some(p) = levels_pass(spec, s.filter.as_ref())? {
-        out.push(planned(p, None, None));
+        out.push(planned(p.pass, None, None));
     }
     let centres = "centres and scales from the profile pass (shown as 0 and 1), category levels from the levels pass";
     let method = est.passes(&s)?;

@@ -4,7 +4,8 @@
 use crate::{ask, ColumnType, Diagnostics, Method, MethodError, NullPolicy, Runner, Spec};
 use serde::Serialize;
 use upshot_sql::{
-    complete_cases, levels, profile, Aggregates, Cell, DesignTerm, Expr, Pass, ProfileColumn,
+    complete_cases, levels, profile, Built, Cell, DesignTerm, Expr, LevelsLayout, ProfileColumn,
+    ProfileLayout, ProfiledColumn,
 };
 
 /// Most levels a categorical covariate may have for one-hot encoding.
@@ -200,33 +201,19 @@ fn check_schema(spec: &Spec) -> Result<(), MethodError> {
     Ok(())
 }
 
-fn profiled(a: &Aggregates, i: usize, name: &str, numeric: bool) -> Result<Profiled, MethodError> {
-    Ok(Profiled {
+fn profiled(p: ProfiledColumn, name: &str) -> Profiled {
+    let sd = scale(&p);
+    Profiled {
         name: name.to_string(),
-        non_null: a.number(0, &format!("c{i}_n"))?,
-        min: if numeric {
-            a.cell(0, &format!("c{i}_min"))?.clone()
-        } else {
-            Cell::Null
-        },
-        max: if numeric {
-            a.cell(0, &format!("c{i}_max"))?.clone()
-        } else {
-            Cell::Null
-        },
-        mean: if numeric {
-            match a.cell(0, &format!("c{i}_mean"))? {
-                Cell::Number(x) => Some(*x),
-                _ => None,
-            }
-        } else {
-            None
-        },
-        sd: if numeric { scale(a, i)? } else { None },
+        non_null: p.non_null,
+        min: p.min,
+        max: p.max,
+        mean: p.mean,
+        sd,
         // Counted only where a check needs it (see `profile_pass`); 0 = not counted.
-        distinct: optional(a, &format!("c{i}_distinct"))?,
-        not01: optional(a, &format!("c{i}_not01"))?,
-    })
+        distinct: p.distinct,
+        not01: p.not01,
+    }
 }
 
 fn show(c: &Cell) -> String {
@@ -237,37 +224,25 @@ fn show(c: &Cell) -> String {
     }
 }
 
-/// The population standard deviation of profiled column `i` from its mean and sum of squares,
+/// The population standard deviation of a profiled column from its mean and sum of squares,
 /// for scaling: `√(Σx²/n − x̄²)`. Where cancellation leaves nothing (a mean vastly larger than
 /// the spread) but the column is not constant, half its range stands in; a constant column
 /// gets 0 (checked against min = max by the callers).
-fn scale(a: &Aggregates, i: usize) -> Result<Option<f64>, MethodError> {
-    let (Cell::Number(mean), Cell::Number(ss), Cell::Number(lo), Cell::Number(hi)) = (
-        a.cell(0, &format!("c{i}_mean"))?,
-        a.cell(0, &format!("c{i}_ss"))?,
-        a.cell(0, &format!("c{i}_min"))?,
-        a.cell(0, &format!("c{i}_max"))?,
-    ) else {
-        return Ok(None);
+fn scale(p: &ProfiledColumn) -> Option<f64> {
+    let (Some(mean), Some(ss), Cell::Number(lo), Cell::Number(hi)) =
+        (p.mean, p.sum_sq, &p.min, &p.max)
+    else {
+        return None;
     };
-    let n = a.number(0, &format!("c{i}_n"))?;
     if lo == hi {
-        return Ok(Some(0.0));
+        return Some(0.0);
     }
-    let var = ss / n - mean * mean;
+    let var = ss / p.non_null - mean * mean;
     let sd = var.max(0.0).sqrt();
-    Ok(Some(if sd > 1e-6 * (hi - lo) {
+    Some(if sd > 1e-6 * (hi - lo) {
         sd
     } else {
         (hi - lo) / 2.0
-    }))
-}
-
-/// A profile column that only some passes carry; 0 where absent or NULL.
-fn optional(a: &Aggregates, name: &str) -> Result<f64, MethodError> {
-    Ok(match a.names.iter().any(|n| n == name) {
-        true => a.number_or(0, name, 0.0)?,
-        false => 0.0,
     })
 }
 
@@ -281,7 +256,7 @@ fn with_stats(spec: &Spec, c: &str) -> bool {
 }
 
 /// The profile pass of a spec.
-pub(crate) fn profile_pass(spec: &Spec) -> Result<Pass, MethodError> {
+pub(crate) fn profile_pass(spec: &Spec) -> Result<Built<ProfileLayout>, MethodError> {
     let cols: Vec<ProfileColumn> = used_columns(spec)
         .into_iter()
         .map(|c| {
@@ -320,7 +295,10 @@ pub(crate) fn categorical_covariates(spec: &Spec) -> Vec<String> {
         .collect()
 }
 
-pub(crate) fn levels_pass(spec: &Spec, filter: Option<&Expr>) -> Result<Option<Pass>, MethodError> {
+pub(crate) fn levels_pass(
+    spec: &Spec,
+    filter: Option<&Expr>,
+) -> Result<Option<Built<LevelsLayout>>, MethodError> {
     let cats = categorical_covariates(spec);
     if cats.is_empty() {
         return Ok(None);
@@ -338,8 +316,9 @@ pub(crate) fn levels_pass(spec: &Spec, filter: Option<&Expr>) -> Result<Option<P
 pub(crate) fn prepare<'a>(spec: &'a Spec, r: &mut dyn Runner) -> Result<Setup<'a>, MethodError> {
     check_schema(spec)?;
     let used = used_columns(spec);
-    let prof = ask(r, &profile_pass(spec)?)?;
-    let n_rows = prof.number_or(0, "n_rows", 0.0)?;
+    let pp = profile_pass(spec)?;
+    let prof = ask(r, &pp)?;
+    let n_rows = pp.layout.rows(&prof)?;
     if n_rows == 0.0 {
         return Err(MethodError::Input(if spec.filter.is_some() {
             "no rows: the source is empty after the filter; check the filter and the source".into()
@@ -349,9 +328,9 @@ pub(crate) fn prepare<'a>(spec: &'a Spec, r: &mut dyn Runner) -> Result<Setup<'a
     }
     let mut profiled_cols = Vec::new();
     for (i, c) in used.iter().enumerate() {
-        profiled_cols.push(profiled(&prof, i, c, with_stats(spec, c))?);
+        profiled_cols.push(profiled(pp.layout.column(&prof, i)?, c));
     }
-    let n_complete = prof.number_or(0, "n_complete", 0.0)?;
+    let n_complete = pp.layout.complete(&prof)?;
     let null_columns: Vec<(String, f64)> = profiled_cols
         .iter()
         .filter(|p| p.non_null < n_rows)
@@ -411,12 +390,8 @@ pub(crate) fn prepare<'a>(spec: &'a Spec, r: &mut dyn Runner) -> Result<Setup<'a
             levels_of.push((c.clone(), Vec::new()));
         }
         for row in 0..a.rows.len() {
-            let which = a.number(row, "which")? as usize;
-            let level = match a.cell(row, "level")? {
-                Cell::Text(s) => s.clone(),
-                other => show(other),
-            };
-            levels_of[which].1.push((level, a.number(row, "n")?));
+            let (which, level, n) = p.layout.level(&a, row)?;
+            levels_of[which].1.push((level, n));
         }
         for (c, lv) in &levels_of {
             if lv.len() > MAX_LEVELS {

@@ -10,7 +10,9 @@ use crate::read::{by_segment, logit_sums, row_of};
 use crate::combine::segment_label;
 use crate::{ask, MethodError, Runner};
 use upshot_fit::{logit_many, FitError, Logit, LogitSums, NewtonOptions};
-use upshot_sql::{logistic_fits, Aggregates, Design, Key, KeyValue, Models, Pass, Variants};
+use upshot_sql::{
+    logistic_fits, Aggregates, Built, Design, Key, KeyValue, LogisticLayout, Models, Variants,
+};
 
 pub(crate) fn design(s: &Setup, fold: bool) -> Design {
     let spec = s.spec;
@@ -39,7 +41,10 @@ pub(crate) fn param_names(s: &Setup) -> Vec<String> {
     names
 }
 
-pub(crate) fn logistic_pass(s: &Setup, models: &Models) -> Result<Pass, MethodError> {
+pub(crate) fn logistic_pass(
+    s: &Setup,
+    models: &Models,
+) -> Result<Built<LogisticLayout>, MethodError> {
     let spec = s.spec;
     Ok(logistic_fits(
         &spec.flavor,
@@ -69,13 +74,15 @@ pub(crate) fn fit_propensity(
 ) -> Result<(Vec<Vec<KeyValue>>, Vec<Logit>), MethodError> {
     let nseg = s.spec.segments.len();
     let k = s.terms.len() + 1;
-    let first = ask(r, &logistic_pass(s, &Models::single(vec![0.0; k]))?)?;
+    let start = logistic_pass(s, &Models::single(vec![0.0; k]))?;
+    let layout = start.layout;
+    let first = ask(r, &start)?;
     let segs: Vec<Vec<KeyValue>> = by_segment(&first, nseg)?.into_iter().map(|x| x.0).collect();
     // At zero coefficients p = 1/2, so the intercept's score is n₁ − n/2.
     for (row, key) in segs.iter().enumerate() {
-        let n = first.number(row, "n")?;
-        let n1 = first.number(row, "u0")? + n / 2.0;
-        check_arms(s, key, n1.round(), (n - n1).round())?;
+        let at_zero = layout.fit(&first, row, None)?;
+        let n1 = at_zero.score[0] + at_zero.n / 2.0;
+        check_arms(s, key, n1.round(), (at_zero.n - n1).round())?;
     }
     let names = param_names(s);
     let mut cached = Some(first);
@@ -85,10 +92,10 @@ pub(crate) fn fit_propensity(
         |coefs| {
             let a: Aggregates = match cached.take() {
                 Some(a) if coefs.iter().all(|c| c.iter().all(|x| *x == 0.0)) => a,
-                _ => ask(r, &logistic_pass(s, &per_segment(&segs, coefs))?)?,
+                _ => ask(r, &logistic_pass(s, &per_segment(&segs, coefs))?.pass)?,
             };
             (0..segs.len())
-                .map(|row| logit_sums(&a, row, "", k))
+                .map(|row| logit_sums(&layout, &a, row, None))
                 .collect::<Result<Vec<LogitSums>, MethodError>>()
         },
         NewtonOptions::default(),
@@ -113,7 +120,11 @@ pub(crate) fn check_arms(s: &Setup, key: &[KeyValue], n1: f64, n0: f64) -> Resul
 }
 
 /// A logistic pass over the row design (segments, fold, `t`, `y`).
-fn row_logistic(s: &Setup, models: &Models, variants: Variants) -> Result<Pass, MethodError> {
+fn row_logistic(
+    s: &Setup,
+    models: &Models,
+    variants: Variants,
+) -> Result<Built<LogisticLayout>, MethodError> {
     let spec = s.spec;
     Ok(logistic_fits(
         &spec.flavor,
@@ -126,7 +137,10 @@ fn row_logistic(s: &Setup, models: &Models, variants: Variants) -> Result<Pass, 
 }
 
 /// Newton step of every fold-leaving-out fit (or of the one fit without cross-fitting).
-pub(crate) fn complement_pass(s: &Setup, models: &Models) -> Result<Pass, MethodError> {
+pub(crate) fn complement_pass(
+    s: &Setup,
+    models: &Models,
+) -> Result<Built<LogisticLayout>, MethodError> {
     let variants = match needs_folds(s.spec) {
         true => Variants::Complement(s.spec.folds),
         false => Variants::Single,
@@ -135,12 +149,18 @@ pub(crate) fn complement_pass(s: &Setup, models: &Models) -> Result<Pass, Method
 }
 
 /// Newton step of each segment's fit on all its rows, summed per fold.
-pub(crate) fn by_fold_pass(s: &Setup, models: &Models) -> Result<Pass, MethodError> {
+pub(crate) fn by_fold_pass(
+    s: &Setup,
+    models: &Models,
+) -> Result<Built<LogisticLayout>, MethodError> {
     row_logistic(s, models, Variants::ByFold)
 }
 
 /// Scores of the fold-leaving-out fits.
-pub(crate) fn scores_pass_only(s: &Setup, models: &Models) -> Result<Pass, MethodError> {
+pub(crate) fn scores_pass_only(
+    s: &Setup,
+    models: &Models,
+) -> Result<Built<LogisticLayout>, MethodError> {
     row_logistic(s, models, Variants::ComplementScores(s.spec.folds))
 }
 
@@ -152,27 +172,27 @@ fn newton_complements(
     segs: &[Vec<KeyValue>],
 ) -> Result<Vec<Vec<Vec<f64>>>, MethodError> {
     let spec = s.spec;
-    let p = s.terms.len();
     let k = folds(s) as usize;
     let param = param_names(s);
-    let kp = p + 1;
     let fits = logit_many(
         &param,
         segs.len() * k,
         |flat| {
             let coef: Vec<Vec<Vec<f64>>> = flat.chunks(k).map(|c| c.to_vec()).collect();
-            let a = ask(r, &complement_pass(s, &fold_models(s, segs, &coef))?)?;
+            let pass = complement_pass(s, &fold_models(s, segs, &coef))?;
+            let a = ask(r, &pass)?;
+            let layout = &pass.layout;
             let mut out: Vec<LogitSums> = Vec::new();
             for seg in segs {
                 if !needs_folds(spec) {
-                    out.push(logit_sums(&a, row_of(&a, seg)?, "", kp)?);
+                    out.push(logit_sums(layout, &a, row_of(&a, seg)?, None)?);
                     continue;
                 }
                 // One row per fold of the segment; fit j adds up the rows of the other folds.
-                let rows = rows_by_fold(&a, seg)?;
+                let rows = rows_by_fold(layout, &a, seg)?;
                 for j in 0..k {
                     let mut sums =
-                        fold_sum(&a, &rows, Some(j), &format!("m{j}_"), kp).map_err(|e| {
+                        fold_sum(layout, &a, &rows, Some(j), Some(j)).map_err(|e| {
                             MethodError::Input(format!("{}: {e}", segment_label(s, seg)))
                         })?;
                     sums.n = f64::NAN;
@@ -223,26 +243,24 @@ fn shared_curvature_complements(
     let k = folds(s) as usize;
     // Each segment's model on all its rows, by Newton, with the sums grouped by fold.
     let names = param_names(s);
-    let mut last: Option<Aggregates> = None;
+    let mut last: Option<(Aggregates, LogisticLayout)> = None;
     let full = logit_many(
         &names,
         segs.len(),
         |coefs| {
-            let a = ask(
-                r,
-                &by_fold_pass(s, &per_segment(segs, coefs))?,
-            )?;
+            let pass = by_fold_pass(s, &per_segment(segs, coefs))?;
+            let a = ask(r, &pass)?;
             let mut out = Vec::new();
             for seg in segs {
-                let rows = rows_by_fold(&a, seg)?;
-                out.push(fold_sum(&a, &rows, None, "", kp)?);
+                let rows = rows_by_fold(&pass.layout, &a, seg)?;
+                out.push(fold_sum(&pass.layout, &a, &rows, None, None)?);
             }
-            last = Some(a);
+            last = Some((a, pass.layout));
             Ok::<_, MethodError>(out)
         },
         NewtonOptions::default(),
     )?;
-    let last = last.expect("Newton runs at least one pass");
+    let (last, last_layout) = last.expect("Newton runs at least one pass");
     let opts = NewtonOptions::default();
     let mut coef: Vec<Vec<Vec<f64>>> = Vec::new();
     let mut curvature = Vec::new();
@@ -251,11 +269,11 @@ fn shared_curvature_complements(
         // The last pass evaluated every segment's model at its final coefficients: the sums of
         // the folds other than j are fit j's score and information there, so its first step
         // needs no pass.
-        let rows = rows_by_fold(&last, seg)?;
+        let rows = rows_by_fold(&last_layout, &last, seg)?;
         let mut cs = Vec::new();
         let mut start = Vec::new();
         for j in 0..k {
-            let sums = fold_sum(&last, &rows, Some(j), "", kp)?;
+            let sums = fold_sum(&last_layout, &last, &rows, Some(j), None)?;
             let Some(c) = sums.information.cholesky() else {
                 return Ok(None);
             };
@@ -274,14 +292,17 @@ fn shared_curvature_complements(
     }
     let mut settled = vec![vec![false; k]; segs.len()];
     for _ in 0..SHARED_CURVATURE_PASSES {
-        let a = ask(r, &scores_pass_only(s, &fold_models(s, segs, &coef))?)?;
+        let pass = scores_pass_only(s, &fold_models(s, segs, &coef))?;
+        let a = ask(r, &pass)?;
         for (i, seg) in segs.iter().enumerate() {
-            let rows = rows_by_fold(&a, seg)?;
+            let rows = rows_by_fold(&pass.layout, &a, seg)?;
             for j in 0..k {
                 let mut score = nalgebra::DVector::<f64>::zeros(kp);
                 for (f, row) in &rows {
                     if *f != j {
-                        score += crate::read::vector(&a, *row, &format!("m{j}_u"), kp)?;
+                        score += &nalgebra::DVector::from_vec(
+                            pass.layout.fit(&a, *row, Some(j))?.score,
+                        );
                     }
                 }
                 let step = curvature[i][j].solve(&score);

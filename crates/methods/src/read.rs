@@ -1,95 +1,70 @@
-//! Typed reading of pass results: group keys, moments of Gram passes, symmetric blocks and
-//! vectors of sums, logistic sums. Column names of a pass are read here and in the pass's own
-//! builder, nowhere else.
+//! Pass results read through their builders' typed layouts into the finisher's types: group
+//! keys, the moments of a Gram pass, symmetric blocks, logistic sums. No column name of a pass
+//! appears outside its builder and layout.
 
 use crate::MethodError;
 use nalgebra::{DMatrix, DVector};
 use upshot_fit::{LogitSums, Moments};
-use upshot_sql::{Aggregates, Cell, DesignTerm, KeyValue};
+use upshot_sql::{group_keys, Aggregates, DesignTerm, GramLayout, KeyValue, LogisticLayout};
 
-pub(crate) fn key_value(c: &Cell) -> KeyValue {
-    match c {
-        Cell::Number(x) => KeyValue::Number(*x),
-        Cell::Text(t) => KeyValue::Text(t.clone()),
-        Cell::Null => KeyValue::Text("NULL".into()),
-    }
-}
-
-/// The values of keys `k0..k{n-1}` of a result row.
+/// The values of the first `n` group keys of a result row.
 pub(crate) fn keys(a: &Aggregates, row: usize, n: usize) -> Result<Vec<KeyValue>, MethodError> {
-    (0..n)
-        .map(|i| Ok(key_value(a.cell(row, &format!("k{i}"))?)))
-        .collect()
+    Ok(group_keys(a, row, n)?)
 }
 
 /// The moments of a Gram pass's row over `terms` (named `names`).
 pub(crate) fn moments(
+    layout: &GramLayout,
     a: &Aggregates,
     row: usize,
     names: &[String],
     terms: &[DesignTerm],
 ) -> Result<Moments, MethodError> {
-    let k = terms.len();
-    let n = a.number(row, "n")?;
-    let sum: Vec<f64> = (0..k)
-        .map(|i| a.number_or(row, &format!("s{i}"), 0.0))
-        .collect::<Result<_, _>>()?;
-    let mut upper = Vec::with_capacity(k * (k + 1) / 2);
-    for i in 0..k {
-        for j in i..k {
-            upper.push(a.number_or(row, &format!("g{i}_{j}"), 0.0)?);
-        }
-    }
     let (centre, scale): (Vec<f64>, Vec<f64>) = terms.iter().map(|t| t.centre_scale()).unzip();
-    Moments::from_upper(names.to_vec(), n, centre, scale, sum, &upper)
-        .map_err(|e| MethodError::Engine(e.to_string()))
+    Moments::from_upper(
+        names.to_vec(),
+        layout.n(a, row)?,
+        centre,
+        scale,
+        layout.sums(a, row)?,
+        &layout.products(a, row)?,
+    )
+    .map_err(|e| MethodError::Engine(e.to_string()))
 }
 
-/// The symmetric matrix `{prefix}{i}_{j}` (i ≤ j) of size `p` from a result row.
-pub(crate) fn upper_matrix(
-    a: &Aggregates,
-    row: usize,
-    prefix: &str,
-    p: usize,
-) -> Result<DMatrix<f64>, MethodError> {
+/// The symmetric `p × p` matrix of a row-major upper triangle.
+pub(crate) fn symmetric(upper: &[f64], p: usize) -> DMatrix<f64> {
     let mut m = DMatrix::zeros(p, p);
+    let mut at = 0;
     for i in 0..p {
         for j in i..p {
-            let v = a.number_or(row, &format!("{prefix}{i}_{j}"), 0.0)?;
-            m[(i, j)] = v;
-            m[(j, i)] = v;
+            m[(i, j)] = upper[at];
+            m[(j, i)] = upper[at];
+            at += 1;
         }
     }
-    Ok(m)
+    m
 }
 
-pub(crate) fn vector(
-    a: &Aggregates,
-    row: usize,
-    prefix: &str,
-    p: usize,
-) -> Result<DVector<f64>, MethodError> {
-    Ok(DVector::from_vec(
-        (0..p)
-            .map(|i| a.number_or(row, &format!("{prefix}{i}"), 0.0))
-            .collect::<Result<_, _>>()?,
-    ))
-}
-
-/// The logistic sums of model `prefix` (empty, or `m{k}_`) in a result row with `p` parameters.
+/// The logistic sums of fit `fit` (the single fit, or the one leaving fold `m` out) in a row.
 pub(crate) fn logit_sums(
+    layout: &LogisticLayout,
     a: &Aggregates,
     row: usize,
-    prefix: &str,
-    p: usize,
+    fit: Option<usize>,
 ) -> Result<LogitSums, MethodError> {
+    let r = layout.fit(a, row, fit)?;
     Ok(LogitSums {
-        n: a.number(row, "n")?,
-        score: vector(a, row, &format!("{prefix}u"), p)?,
-        information: upper_matrix(a, row, &format!("{prefix}h"), p)?,
-        loglik: a.number_or(row, &format!("{prefix}loglik"), 0.0)?,
-        min_p: a.number_or(row, &format!("{prefix}min_p"), 0.5)?,
-        max_p: a.number_or(row, &format!("{prefix}max_p"), 0.5)?,
+        n: r.n,
+        information: if r.information.is_empty() {
+            DMatrix::zeros(layout.width, layout.width)
+        } else {
+            symmetric(&r.information, layout.width)
+        },
+        score: DVector::from_vec(r.score),
+        loglik: r.loglik,
+        min_p: r.min_p,
+        max_p: r.max_p,
     })
 }
 

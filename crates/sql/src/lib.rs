@@ -25,6 +25,7 @@ pub mod design;
 mod dialect;
 mod error;
 mod filter;
+mod layout;
 pub mod passes;
 mod results_table;
 mod source;
@@ -41,6 +42,10 @@ pub use dialect::{
 };
 pub use error::SqlError;
 pub use filter::FUNCTIONS as FILTER_FUNCTIONS;
+pub use layout::{
+    group_keys, Built, CellsLayout, GramLayout, LevelsLayout, LogisticLayout, LogisticRow,
+    ProfileLayout, ProfiledColumn, ResidualLayout,
+};
 pub use passes::{
     cells, gram, levels, logistic_fits, profile, residuals, schema_probe, ProfileColumn, Variants,
 };

@@ -9,6 +9,9 @@ use crate::design::{
 };
 use crate::dialect::Flavor;
 use crate::error::SqlError;
+use crate::layout::{
+    Built, CellsLayout, GramLayout, LevelsLayout, LogisticLayout, ProfileLayout, ResidualLayout,
+};
 use crate::source::Source;
 use sqlparser::ast::Expr;
 
@@ -37,7 +40,7 @@ pub fn profile(
     source: &Source,
     filter: Option<&Expr>,
     columns: &[ProfileColumn],
-) -> Result<Pass, SqlError> {
+) -> Result<Built<ProfileLayout>, SqlError> {
     let mut t = PassText::new(flavor);
     let d = flavor.dialect;
     let mut items = vec!["COUNT(*) AS n_rows".to_string()];
@@ -87,10 +90,15 @@ pub fn profile(
         "SELECT {} FROM __src AS src WHERE __filter",
         items.join(", ")
     );
-    Ok(Pass {
-        name: "profile".into(),
-        purpose: "row count; per column: non-NULL count, and for numbers min, max, mean, sum of squares (and a distinct count where a check needs it)".into(),
-        query: t.query(source, filter)?,
+    Ok(Built {
+        pass: Pass {
+            name: "profile".into(),
+            purpose: "row count; per column: non-NULL count, and for numbers min, max, mean, sum of squares (and a distinct count where a check needs it)".into(),
+            query: t.query(source, filter)?,
+        },
+        layout: ProfileLayout {
+            columns: columns.to_vec(),
+        },
     })
 }
 
@@ -103,7 +111,7 @@ pub fn cells(
     filter: Option<&Expr>,
     keys: &[String],
     value: &str,
-) -> Result<Pass, SqlError> {
+) -> Result<Built<CellsLayout>, SqlError> {
     let mut t = PassText::new(flavor);
     let d = flavor.dialect;
     let mut used = keys.to_vec();
@@ -133,13 +141,16 @@ pub fn cells(
         ));
     }
     t.sql = sql;
-    Ok(Pass {
-        name: "cells".into(),
-        purpose: format!(
-            "per cell of ({}): n, sum and sum of squares of the outcome",
-            keys.join(", ")
-        ),
-        query: t.query(source, filter)?,
+    Ok(Built {
+        pass: Pass {
+            name: "cells".into(),
+            purpose: format!(
+                "per cell of ({}): n, sum and sum of squares of the outcome",
+                keys.join(", ")
+            ),
+            query: t.query(source, filter)?,
+        },
+        layout: CellsLayout { keys: keys.len() },
     })
 }
 
@@ -149,7 +160,7 @@ pub fn gram(
     source: &Source,
     filter: Option<&Expr>,
     design: &Design,
-) -> Result<Pass, SqlError> {
+) -> Result<Built<GramLayout>, SqlError> {
     let mut t = PassText::new(flavor);
     let rows = design.rows(&mut t)?;
     let k = design.terms.len();
@@ -175,10 +186,16 @@ pub fn gram(
         &outs,
         &format!("({rows}) AS rows_"),
     );
-    Ok(Pass {
-        name: "gram".into(),
-        purpose: format!("centred Gram matrix of {k} terms{}", design.per()),
-        query: t.query(source, filter)?,
+    Ok(Built {
+        pass: Pass {
+            name: "gram".into(),
+            purpose: format!("centred Gram matrix of {k} terms{}", design.per()),
+            query: t.query(source, filter)?,
+        },
+        layout: GramLayout {
+            keys: design.keys.len(),
+            terms: k,
+        },
     })
 }
 
@@ -226,7 +243,7 @@ pub fn logistic_fits(
     design: &Design,
     models: &Models,
     variants: Variants,
-) -> Result<Pass, SqlError> {
+) -> Result<Built<LogisticLayout>, SqlError> {
     let mut t = PassText::new(flavor);
     let rows = design.rows(&mut t)?;
     let k = design.terms.len();
@@ -307,28 +324,40 @@ pub fn logistic_fits(
         etas.join(", "),
     );
     t.sql = t.aggregate(k, &keys, &outs, &from);
+    let layout = LogisticLayout {
+        keys: design.keys.len(),
+        width: k + 1,
+        by_fold: variants.complement().is_some() || variants == Variants::ByFold,
+        scores_only: matches!(variants, Variants::ComplementScores(_)),
+    };
     let what = match variants {
         Variants::Single => String::new(),
         Variants::ByFold => ", per fold".to_string(),
         Variants::Complement(k) => format!(", {k} cross-fitting fits (each leaving one fold out)"),
         Variants::ComplementScores(k) => {
-            return Ok(Pass {
-                name: "logistic-scores".into(),
-                purpose: format!(
-                    "scores of {k} cross-fitting propensity fits (each leaving one fold out) at their current coefficients{}, per fold; each fit steps with a fixed curvature matrix",
-                    design.per()
-                ),
-                query: t.query(source, filter)?,
+            return Ok(Built {
+                pass: Pass {
+                    name: "logistic-scores".into(),
+                    purpose: format!(
+                        "scores of {k} cross-fitting propensity fits (each leaving one fold out) at their current coefficients{}, per fold; each fit steps with a fixed curvature matrix",
+                        design.per()
+                    ),
+                    query: t.query(source, filter)?,
+                },
+                layout: layout,
             })
         }
     };
-    Ok(Pass {
-        name: "logistic-step".into(),
-        purpose: format!(
-            "one Newton step of the propensity model: score, information and log-likelihood at the current coefficients{}{what}",
-            design.per()
-        ),
-        query: t.query(source, filter)?,
+    Ok(Built {
+        pass: Pass {
+            name: "logistic-step".into(),
+            purpose: format!(
+                "one Newton step of the propensity model: score, information and log-likelihood at the current coefficients{}{what}",
+                design.per()
+            ),
+            query: t.query(source, filter)?,
+        },
+        layout: layout,
     })
 }
 
@@ -341,7 +370,7 @@ pub fn residuals(
     filter: Option<&Expr>,
     design: &Design,
     models: &Models,
-) -> Result<Pass, SqlError> {
+) -> Result<Built<ResidualLayout>, SqlError> {
     let mut t = PassText::new(flavor);
     let rows = design.rows(&mut t)?;
     let k = design.terms.len();
@@ -352,13 +381,19 @@ pub fn residuals(
     ];
     let from = format!("(SELECT *, y - ({fitted}) AS e FROM ({rows}) AS rows_) AS residuals_");
     t.sql = t.aggregate(k, &design.key_names(), &outs, &from);
-    Ok(Pass {
-        name: "residuals".into(),
-        purpose: format!(
-            "residual moments of the outcome models at their fitted coefficients (HC1 meat){}",
-            design.per()
-        ),
-        query: t.query(source, filter)?,
+    Ok(Built {
+        pass: Pass {
+            name: "residuals".into(),
+            purpose: format!(
+                "residual moments of the outcome models at their fitted coefficients (HC1 meat){}",
+                design.per()
+            ),
+            query: t.query(source, filter)?,
+        },
+        layout: ResidualLayout {
+            keys: design.keys.len(),
+            width: k + 1,
+        },
     })
 }
 
@@ -371,7 +406,7 @@ pub fn levels(
     filter: Option<&Expr>,
     columns: &[String],
     complete: &[String],
-) -> Result<Pass, SqlError> {
+) -> Result<Built<LevelsLayout>, SqlError> {
     let mut t = PassText::new(flavor);
     let d = flavor.dialect;
     let mut branches = Vec::new();
@@ -387,10 +422,13 @@ pub fn levels(
         "SELECT which, level, n FROM ({}) AS levels_ ORDER BY which, level",
         branches.join(" UNION ALL ")
     );
-    Ok(Pass {
-        name: "levels".into(),
-        purpose: format!("the levels of {} and their row counts", columns.join(", ")),
-        query: t.query(source, filter)?,
+    Ok(Built {
+        pass: Pass {
+            name: "levels".into(),
+            purpose: format!("the levels of {} and their row counts", columns.join(", ")),
+            query: t.query(source, filter)?,
+        },
+        layout: LevelsLayout,
     })
 }
 

@@ -99,7 +99,8 @@ fn passes(f: &Flavor) -> Vec<Pass> {
                 },
             ],
         )
-        .unwrap(),
+        .unwrap()
+        .pass,
         cells(
             f,
             &q,
@@ -107,7 +108,8 @@ fn passes(f: &Flavor) -> Vec<Pass> {
             &["tenure_band".into(), "voucher".into()],
             "spend_30d",
         )
-        .unwrap(),
+        .unwrap()
+        .pass,
         gram(
             f,
             &src,
@@ -135,7 +137,8 @@ fn passes(f: &Flavor) -> Vec<Pass> {
                 &[],
             ),
         )
-        .unwrap(),
+        .unwrap()
+        .pass,
         logistic_fits(
             f,
             &src,
@@ -160,7 +163,8 @@ fn passes(f: &Flavor) -> Vec<Pass> {
             &Models::single(vec![0.25, -0.75, 1.0 / 3.0]),
             Variants::Single,
         )
-        .unwrap(),
+        .unwrap()
+        .pass,
         residuals(
             f,
             &src,
@@ -176,7 +180,8 @@ fn passes(f: &Flavor) -> Vec<Pass> {
             ),
             &Models::single(vec![80.5, 8.0]),
         )
-        .unwrap(),
+        .unwrap()
+        .pass,
     ]
 }
 
@@ -195,7 +200,8 @@ fn crossfit_passes(f: &Flavor) -> Vec<(String, Pass)> {
                 &["zone".into(), "mail wave".into()],
                 &["zone".into(), "mail wave".into(), "voucher".into()],
             )
-            .unwrap(),
+            .unwrap()
+        .pass,
         ),
         (
             "logistic-crossfit".into(),
@@ -207,7 +213,8 @@ fn crossfit_passes(f: &Flavor) -> Vec<(String, Pass)> {
                 &fold_models(0.0),
                 Variants::Complement(2),
             )
-            .unwrap(),
+            .unwrap()
+        .pass,
         ),
         (
             "logistic-by-fold".into(),
@@ -219,7 +226,8 @@ fn crossfit_passes(f: &Flavor) -> Vec<(String, Pass)> {
                 &Models::single(vec![0.1, 0.2, 0.3]),
                 Variants::ByFold,
             )
-            .unwrap(),
+            .unwrap()
+        .pass,
         ),
         (
             "logistic-scores".into(),
@@ -231,7 +239,8 @@ fn crossfit_passes(f: &Flavor) -> Vec<(String, Pass)> {
                 &fold_models(0.0),
                 Variants::ComplementScores(2),
             )
-            .unwrap(),
+            .unwrap()
+        .pass,
         ),
     ]
 }

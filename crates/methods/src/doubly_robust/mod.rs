@@ -19,10 +19,10 @@ use crate::propensity::{
 };
 use crate::read::row_of;
 use crate::{ask, Estimate, MethodError, Outcome, Runner};
-use passes::{augmented_sums, Nuisances};
-use upshot_sql::{gram, KeyValue, Models, Pass};
+use passes::{augmented_sums, AugmentedLayout, Nuisances};
+use upshot_sql::{gram, Built, GramLayout, KeyValue, Models, Pass};
 
-fn gram_pass(s: &Setup) -> Result<Pass, MethodError> {
+fn gram_pass(s: &Setup) -> Result<Built<GramLayout>, MethodError> {
     let spec = s.spec;
     Ok(gram(
         &spec.flavor,
@@ -32,7 +32,12 @@ fn gram_pass(s: &Setup) -> Result<Pass, MethodError> {
     )?)
 }
 
-fn scores_pass(s: &Setup, e: &Models, m1: &Models, m0: &Models) -> Result<Pass, MethodError> {
+fn scores_pass(
+    s: &Setup,
+    e: &Models,
+    m1: &Models,
+    m0: &Models,
+) -> Result<Built<AugmentedLayout>, MethodError> {
     let spec = s.spec;
     Ok(augmented_sums(
         &spec.flavor,
@@ -54,19 +59,19 @@ pub(crate) fn passes(s: &Setup) -> Result<Vec<Pass>, MethodError> {
     let m = fold_models(s, &segs, &coef);
     if !needs_folds(s.spec) {
         return Ok(vec![
-            gram_pass(s)?,
-            complement_pass(s, &m)?,
-            scores_pass(s, &m, &m, &m)?,
+            gram_pass(s)?.pass,
+            complement_pass(s, &m)?.pass,
+            scores_pass(s, &m, &m, &m)?.pass,
         ]);
     }
     // Cross-fitting: each segment's propensity on all its rows (Newton), then the fits leaving
     // one fold out (scores only; full Newton passes only if those do not settle).
     let whole = per_segment(&segs, &vec![vec![0.0; s.terms.len() + 1]; segs.len()]);
     Ok(vec![
-        gram_pass(s)?,
-        by_fold_pass(s, &whole)?,
-        scores_pass_only(s, &m)?,
-        scores_pass(s, &m, &m, &m)?,
+        gram_pass(s)?.pass,
+        by_fold_pass(s, &whole)?.pass,
+        scores_pass_only(s, &m)?.pass,
+        scores_pass(s, &m, &m, &m)?.pass,
     ])
 }
 
@@ -78,8 +83,9 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     names.push(spec.outcome.clone());
     let mut terms = s.terms.clone();
     terms.push(s.outcome_term.clone());
-    let g = ask(r, &gram_pass(s)?)?;
-    let comp = complement_moments(s, &g, &names, &terms, true)?;
+    let gp = gram_pass(s)?;
+    let g = ask(r, &gp)?;
+    let comp = complement_moments(s, &gp.layout, &g, &names, &terms, true)?;
     let x: Vec<usize> = (0..p).collect();
     let segs: Vec<Vec<KeyValue>> = comp.iter().map(|c| c.0.clone()).collect();
     let mut coef1 = Vec::new();
@@ -110,15 +116,13 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     // Propensity: nseg × k models. With cross-fitting, each segment's model is first fitted on
     // all its rows, and the fold-leaving-out fits step from it with that fit's curvature.
     let ecoef = cross_fitted_propensity(s, r, &segs)?;
-    let sc = ask(
-        r,
-        &scores_pass(
-            s,
-            &fold_models(s, &segs, &ecoef),
-            &fold_models(s, &segs, &coef1),
-            &fold_models(s, &segs, &coef0),
-        )?,
+    let sp = scores_pass(
+        s,
+        &fold_models(s, &segs, &ecoef),
+        &fold_models(s, &segs, &coef1),
+        &fold_models(s, &segs, &coef0),
     )?;
+    let sc = ask(r, &sp)?;
     let mut out = Outcome {
         estimates: vec![],
         diagnostics: Default::default(),
@@ -126,17 +130,17 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     let mut parts = Vec::new();
     for seg in &segs {
         let row = row_of(&sc, seg)?;
-        let g = |n: &str| sc.number_or(row, n, 0.0);
-        let (n, n1) = (sc.number(row, "n")?, g("n1")?);
-        let (sn, snn, sdn, sd) = (g("sn")?, g("snn")?, g("sdn")?, g("sd")?);
+        let a = sp.layout.read(&sc, row)?;
+        let (n, n1) = (a.n, a.n1);
+        let (sn, snn, sdn, sd) = (a.sn, a.snn, a.sdn, a.sd);
         let tau = sn / sd;
         let var = (snn - 2.0 * tau * sdn + tau * tau * sd) / (sd * sd);
-        let (clipped1, clipped0) = (g("clipped1")?, g("clipped0")?);
+        let (clipped1, clipped0) = (a.clipped1, a.clipped0);
         out.diagnostics.notes.push(format!(
             "{}: cross-fitted propensity from {:.4} to {:.4}{}",
             segment_label(s, seg),
-            g("min_e")?,
-            g("max_e")?,
+            a.min_e,
+            a.max_e,
             if clipped1 + clipped0 > 0.0 {
                 format!(
                     "; {clipped1} treated and {clipped0} untreated rows had propensities clipped to [{}, {}]",

@@ -1,7 +1,7 @@
 //! The augmented score pass of `doubly-robust`.
 
 use upshot_sql::design::{predictor, propensity_columns, Out, PassText};
-use upshot_sql::{Design, Expr, Flavor, Models, Pass, Source, SqlError};
+use upshot_sql::{Aggregates, Built, Design, Expr, Flavor, Models, ResultError, Source, SqlError};
 use upshot_study::Estimand;
 
 /// The nuisance models of the augmented score pass and what it targets.
@@ -29,7 +29,7 @@ pub(crate) fn augmented_sums(
     filter: Option<&Expr>,
     design: &Design,
     models: &Nuisances,
-) -> Result<Pass, SqlError> {
+) -> Result<Built<AugmentedLayout>, SqlError> {
     let Nuisances {
         propensity,
         treated,
@@ -72,7 +72,8 @@ pub(crate) fn augmented_sums(
         "(SELECT *, {num} AS num, {den} AS den FROM (SELECT *, {e}, {m1} AS m1, {m0} AS m0 FROM (SELECT *, {eta} FROM ({rows}) AS rows_) AS linear_) AS nuisance_) AS scores_"
     );
     t.sql = t.aggregate(k, &design.key_names(), &outs, &from);
-    t.finish(
+    Ok(Built {
+        pass: t.finish(
         "scores",
         format!(
             "augmented inverse-probability-weighted scores from the cross-fitted propensity and outcome models: sum and sum of squares{}",
@@ -80,9 +81,49 @@ pub(crate) fn augmented_sums(
         ),
         source,
         filter,
-    )
+        )?,
+        layout: AugmentedLayout,
+    })
 }
 
+
+/// The augmented score pass's sums of one group.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub(crate) struct AugmentedSums {
+    pub n: f64,
+    pub n1: f64,
+    /// `Σ num`, `Σ num²`, `Σ d·num`, `Σ d` (the estimate is `sn / sd`).
+    pub sn: f64,
+    pub snn: f64,
+    pub sdn: f64,
+    pub sd: f64,
+    pub clipped1: f64,
+    pub clipped0: f64,
+    pub min_e: f64,
+    pub max_e: f64,
+}
+
+/// The layout of the augmented score pass.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub(crate) struct AugmentedLayout;
+
+impl AugmentedLayout {
+    pub(crate) fn read(&self, a: &Aggregates, row: usize) -> Result<AugmentedSums, ResultError> {
+        let g = |n: &str| a.number_or(row, n, 0.0);
+        Ok(AugmentedSums {
+            n: a.number(row, "n")?,
+            n1: g("n1")?,
+            sn: g("sn")?,
+            snn: g("snn")?,
+            sdn: g("sdn")?,
+            sd: g("sd")?,
+            clipped1: g("clipped1")?,
+            clipped0: g("clipped0")?,
+            min_e: g("min_e")?,
+            max_e: g("max_e")?,
+        })
+    }
+}
 
 #[cfg(test)]
 mod tests {

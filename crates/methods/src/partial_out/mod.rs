@@ -15,11 +15,11 @@ use crate::models::{fold_models, placeholder};
 use crate::prepare::Setup;
 use crate::read::{keys, row_of};
 use crate::{ask, Estimand, Estimate, MethodError, Outcome, Runner, Segment};
-use passes::partial_out_sums;
+use passes::{partial_out_sums, PartialOutLayout};
 use upshot_fit::ols;
-use upshot_sql::{gram, KeyValue, Pass};
+use upshot_sql::{gram, Built, GramLayout, KeyValue, Pass};
 
-fn gram_pass(s: &Setup) -> Result<Pass, MethodError> {
+fn gram_pass(s: &Setup) -> Result<Built<GramLayout>, MethodError> {
     let spec = s.spec;
     Ok(gram(
         &spec.flavor,
@@ -38,7 +38,7 @@ fn scores_pass(
     segs: &[Vec<KeyValue>],
     ct: &[Vec<Vec<f64>>],
     cy: &[Vec<Vec<f64>>],
-) -> Result<Pass, MethodError> {
+) -> Result<Built<PartialOutLayout>, MethodError> {
     let spec = s.spec;
     Ok(partial_out_sums(
         &spec.flavor,
@@ -52,10 +52,13 @@ fn scores_pass(
 
 pub(crate) fn passes(s: &Setup) -> Result<Vec<Pass>, MethodError> {
     let (segs, coef) = placeholder(s);
-    Ok(vec![gram_pass(s)?, scores_pass(s, &segs, &coef, &coef)?])
+    Ok(vec![
+        gram_pass(s)?.pass,
+        scores_pass(s, &segs, &coef, &coef)?.pass,
+    ])
 }
 
-struct Sums {
+pub(crate) struct Sums {
     n: f64,
     stt: f64,
     sty: f64,
@@ -91,8 +94,9 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     let mut terms = s.terms.clone();
     terms.push(s.treatment_term.clone());
     terms.push(s.outcome_term.clone());
-    let g = ask(r, &gram_pass(s)?)?;
-    let comp = complement_moments(s, &g, &names, &terms, false)?;
+    let gp = gram_pass(s)?;
+    let g = ask(r, &gp)?;
+    let comp = complement_moments(s, &gp.layout, &g, &names, &terms, false)?;
     let x: Vec<usize> = (0..p).collect();
     let k = folds(s) as usize;
     let segs: Vec<Vec<KeyValue>> = comp.iter().map(|c| c.0.clone()).collect();
@@ -135,7 +139,8 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
         ct.push(a);
         cy.push(b);
     }
-    let sc = ask(r, &scores_pass(s, &segs, &ct, &cy)?)?;
+    let sp = scores_pass(s, &segs, &ct, &cy)?;
+    let sc = ask(r, &sp)?;
     let mut parts = Vec::new();
     let mut pooled = Sums {
         n: 0.0,
@@ -148,15 +153,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     let mut seg_sums = Vec::new();
     for seg in &segs {
         let row = row_of(&sc, seg)?;
-        let g = |n: &str| sc.number_or(row, n, 0.0);
-        let sums = Sums {
-            n: sc.number(row, "n")?,
-            stt: g("stt")?,
-            sty: g("sty")?,
-            s22: g("s22")?,
-            s31: g("s31")?,
-            s40: g("s40")?,
-        };
+        let sums = sp.layout.read(&sc, row)?;
         pooled.n += sums.n;
         pooled.stt += sums.stt;
         pooled.sty += sums.sty;
@@ -174,7 +171,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
         let mut n = 0.0;
         for row in 0..g.rows.len() {
             if keys(&g, row, nseg).ok().as_ref() == Some(seg) {
-                let m = crate::read::moments(&g, row, &names, &terms).ok()?;
+                let m = crate::read::moments(&gp.layout, &g, row, &names, &terms).ok()?;
                 n1 += m.mean(p) * m.n;
                 n += m.n;
             }

@@ -1,7 +1,7 @@
 //! The score pass of `partial-out`.
 
 use upshot_sql::design::{predictor, Out, PassText};
-use upshot_sql::{Design, Expr, Flavor, Models, Pass, Source, SqlError};
+use upshot_sql::{Aggregates, Built, Design, Expr, Flavor, Models, ResultError, Source, SqlError};
 
 /// The partialled-out score pass: with each row's cross-fitted linear models of the treatment
 /// (`gt`) and the outcome (`gy`) inlined and residuals `rt = t - gt`, `ry = y - gy`, per group
@@ -13,7 +13,7 @@ pub(crate) fn partial_out_sums(
     design: &Design,
     treatment: &Models,
     outcome: &Models,
-) -> Result<Pass, SqlError> {
+) -> Result<Built<PartialOutLayout>, SqlError> {
     let mut t = PassText::new(flavor);
     let rows = design.rows(&mut t)?;
     let k = design.terms.len();
@@ -33,7 +33,8 @@ pub(crate) fn partial_out_sums(
         "(SELECT *, t - ({gt}) AS rt, y - ({gy}) AS ry FROM ({rows}) AS rows_) AS residuals_"
     );
     t.sql = t.aggregate(k, &design.key_names(), &outs, &from);
-    t.finish(
+    Ok(Built {
+        pass: t.finish(
         "scores",
         format!(
             "residuals of treatment and outcome on the covariates (cross-fitted models): their sums of products{}",
@@ -41,9 +42,30 @@ pub(crate) fn partial_out_sums(
         ),
         source,
         filter,
-    )
+        )?,
+        layout: PartialOutLayout,
+    })
 }
 
+
+/// The layout of the partialled-out score pass: per group `n`, `Σ rt²`, `Σ rt ry`,
+/// `Σ rt² ry²`, `Σ rt³ ry`, `Σ rt⁴`.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub(crate) struct PartialOutLayout;
+
+impl PartialOutLayout {
+    pub(crate) fn read(&self, a: &Aggregates, row: usize) -> Result<super::Sums, ResultError> {
+        let g = |n: &str| a.number_or(row, n, 0.0);
+        Ok(super::Sums {
+            n: a.number(row, "n")?,
+            stt: g("stt")?,
+            sty: g("sty")?,
+            s22: g("s22")?,
+            s31: g("s31")?,
+            s40: g("s40")?,
+        })
+    }
+}
 
 #[cfg(test)]
 mod tests {

@@ -8,11 +8,14 @@
 use crate::combine::{finish, segment, segment_label, Part};
 use crate::outcome::{covariate_moments, fit_arm, gram_design};
 use crate::prepare::Setup;
-use crate::read::{by_segment, keys, moments, row_of, upper_matrix};
+use crate::read::{by_segment, moments, row_of, symmetric};
 use crate::{ask, Estimand, Estimate, MethodError, Outcome, Runner};
 use nalgebra::DVector;
 use upshot_fit::{Moments, Ols};
-use upshot_sql::{gram, residuals, Design, Key, KeyValue, Model, Models, Pass, Selector};
+use upshot_sql::{
+    gram, residuals, Built, Design, GramLayout, Key, KeyValue, Model, Models, Pass, ResidualLayout,
+    Selector,
+};
 
 fn residual_design(s: &Setup) -> Design {
     let spec = s.spec;
@@ -30,7 +33,7 @@ fn residual_design(s: &Setup) -> Design {
     }
 }
 
-pub(crate) fn gram_pass(s: &Setup) -> Result<Pass, MethodError> {
+fn gram_pass(s: &Setup) -> Result<Built<GramLayout>, MethodError> {
     let spec = s.spec;
     Ok(gram(
         &spec.flavor,
@@ -40,7 +43,7 @@ pub(crate) fn gram_pass(s: &Setup) -> Result<Pass, MethodError> {
     )?)
 }
 
-pub(crate) fn residual_pass(s: &Setup, models: &Models) -> Result<Pass, MethodError> {
+fn residual_pass(s: &Setup, models: &Models) -> Result<Built<ResidualLayout>, MethodError> {
     let spec = s.spec;
     Ok(residuals(
         &spec.flavor,
@@ -78,8 +81,8 @@ pub(crate) fn placeholder_models(s: &Setup) -> Models {
 
 pub(crate) fn passes(s: &Setup) -> Result<Vec<Pass>, MethodError> {
     Ok(vec![
-        gram_pass(s)?,
-        residual_pass(s, &placeholder_models(s))?,
+        gram_pass(s)?.pass,
+        residual_pass(s, &placeholder_models(s))?.pass,
     ])
 }
 
@@ -91,7 +94,8 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     names.push(spec.outcome.clone());
     let mut terms = s.terms.clone();
     terms.push(s.outcome_term.clone());
-    let g = ask(r, &gram_pass(s)?)?;
+    let gp = gram_pass(s)?;
+    let g = ask(r, &gp)?;
     struct Seg {
         key: Vec<KeyValue>,
         arms: [Moments; 2],
@@ -102,9 +106,9 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     for (key, rows) in by_segment(&g, nseg)? {
         let mut arm: [Option<Moments>; 2] = [None, None];
         for row in rows {
-            let k = keys(&g, row, nseg + 1)?;
+            let k = gp.layout.keys(&g, row)?;
             let idx = usize::from(k[nseg] == KeyValue::Number(1.0));
-            arm[idx] = Some(moments(&g, row, &names, &terms)?);
+            arm[idx] = Some(moments(&gp.layout, &g, row, &names, &terms)?);
         }
         let label = segment_label(s, &key);
         let get = |i: usize, word: &str| {
@@ -140,7 +144,8 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
         },
         models,
     };
-    let res = ask(r, &residual_pass(s, &models)?)?;
+    let rp = residual_pass(s, &models)?;
+    let res = ask(r, &rp)?;
     let mut parts = Vec::new();
     for seg in segs {
         let mut cov = Vec::new();
@@ -148,7 +153,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
             let mut group = seg.key.clone();
             group.push(KeyValue::Number(a as f64));
             let row = row_of(&res, &group)?;
-            let meat = upper_matrix(&res, row, "r", p + 1)?;
+            let meat = symmetric(&rp.layout.meat(&res, row)?, p + 1);
             let x: Vec<usize> = (0..p).collect();
             cov.push(
                 seg.fits[a]

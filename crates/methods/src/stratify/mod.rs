@@ -5,27 +5,32 @@
 
 use crate::combine::{finish, segment, segment_label, Part};
 use crate::prepare::Setup;
-use crate::read::{by_segment, key_value};
+use crate::read::by_segment;
 use crate::{ask, Estimand, Estimate, MethodError, Outcome, Runner};
-use upshot_sql::{cells, KeyValue, Pass};
+use upshot_sql::{cells, Built, CellsLayout, KeyValue, Pass};
 
 /// Most distinct values a numeric adjustment column may have to count as discrete.
 pub const MAX_STRATUM_VALUES: f64 = 50.0;
 /// Cell counts beyond this get a warning: most cells then hold a handful of rows.
 pub const MANY_CELLS: usize = 1000;
 
-pub(crate) fn passes(s: &Setup) -> Result<Vec<Pass>, MethodError> {
+/// The cell table: per segment, stratum and arm, `n`, `Σ y`, `Σ y²`.
+fn cells_pass(s: &Setup) -> Result<Built<CellsLayout>, MethodError> {
     let spec = s.spec;
     let mut keys = spec.segments.clone();
     keys.extend(crate::prepare::modelled(spec));
     keys.push(spec.treatment.clone());
-    Ok(vec![cells(
+    Ok(cells(
         &spec.flavor,
         &spec.source,
         s.filter.as_ref(),
         &keys,
         &spec.outcome,
-    )?])
+    )?)
+}
+
+pub(crate) fn passes(s: &Setup) -> Result<Vec<Pass>, MethodError> {
+    Ok(vec![cells_pass(s)?.pass])
 }
 
 #[derive(Default, Clone, Copy)]
@@ -81,7 +86,8 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
             }
         }
     }
-    let a = ask(r, &passes(s)?[0])?;
+    let cp = cells_pass(s)?;
+    let a = ask(r, &cp)?;
     let nseg = spec.segments.len();
     let nadj = crate::prepare::modelled(spec).len();
     let mut out = Outcome {
@@ -101,17 +107,13 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
         // strata of this segment: key values -> arms
         let mut strata: Vec<(Vec<KeyValue>, [Arm; 2])> = Vec::new();
         for row in rows {
-            let mut k = Vec::new();
-            for i in nseg..nseg + nadj {
-                k.push(key_value(a.cell(row, &format!("k{i}"))?));
-            }
-            let arm = a.number(row, &format!("k{}", nseg + nadj))?;
-            let cell = Arm {
-                n: a.number(row, "n")?,
-                sy: a.number(row, "sy")?,
-                syy: a.number(row, "syy")?,
-            };
-            let idx = usize::from(arm == 1.0);
+            let mut k = cp.layout.keys(&a, row)?;
+            let arm = k.pop();
+            let k = k.split_off(nseg);
+            debug_assert_eq!(k.len(), nadj);
+            let (n, sy, syy) = cp.layout.sums(&a, row)?;
+            let cell = Arm { n, sy, syy };
+            let idx = usize::from(arm == Some(KeyValue::Number(1.0)));
             match strata.iter_mut().find(|(v, _)| *v == k) {
                 Some((_, arms)) => arms[idx] = cell,
                 None => {

@@ -14,13 +14,13 @@ use crate::combine::{finish, segment, segment_label, target_size, Part};
 use crate::prepare::Setup;
 use crate::models::{per_segment, placeholder_segments};
 use crate::propensity::{design, fit_propensity, logistic_pass};
-use crate::read::{row_of, upper_matrix, vector};
+use crate::read::{row_of, symmetric};
 use crate::{ask, Estimate, MethodError, Outcome, Runner};
 use nalgebra::DVector;
-use passes::weighting_sums;
-use upshot_sql::{Models, Pass};
+use passes::{weighting_sums, WeightingLayout};
+use upshot_sql::{Built, Models, Pass};
 
-fn weights_pass(s: &Setup, models: &Models) -> Result<Pass, MethodError> {
+fn weights_pass(s: &Setup, models: &Models) -> Result<Built<WeightingLayout>, MethodError> {
     let spec = s.spec;
     Ok(weighting_sums(
         &spec.flavor,
@@ -37,7 +37,10 @@ pub(crate) fn passes(s: &Setup) -> Result<Vec<Pass>, MethodError> {
     let segs = placeholder_segments(s);
     let zero = vec![vec![0.0; s.terms.len() + 1]];
     let models = per_segment(&segs, &zero);
-    Ok(vec![logistic_pass(s, &models)?, weights_pass(s, &models)?])
+    Ok(vec![
+        logistic_pass(s, &models)?.pass,
+        weights_pass(s, &models)?.pass,
+    ])
 }
 
 /// Below this share of an arm's rows, the weights' effective sample size draws a warning.
@@ -48,7 +51,8 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     let k = s.terms.len() + 1;
     let (segs, fits) = fit_propensity(s, r)?;
     let coefs: Vec<Vec<f64>> = fits.iter().map(|f| f.coef.clone()).collect();
-    let w = ask(r, &weights_pass(s, &per_segment(&segs, &coefs))?)?;
+    let wp = weights_pass(s, &per_segment(&segs, &coefs))?;
+    let w = ask(r, &wp)?;
     let mut out = Outcome {
         estimates: vec![],
         diagnostics: Default::default(),
@@ -56,20 +60,15 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     let mut parts = Vec::new();
     for (key, fit) in segs.iter().zip(&fits) {
         let row = row_of(&w, key)?;
-        let g = |n: &str| w.number_or(row, n, 0.0);
-        let (n, n1) = (w.number(row, "n")?, g("n1")?);
-        let (a1, b1, a0, b0) = (g("a1")?, g("b1")?, g("a0")?, g("b0")?);
+        let ws = wp.layout.read(&w, row)?;
+        let (n, n1) = (ws.n, ws.n1);
+        let (a1, b1, a0, b0) = (ws.a1, ws.b1, ws.a0, ws.b0);
         let (mu1, mu0) = (b1 / a1, b0 / a0);
         let tau = mu1 - mu0;
-        let d1 = vector(&w, row, "d1_", k)?;
-        let d1y = vector(&w, row, "d1y_", k)?;
-        let d0 = vector(&w, row, "d0_", k)?;
-        let d0y = vector(&w, row, "d0y_", k)?;
-        let c1 = vector(&w, row, "c1_", k)?;
-        let c1y = vector(&w, row, "c1y_", k)?;
-        let c0 = vector(&w, row, "c0_", k)?;
-        let c0y = vector(&w, row, "c0y_", k)?;
-        let ss = upper_matrix(&w, row, "s", k)?;
+        let v = |x: &[f64]| DVector::from_column_slice(x);
+        let (d1, d1y, d0, d0y) = (v(&ws.d1), v(&ws.d1y), v(&ws.d0), v(&ws.d0y));
+        let (c1, c1y, c0, c0y) = (v(&ws.c1), v(&ws.c1y), v(&ws.c0), v(&ws.c0y));
+        let ss = symmetric(&ws.s, k);
         let gvec: DVector<f64> = (&d1y - &d1 * mu1) / a1 - (&d0y - &d0 * mu0) / a0;
         let h = fit
             .information
@@ -82,8 +81,8 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
                     segment_label(s, key)
                 ))
             })?;
-        let psi1 = g("q1yy")? - 2.0 * mu1 * g("q1y")? + mu1 * mu1 * g("q1")?;
-        let psi0 = g("q0yy")? - 2.0 * mu0 * g("q0y")? + mu0 * mu0 * g("q0")?;
+        let psi1 = ws.q1yy - 2.0 * mu1 * ws.q1y + mu1 * mu1 * ws.q1;
+        let psi0 = ws.q0yy - 2.0 * mu0 * ws.q0y + mu0 * mu0 * ws.q0;
         let cross1 = &c1y - &c1 * mu1;
         let cross0 = -(&c0y - &c0 * mu0);
         let var = psi1 / (a1 * a1)
@@ -92,9 +91,9 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
             + 2.0 * h.dot(&cross1) / a1
             - 2.0 * h.dot(&cross0) / a0;
         let label = segment_label(s, key);
-        let (clipped1, clipped0) = (g("clipped1")?, g("clipped0")?);
-        let (min_e, max_e) = (g("min_e")?, g("max_e")?);
-        let (ess1, ess0) = (a1 * a1 / g("q1")?, a0 * a0 / g("q0")?);
+        let (clipped1, clipped0) = (ws.clipped1, ws.clipped0);
+        let (min_e, max_e) = (ws.min_e, ws.max_e);
+        let (ess1, ess0) = (a1 * a1 / ws.q1, a0 * a0 / ws.q0);
         out.diagnostics.notes.push(format!(
             "{label}: propensity from {min_e:.4} to {max_e:.4}; effective sample size of the weights: treated {:.0} of {n1}, untreated {:.0} of {}{}",
             ess1,

@@ -1,7 +1,7 @@
 //! The weighting pass of `weight`.
 
 use upshot_sql::design::{factor, products_of, propensity_columns, Out, PassText};
-use upshot_sql::{Design, Expr, Flavor, Models, Pass, Source, SqlError};
+use upshot_sql::{Aggregates, Built, Design, Expr, Flavor, Models, ResultError, Source, SqlError};
 use upshot_study::Estimand;
 
 /// The weighting pass (Hajek estimator with stacked-equation variance): per group, with the
@@ -18,7 +18,7 @@ pub(crate) fn weighting_sums(
     propensity: &Models,
     target: Estimand,
     clip: f64,
-) -> Result<Pass, SqlError> {
+) -> Result<Built<WeightingLayout>, SqlError> {
     let mut t = PassText::new(flavor);
     let rows = design.rows(&mut t)?;
     let k = design.terms.len();
@@ -81,7 +81,8 @@ pub(crate) fn weighting_sums(
         "(SELECT *, {w1} AS w1, {w1d} AS w1d, {w0} AS w0, {w0d} AS w0d FROM (SELECT *, {e} FROM (SELECT *, {eta} FROM ({rows}) AS rows_) AS linear_) AS propensity_) AS weighted_"
     );
     t.sql = t.aggregate(k, &design.key_names(), &outs, &from);
-    t.finish(
+    Ok(Built {
+        pass: t.finish(
         "weights",
         format!(
             "inverse-probability-weighted outcome sums by arm, with the terms of their stacked-equation variance{}",
@@ -89,9 +90,95 @@ pub(crate) fn weighting_sums(
         ),
         source,
         filter,
-    )
+        )?,
+        layout: WeightingLayout { width: k + 1 },
+    })
 }
 
+
+/// The weighting pass's sums of one group.
+#[derive(Clone, Debug, PartialEq)]
+pub(crate) struct WeightingSums {
+    pub n: f64,
+    pub n1: f64,
+    pub a1: f64,
+    pub b1: f64,
+    pub q1: f64,
+    pub q1y: f64,
+    pub q1yy: f64,
+    pub a0: f64,
+    pub b0: f64,
+    pub q0: f64,
+    pub q0y: f64,
+    pub q0yy: f64,
+    pub clipped1: f64,
+    pub clipped0: f64,
+    pub min_e: f64,
+    pub max_e: f64,
+    /// Per design entry `w_i`: the derivative terms of the weighted means.
+    pub d1: Vec<f64>,
+    pub d1y: Vec<f64>,
+    pub d0: Vec<f64>,
+    pub d0y: Vec<f64>,
+    /// Per design entry: the cross terms with the logistic score.
+    pub c1: Vec<f64>,
+    pub c1y: Vec<f64>,
+    pub c0: Vec<f64>,
+    pub c0y: Vec<f64>,
+    /// The score's outer product `Σ (t − e)² w_i w_j`, `i ≤ j`, row by row.
+    pub s: Vec<f64>,
+}
+
+/// The layout of the weighting pass.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub(crate) struct WeightingLayout {
+    /// `1 +` design terms.
+    pub width: usize,
+}
+
+impl WeightingLayout {
+    pub(crate) fn read(&self, a: &Aggregates, row: usize) -> Result<WeightingSums, ResultError> {
+        let g = |n: &str| a.number_or(row, n, 0.0);
+        let v = |prefix: &str| -> Result<Vec<f64>, ResultError> {
+            (0..self.width)
+                .map(|i| a.number_or(row, &format!("{prefix}{i}"), 0.0))
+                .collect()
+        };
+        let mut s = Vec::new();
+        for i in 0..self.width {
+            for j in i..self.width {
+                s.push(g(&format!("s{i}_{j}"))?);
+            }
+        }
+        Ok(WeightingSums {
+            n: a.number(row, "n")?,
+            n1: g("n1")?,
+            a1: g("a1")?,
+            b1: g("b1")?,
+            q1: g("q1")?,
+            q1y: g("q1y")?,
+            q1yy: g("q1yy")?,
+            a0: g("a0")?,
+            b0: g("b0")?,
+            q0: g("q0")?,
+            q0y: g("q0y")?,
+            q0yy: g("q0yy")?,
+            clipped1: g("clipped1")?,
+            clipped0: g("clipped0")?,
+            min_e: g("min_e")?,
+            max_e: g("max_e")?,
+            d1: v("d1_")?,
+            d1y: v("d1y_")?,
+            d0: v("d0_")?,
+            d0y: v("d0y_")?,
+            c1: v("c1_")?,
+            c1y: v("c1y_")?,
+            c0: v("c0_")?,
+            c0y: v("c0y_")?,
+            s,
+        })
+    }
+}
 
 #[cfg(test)]
 mod tests {

@@ -1,0 +1,283 @@
+//! Typed layouts of pass results: each builder returns its pass with a layout, and callers
+//! read the few result rows through it — by meaning (`n`, the sums of a Gram block, a logistic
+//! fit's score) rather than by column names, which only the builder and its layout know.
+
+use crate::aggregates::{Aggregates, Cell, ResultError};
+use crate::design::{KeyValue, Pass};
+
+/// A pass and the layout of its result.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Built<L> {
+    /// The pass.
+    pub pass: Pass,
+    /// How to read its result rows.
+    pub layout: L,
+}
+
+impl<L> std::ops::Deref for Built<L> {
+    type Target = Pass;
+    fn deref(&self) -> &Pass {
+        &self.pass
+    }
+}
+
+impl KeyValue {
+    /// A group key's value as a pass returned it (NULL reads as the text `NULL`).
+    pub fn from_cell(c: &Cell) -> KeyValue {
+        match c {
+            Cell::Number(x) => KeyValue::Number(*x),
+            Cell::Text(t) => KeyValue::Text(t.clone()),
+            Cell::Null => KeyValue::Text("NULL".into()),
+        }
+    }
+}
+
+/// The values of the first `n` group keys of a result row (every grouped pass names its keys
+/// `k0`, `k1`, ... in the order of its design's keys).
+pub fn group_keys(a: &Aggregates, row: usize, n: usize) -> Result<Vec<KeyValue>, ResultError> {
+    (0..n)
+        .map(|i| Ok(KeyValue::from_cell(a.cell(row, &format!("k{i}"))?)))
+        .collect()
+}
+
+fn upper(a: &Aggregates, row: usize, prefix: &str, p: usize) -> Result<Vec<f64>, ResultError> {
+    let mut out = Vec::with_capacity(p * (p + 1) / 2);
+    for i in 0..p {
+        for j in i..p {
+            out.push(a.number_or(row, &format!("{prefix}{i}_{j}"), 0.0)?);
+        }
+    }
+    Ok(out)
+}
+
+fn vector(a: &Aggregates, row: usize, prefix: &str, p: usize) -> Result<Vec<f64>, ResultError> {
+    (0..p)
+        .map(|i| a.number_or(row, &format!("{prefix}{i}"), 0.0))
+        .collect()
+}
+
+/// The layout of a centred Gram pass over `terms` design terms.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct GramLayout {
+    /// Group keys.
+    pub keys: usize,
+    /// Design terms.
+    pub terms: usize,
+}
+
+impl GramLayout {
+    /// The row's group keys.
+    pub fn keys(&self, a: &Aggregates, row: usize) -> Result<Vec<KeyValue>, ResultError> {
+        group_keys(a, row, self.keys)
+    }
+    /// Rows in the group.
+    pub fn n(&self, a: &Aggregates, row: usize) -> Result<f64, ResultError> {
+        a.number(row, "n")
+    }
+    /// `Σ v_i` per term.
+    pub fn sums(&self, a: &Aggregates, row: usize) -> Result<Vec<f64>, ResultError> {
+        vector(a, row, "s", self.terms)
+    }
+    /// `Σ v_i v_j`, `i ≤ j`, row by row (the upper triangle).
+    pub fn products(&self, a: &Aggregates, row: usize) -> Result<Vec<f64>, ResultError> {
+        upper(a, row, "g", self.terms)
+    }
+}
+
+/// The layout of a residual-moments pass: `Σ e² w_i w_j` over `w = (1, v...)`.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct ResidualLayout {
+    /// Group keys.
+    pub keys: usize,
+    /// `1 +` design terms.
+    pub width: usize,
+}
+
+impl ResidualLayout {
+    /// The row's group keys.
+    pub fn keys(&self, a: &Aggregates, row: usize) -> Result<Vec<KeyValue>, ResultError> {
+        group_keys(a, row, self.keys)
+    }
+    /// The HC1 meat `Σ e² w_i w_j`, `i ≤ j`, row by row.
+    pub fn meat(&self, a: &Aggregates, row: usize) -> Result<Vec<f64>, ResultError> {
+        upper(a, row, "r", self.width)
+    }
+}
+
+/// One logistic fit's sums in a result row.
+#[derive(Clone, Debug, PartialEq)]
+pub struct LogisticRow {
+    /// Rows in the group.
+    pub n: f64,
+    /// `Σ w_i (t − p)`.
+    pub score: Vec<f64>,
+    /// `Σ p (1 − p) w_i w_j`, `i ≤ j`, row by row (empty for a scores-only pass).
+    pub information: Vec<f64>,
+    /// The log-likelihood.
+    pub loglik: f64,
+    /// Smallest fitted probability.
+    pub min_p: f64,
+    /// Largest fitted probability.
+    pub max_p: f64,
+}
+
+/// The layout of a logistic pass ([`crate::logistic_fits`]).
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct LogisticLayout {
+    /// The design's group keys (the fold `f` follows them in fold-grouped passes).
+    pub keys: usize,
+    /// `1 +` design terms.
+    pub width: usize,
+    /// Whether the rows are grouped by the row's fold too.
+    pub by_fold: bool,
+    /// Whether the pass returns scores only.
+    pub scores_only: bool,
+}
+
+impl LogisticLayout {
+    /// The row's design keys.
+    pub fn keys(&self, a: &Aggregates, row: usize) -> Result<Vec<KeyValue>, ResultError> {
+        group_keys(a, row, self.keys)
+    }
+    /// The row's fold (fold-grouped passes).
+    pub fn fold(&self, a: &Aggregates, row: usize) -> Result<usize, ResultError> {
+        Ok(a.number(row, "f")? as usize)
+    }
+    /// The sums of fit `fit`: `None` for the single fit, `Some(m)` for the cross-fitting fit
+    /// that leaves fold `m` out.
+    pub fn fit(
+        &self,
+        a: &Aggregates,
+        row: usize,
+        fit: Option<usize>,
+    ) -> Result<LogisticRow, ResultError> {
+        let pre = fit.map_or(String::new(), |m| format!("m{m}_"));
+        Ok(LogisticRow {
+            n: a.number(row, "n")?,
+            score: vector(a, row, &format!("{pre}u"), self.width)?,
+            information: if self.scores_only {
+                vec![]
+            } else {
+                upper(a, row, &format!("{pre}h"), self.width)?
+            },
+            loglik: a.number_or(row, &format!("{pre}loglik"), 0.0)?,
+            min_p: a.number_or(row, &format!("{pre}min_p"), 0.5)?,
+            max_p: a.number_or(row, &format!("{pre}max_p"), 0.5)?,
+        })
+    }
+}
+
+/// The layout of a cell table: per cell of the keys, `n`, `Σ y`, `Σ y²`.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct CellsLayout {
+    /// Keys (segments, strata, treatment).
+    pub keys: usize,
+}
+
+impl CellsLayout {
+    /// The row's cell keys.
+    pub fn keys(&self, a: &Aggregates, row: usize) -> Result<Vec<KeyValue>, ResultError> {
+        group_keys(a, row, self.keys)
+    }
+    /// `(n, Σ y, Σ y²)` of the cell.
+    pub fn sums(&self, a: &Aggregates, row: usize) -> Result<(f64, f64, f64), ResultError> {
+        Ok((a.number(row, "n")?, a.number(row, "sy")?, a.number(row, "syy")?))
+    }
+}
+
+/// The layout of a levels pass: one row per column and level.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct LevelsLayout;
+
+impl LevelsLayout {
+    /// `(column index, level as text, rows)`.
+    pub fn level(&self, a: &Aggregates, row: usize) -> Result<(usize, String, f64), ResultError> {
+        let which = a.number(row, "which")? as usize;
+        let level = match a.cell(row, "level")? {
+            Cell::Text(s) => s.clone(),
+            Cell::Number(x) => format!("{x}"),
+            Cell::Null => "NULL".into(),
+        };
+        Ok((which, level, a.number(row, "n")?))
+    }
+}
+
+/// One profiled column, as the profile pass returned it.
+#[derive(Clone, Debug, PartialEq)]
+pub struct ProfiledColumn {
+    /// Non-NULL values.
+    pub non_null: f64,
+    /// Minimum (NULL when not computed or no values).
+    pub min: Cell,
+    /// Maximum.
+    pub max: Cell,
+    /// Mean, where computed.
+    pub mean: Option<f64>,
+    /// Sum of squares, where computed.
+    pub sum_sq: Option<f64>,
+    /// Values neither 0 nor 1, where counted (else 0).
+    pub not01: f64,
+    /// Distinct values, where counted (else 0).
+    pub distinct: f64,
+}
+
+/// The layout of the profile pass.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct ProfileLayout {
+    /// The columns, in the order profiled.
+    pub columns: Vec<crate::passes::ProfileColumn>,
+}
+
+impl ProfileLayout {
+    /// Rows after the filter.
+    pub fn rows(&self, a: &Aggregates) -> Result<f64, ResultError> {
+        a.number_or(0, "n_rows", 0.0)
+    }
+    /// Rows with no NULL in any profiled column.
+    pub fn complete(&self, a: &Aggregates) -> Result<f64, ResultError> {
+        a.number_or(0, "n_complete", 0.0)
+    }
+    /// Column `i`.
+    pub fn column(&self, a: &Aggregates, i: usize) -> Result<ProfiledColumn, ResultError> {
+        let c = &self.columns[i];
+        let number = |name: String| -> Result<Option<f64>, ResultError> {
+            Ok(match a.cell(0, &name)? {
+                Cell::Number(x) => Some(*x),
+                _ => None,
+            })
+        };
+        Ok(ProfiledColumn {
+            non_null: a.number(0, &format!("c{i}_n"))?,
+            min: if c.numeric {
+                a.cell(0, &format!("c{i}_min"))?.clone()
+            } else {
+                Cell::Null
+            },
+            max: if c.numeric {
+                a.cell(0, &format!("c{i}_max"))?.clone()
+            } else {
+                Cell::Null
+            },
+            mean: if c.numeric {
+                number(format!("c{i}_mean"))?
+            } else {
+                None
+            },
+            sum_sq: if c.numeric {
+                number(format!("c{i}_ss"))?
+            } else {
+                None
+            },
+            not01: if c.zero_one {
+                a.number_or(0, &format!("c{i}_not01"), 0.0)?
+            } else {
+                0.0
+            },
+            distinct: if c.distinct {
+                a.number_or(0, &format!("c{i}_distinct"), 0.0)?
+            } else {
+                0.0
+            },
+        })
+    }
+}
