@@ -268,6 +268,13 @@ def demo_checks(binary, csv):
     e = got["estimates"][0]
     compare(f"{name} doubly-robust ATE 1 fold", (e["estimate"], e["std_error"]),
             ref_doubly_robust(df, t, y, covs, cat, "ATE", 1, None, 0.01), scale)
+    # No unit key: 5 folds asked, nothing to hash them from, so the nuisances are fitted on all
+    # rows (upshot's rule) -- the same as one fold, and the output says so.
+    got = upshot(binary, csv, graph, t, y, "doubly-robust", "ATE", folds=5, extra=["--adjust", ",".join(covs)])
+    e = got["estimates"][0]
+    compare(f"{name} doubly-robust ATE without a unit key = 1 fold", (e["estimate"], e["std_error"]),
+            ref_doubly_robust(df, t, y, covs, cat, "ATE", 1, None, 0.01), scale)
+    assert any("no unit key" in n for n in got["questions"][0]["diagnostics"]["notes"]), got["questions"][0]
     for folds in (1, 5):
         got = upshot(binary, csv, graph, t, y, "partial-out", "ATE", folds=folds,
                      extra=["--adjust", ",".join(covs), "--unit", "customer_id"])

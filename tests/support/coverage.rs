@@ -24,7 +24,7 @@
 use std::collections::BTreeMap;
 use upshot_engine::Engine;
 use upshot_engine_duckdb::{DuckDbEngine, MEMORY};
-use upshot_methods::{estimate, Basis, ColumnType, Estimand, Method as Estimator, NullPolicy, Spec};
+use upshot_methods::{estimate, Basis, ColumnType, Estimand, Method, NullPolicy, Spec};
 use upshot_sql::{DuckDb, Source};
 
 fn arg(name: &str, default: u64) -> u64 {
@@ -42,7 +42,7 @@ fn arg(name: &str, default: u64) -> u64 {
 /// One row of the table: a method, its adjustment set, whether its ATE coverage is gated, an
 /// optional filter, and a note printed after it.
 struct Row {
-    method: Estimator,
+    method: Method,
     adjust: Vec<String>,
     gated: bool,
     filter: Option<&'static str>,
@@ -80,22 +80,16 @@ fn main() {
         note,
     };
     let methods = [
+        rows_of(Method::Stratify, &["prior_orders", "zone"], true, None, ""),
         rows_of(
-            Estimator::Stratify,
-            &["prior_orders", "zone"],
-            true,
-            None,
-            "",
-        ),
-        rows_of(
-            Estimator::Regress,
+            Method::Regress,
             &["household_size", "prior_orders", "zone"],
             true,
             None,
             "",
         ),
         rows_of(
-            Estimator::Weight,
+            Method::Weight,
             &["prior_orders", "zone", "mail_wave"],
             false,
             None,
@@ -104,28 +98,28 @@ fn main() {
         // The same on the rows with good overlap. Tenure band (which alone sets the effect) is
         // drawn independently of prior orders, so the truth is unchanged on this subset.
         rows_of(
-            Estimator::Weight,
+            Method::Weight,
             &["prior_orders", "zone", "mail_wave"],
             true,
             Some("prior_orders <= 6"),
             " [rows with prior_orders <= 6]",
         ),
         rows_of(
-            Estimator::DoublyRobust,
+            Method::DoublyRobust,
             &["household_size", "prior_orders", "zone", "mail_wave"],
             true,
             None,
             "",
         ),
         rows_of(
-            Estimator::PartialOut,
+            Method::PartialOut,
             &["household_size", "prior_orders", "zone"],
             false,
             None,
             " (not gated: a variance-weighted effect)",
         ),
         rows_of(
-            Estimator::Weight,
+            Method::Weight,
             &["household_size", "prior_orders", "zone"],
             false,
             None,

@@ -42,9 +42,7 @@ use std::process::Command;
 use std::time::Instant;
 use upshot_engine::Engine;
 use upshot_engine_duckdb::DuckDbEngine;
-use upshot_methods::{
-    estimate, Basis, ColumnType, Estimand, Method as Estimator, NullPolicy, Spec,
-};
+use upshot_methods::{estimate, Basis, ColumnType, Estimand, Method, NullPolicy, Spec};
 use work::Work;
 
 #[derive(Parser, Debug)]
@@ -363,16 +361,16 @@ struct Row {
 }
 
 /// The targets of the benchmark issue for upshot ÷ scan.
-fn scan_target(m: Estimator) -> f64 {
+fn scan_target(m: Method) -> f64 {
     match m {
-        Estimator::Stratify => 1.5,
-        Estimator::Regress | Estimator::PartialOut => 2.5,
-        Estimator::Weight | Estimator::DoublyRobust => 8.0,
+        Method::Stratify => 1.5,
+        Method::Regress | Method::PartialOut => 2.5,
+        _ => 8.0,
     }
 }
 
 fn run(args: &Args) {
-    let methods: Vec<Estimator> = if args.methods.is_empty() {
+    let methods: Vec<Method> = if args.methods.is_empty() {
         work::METHODS.to_vec()
     } else {
         args.methods
@@ -418,7 +416,7 @@ fn run(args: &Args) {
     let mut works: Vec<Work> = Vec::new();
     for &method in &methods {
         for &segments in &segs {
-            if method == Estimator::Stratify {
+            if method == Method::Stratify {
                 works.push(Work {
                     method,
                     p: 8,
@@ -445,7 +443,7 @@ fn run(args: &Args) {
         for w in &works {
             let res = (|| -> Result<Row, String> {
                 let s = child(args, "scan", &db, w)?;
-                let sf = if w.method == Estimator::Stratify {
+                let sf = if w.method == Method::Stratify {
                     None
                 } else {
                     Some(child(args, "scan-fused", &db, w)?)
@@ -659,7 +657,7 @@ fn write_results(dir: &Path, rows: &[Row], verdicts: &[String]) -> Result<(), St
             "{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{}\n",
             r.rows,
             r.work.method.as_str(),
-            if r.work.method == Estimator::Stratify {
+            if r.work.method == Method::Stratify {
                 String::new()
             } else {
                 r.work.p.to_string()

@@ -14,7 +14,7 @@ use duckdb::arrow::datatypes::{DataType, Float64Type};
 use duckdb::Connection;
 use nalgebra::{DMatrix, DVector};
 use std::collections::HashMap;
-use upshot_methods::Method as Estimator;
+use upshot_methods::Method;
 
 /// The exported rows, as columns.
 pub struct Rows {
@@ -121,17 +121,17 @@ pub fn fit(rows: &Rows, w: &Work) -> Result<Fit, String> {
         groups[s].push(i);
     }
     groups.retain(|g| !g.is_empty());
-    if w.method == Estimator::PartialOut {
+    if w.method == Method::PartialOut {
         return partial_out(rows, &groups);
     }
     let mut parts = Vec::new();
     for g in &groups {
         let f = match w.method {
-            Estimator::Stratify => stratify(rows, g)?,
-            Estimator::Regress => regress(rows, g)?,
-            Estimator::Weight => weight(rows, g)?,
-            Estimator::DoublyRobust => doubly_robust(rows, g)?,
-            Estimator::PartialOut => unreachable!(),
+            Method::Stratify => stratify(rows, g)?,
+            Method::Regress => regress(rows, g)?,
+            Method::Weight => weight(rows, g)?,
+            Method::DoublyRobust => doubly_robust(rows, g)?,
+            other => unreachable!("the benchmark has no {} workload", other.as_str()),
         };
         parts.push((f.n, f));
     }

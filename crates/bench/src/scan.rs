@@ -16,7 +16,7 @@
 //! it by hand; centring constants are the columns' means, computed before the clock starts.
 
 use crate::work::{zone_dummies, Work, FOLDS};
-use upshot_methods::Method as Estimator;
+use upshot_methods::Method;
 
 /// The fold hash of upshot's design passes, written out by hand (see `upshot_sql::fold_of`).
 fn fold_expr() -> String {
@@ -40,22 +40,22 @@ fn terms(w: &Work) -> Vec<(String, String)> {
         ));
     }
     match w.method {
-        Estimator::Regress | Estimator::DoublyRobust => {
+        Method::Regress | Method::DoublyRobust => {
             v.push(("CAST(spend_30d AS DOUBLE)".into(), "y".into()))
         }
-        Estimator::Weight => v.push(("CAST(voucher AS DOUBLE)".into(), "t".into())),
-        Estimator::PartialOut => {
+        Method::Weight => v.push(("CAST(voucher AS DOUBLE)".into(), "t".into())),
+        Method::PartialOut => {
             v.push(("CAST(voucher AS DOUBLE)".into(), "t".into()));
             v.push(("CAST(spend_30d AS DOUBLE)".into(), "y".into()));
         }
-        Estimator::Stratify => {}
+        _ => {}
     }
     v
 }
 
 /// The query that computes the means used for centring (run before timing).
 pub fn means_sql(w: &Work) -> Option<String> {
-    if w.method == Estimator::Stratify {
+    if w.method == Method::Stratify {
         return None;
     }
     let t = terms(w);
@@ -73,7 +73,7 @@ pub fn means_sql(w: &Work) -> Option<String> {
 /// `SUM` each; `None` for stratify, which has no products.
 pub fn sql(w: &Work, means: &[f64], fused: bool) -> Option<String> {
     let seg = if w.segments { "region, " } else { "" };
-    if w.method == Estimator::Stratify {
+    if w.method == Method::Stratify {
         return (!fused).then(|| format!(
             "SELECT {seg}prior_orders, zone, voucher, COUNT(*) AS n, SUM(spend_30d) AS sy, \
              SUM(spend_30d * spend_30d) AS syy FROM customers GROUP BY {seg}prior_orders, zone, voucher"
@@ -85,12 +85,12 @@ pub fn sql(w: &Work, means: &[f64], fused: bool) -> Option<String> {
         keys.push("region".into());
     }
     match w.method {
-        Estimator::Regress => keys.push("voucher".into()),
-        Estimator::DoublyRobust => {
+        Method::Regress => keys.push("voucher".into()),
+        Method::DoublyRobust => {
             keys.push(format!("{} AS fold", fold_expr()));
             keys.push("voucher".into());
         }
-        Estimator::PartialOut => keys.push(format!("{} AS fold", fold_expr())),
+        Method::PartialOut => keys.push(format!("{} AS fold", fold_expr())),
         _ => {}
     }
     let key_names: Vec<String> = keys
@@ -140,7 +140,7 @@ pub fn sql(w: &Work, means: &[f64], fused: bool) -> Option<String> {
 
 /// The number of sums the scan-limit query computes per group.
 pub fn sums(w: &Work) -> usize {
-    if w.method == Estimator::Stratify {
+    if w.method == Method::Stratify {
         return 3;
     }
     let k = terms(w).len();

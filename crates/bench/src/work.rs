@@ -1,35 +1,35 @@
 //! What one benchmark row estimates: a method, a design width and whether it is segmented.
 
 use serde::Serialize;
-use upshot_methods::Method as Estimator;
+use upshot_methods::Method;
 
 /// One benchmark workload on the benchmark table `customers`.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize)]
 pub struct Work {
     /// The method.
     #[serde(serialize_with = "method_key")]
-    pub method: Estimator,
+    pub method: Method,
     /// Design width: 8 or 32 covariate columns (stratify uses its strata instead).
     pub p: usize,
     /// Grouped by the ten-level `region` column.
     pub segments: bool,
 }
 
-fn method_key<S: serde::Serializer>(m: &Estimator, s: S) -> Result<S::Ok, S::Error> {
+fn method_key<S: serde::Serializer>(m: &Method, s: S) -> Result<S::Ok, S::Error> {
     s.serialize_str(m.as_str())
 }
 
 /// Every method the benchmark measures, in report order.
-pub const METHODS: [Estimator; 5] = [
-    Estimator::Stratify,
-    Estimator::Regress,
-    Estimator::Weight,
-    Estimator::DoublyRobust,
-    Estimator::PartialOut,
+pub const METHODS: [Method; 5] = [
+    Method::Stratify,
+    Method::Regress,
+    Method::Weight,
+    Method::DoublyRobust,
+    Method::PartialOut,
 ];
 
 /// The method with key `k`.
-pub fn method(k: &str) -> Option<Estimator> {
+pub fn method(k: &str) -> Option<Method> {
     METHODS.into_iter().find(|m| m.as_str() == k)
 }
 
@@ -65,7 +65,7 @@ impl Work {
 
     /// The adjustment set handed to upshot.
     pub fn adjust(&self) -> Vec<String> {
-        if self.method == Estimator::Stratify {
+        if self.method == Method::Stratify {
             return self.strata();
         }
         let mut v = self.numeric();
@@ -76,14 +76,14 @@ impl Work {
     /// Whether the method cross-fits.
     pub fn folds(&self) -> u32 {
         match self.method {
-            Estimator::DoublyRobust | Estimator::PartialOut => FOLDS,
+            Method::DoublyRobust | Method::PartialOut => FOLDS,
             _ => 1,
         }
     }
 
     /// A short label: `regress p=8 seg`.
     pub fn label(&self) -> String {
-        let p = if self.method == Estimator::Stratify {
+        let p = if self.method == Method::Stratify {
             "-".to_string()
         } else {
             self.p.to_string()

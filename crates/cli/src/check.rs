@@ -143,7 +143,11 @@ pub fn run(a: Args) -> Result<i32, Failure> {
         upshot_core::check_columns(&study, engine.as_ref())?;
     }
     let doc = identify::check(&study, a.question.as_deref())?;
-    let code = if doc.exit_code == 0 { OK } else { NOT_IDENTIFIED };
+    let code = if doc.exit_code == 0 {
+        OK
+    } else {
+        NOT_IDENTIFIED
+    };
     let out = if json {
         serde_json::to_string_pretty(&doc).map_err(|e| Failure::internal(e.to_string()))? + "\n"
     } else {

@@ -9,7 +9,7 @@ use std::io::{IsTerminal, Write as _};
 use std::path::PathBuf;
 use upshot_core::{Access, Basis, Flavor, NullPolicy, Settings, Study};
 use upshot_sql::{dialect_by_name, Dialect, DIALECTS};
-use upshot_study::{QuestionInput, SourceKind};
+use upshot_study::{QuestionInput, Rows};
 
 /// Flags of `upshot plan` and `upshot run`.
 #[derive(clap::Args)]
@@ -85,7 +85,6 @@ pub struct Args {
     portable: bool,
 }
 
-
 fn overrides(a: &Args) -> QuestionInput {
     QuestionInput {
         treatment: clean(a.treatment.clone()),
@@ -120,7 +119,7 @@ fn study_of(a: &Args, verb: &str) -> Result<Study, Failure> {
             q.unit = None;
         }
     }
-    if let Some(SourceKind::Table(t)) = &study.source.rows {
+    if let Some(Rows::Table(t)) = &study.source.rows {
         if t.trim().is_empty() {
             return Err(Failure::input("--source: empty"));
         }
@@ -257,7 +256,8 @@ pub fn run_run(a: Args) -> Result<i32, Failure> {
         Ok(s) => s.database,
         Err(_) => upshot_core::DEFAULT_DATABASE.to_string(),
     };
-    let connector = upshot_core::connector(ENGINES, &rows_at).map_err(|e| Failure::input(format!("--db: {e}")))?;
+    let connector = upshot_core::connector(ENGINES, &rows_at)
+        .map_err(|e| Failure::input(format!("--db: {e}")))?;
     let resolved = upshot_core::resolve(
         &study,
         a.question.as_deref(),
@@ -295,7 +295,13 @@ pub fn run_run(a: Args) -> Result<i32, Failure> {
     // The output first: when it cannot be written, nothing goes into the results table.
     emit(&out)?;
     if let Some(table) = &a.into {
-        upshot_core::write_results(engine.as_ref(), table, a.run_key.as_deref(), &study, &answers)?;
+        upshot_core::write_results(
+            engine.as_ref(),
+            table,
+            a.run_key.as_deref(),
+            &study,
+            &answers,
+        )?;
         if format == "text" {
             emit(&format!("estimates appended to {table}\n"))?;
         }

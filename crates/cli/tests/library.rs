@@ -27,8 +27,7 @@ fn the_library_gives_the_estimates_of_the_command_line() {
         .iter()
         .map(|r| upshot_core::plan(r).unwrap())
         .collect();
-    let engine =
-        upshot_core::connect(connectors, &resolved[0].database, Access::ReadOnly).unwrap();
+    let engine = upshot_core::connect(connectors, &resolved[0].database, Access::ReadOnly).unwrap();
     let mut passes = 0;
     let answers = upshot_core::run(engine.as_ref(), resolved, &mut |_, _| passes += 1).unwrap();
     assert_eq!(answers.len(), 3);
@@ -44,7 +43,12 @@ fn the_library_gives_the_estimates_of_the_command_line() {
         .current_dir(repo())
         .output()
         .unwrap();
-    assert_eq!(out.status.code(), Some(0), "{}", String::from_utf8_lossy(&out.stderr));
+    assert_eq!(
+        out.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
     let cli: Value = serde_json::from_slice(&out.stdout).unwrap();
     let rows = cli["estimates"].as_array().unwrap();
     let lib: Vec<_> = answers.iter().flat_map(|a| &a.estimates).collect();
@@ -59,12 +63,20 @@ fn the_library_gives_the_estimates_of_the_command_line() {
             let y = row[key].as_f64().unwrap();
             let rel = (x - y).abs() / y.abs().max(1e-300);
             worst = worst.max(rel);
-            assert!(rel <= 1e-12, "{} {} {key}: library {x}, CLI {y}", e.question, e.segment);
+            assert!(
+                rel <= 1e-12,
+                "{} {} {key}: library {x}, CLI {y}",
+                e.question,
+                e.segment
+            );
         }
     }
     for (q, a) in cli["questions"].as_array().unwrap().iter().zip(&answers) {
         assert_eq!(q["plan_hash"], a.summary.plan_hash.as_str());
         assert_eq!(q["diagnostics"]["passes"], a.summary.diagnostics.passes);
     }
-    eprintln!("library vs CLI: worst relative difference {worst:e} over {} rows", rows.len());
+    eprintln!(
+        "library vs CLI: worst relative difference {worst:e} over {} rows",
+        rows.len()
+    );
 }

@@ -736,7 +736,10 @@ fn plan_and_run_without_a_unit_key_fit_on_all_rows_and_say_so() {
         let out = upshot(&p);
         assert_eq!(out.status.code(), Some(0), "{method}: {}", text(&out));
         let s = String::from_utf8_lossy(&out.stdout);
-        assert!(!s.contains("logistic-scores"), "{method}: cross-fitted without a unit: {s}");
+        assert!(
+            !s.contains("logistic-scores"),
+            "{method}: cross-fitted without a unit: {s}"
+        );
         let mut r = vec!["run"];
         r.extend(args);
         let out = upshot(&r);
@@ -799,10 +802,15 @@ fn filters_are_row_predicates_and_sources_read_only() {
     }
     let e = DuckDbEngine::open(db, false).unwrap();
     assert_eq!(
-        e.query_number("SELECT COUNT(*) FROM customers WHERE voucher = 1").unwrap(),
-        e.query_number("SELECT SUM(voucher) FROM customers").unwrap()
+        e.query_number("SELECT COUNT(*) FROM customers WHERE voucher = 1")
+            .unwrap(),
+        e.query_number("SELECT SUM(voucher) FROM customers")
+            .unwrap()
     );
-    assert_eq!(e.query_number("SELECT COUNT(*) FROM customers").unwrap(), 5000.0);
+    assert_eq!(
+        e.query_number("SELECT COUNT(*) FROM customers").unwrap(),
+        5000.0
+    );
 }
 
 #[test]
@@ -824,7 +832,10 @@ fn a_closed_or_full_output_is_exit_1_and_writes_nothing() {
         "effects",
     ];
     // A full device: every write fails.
-    let full = std::fs::OpenOptions::new().write(true).open("/dev/full").unwrap();
+    let full = std::fs::OpenOptions::new()
+        .write(true)
+        .open("/dev/full")
+        .unwrap();
     let out = Command::new(env!("CARGO_BIN_EXE_upshot"))
         .args(args)
         .current_dir(repo())
@@ -836,7 +847,10 @@ fn a_closed_or_full_output_is_exit_1_and_writes_nothing() {
     assert!(err.contains("cannot write the output"), "{err}");
     assert!(!err.contains("panicked"), "{err}");
     let e = DuckDbEngine::open(db, false).unwrap();
-    assert!(e.query_number("SELECT COUNT(*) FROM effects").is_err(), "nothing written");
+    assert!(
+        e.query_number("SELECT COUNT(*) FROM effects").is_err(),
+        "nothing written"
+    );
     drop(e);
     // A closed pipe (`| head -c0`): no panic, whether or not the reader left first.
     for verb in ["run", "check"] {

@@ -394,7 +394,11 @@ pub fn check(study: &Study, only: Option<&str>) -> Result<CheckReport, CoreError
             identification: id,
         });
     }
-    let code = if reports.iter().all(|r| r.identified) { 0 } else { 3 };
+    let code = if reports.iter().all(|r| r.identified) {
+        0
+    } else {
+        3
+    };
     let (edges, pairs) = d.declared_edges();
     Ok(CheckReport {
         format: "upshot-check/1",

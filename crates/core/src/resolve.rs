@@ -125,7 +125,8 @@ fn resolve_one(
     let rows = source_of(study, flavor.dialect)?;
     let filter = match &study.source.filter {
         Some(f) => Some(
-            parse_filter(f, flavor.dialect).map_err(|e| CoreError::Input(format!("filter: {e}")))?,
+            parse_filter(f, flavor.dialect)
+                .map_err(|e| CoreError::Input(format!("filter: {e}")))?,
         ),
         None => None,
     };

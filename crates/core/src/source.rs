@@ -6,14 +6,14 @@ use std::path::{Path, PathBuf};
 use upshot_engine::Engine;
 use upshot_graph::Role;
 use upshot_sql::{Dialect, Source};
-use upshot_study::{SourceKind, Study};
+use upshot_study::{Rows, Study};
 
 /// The locator of the default database: a fresh in-memory DuckDB.
 pub const DEFAULT_DATABASE: &str = "duckdb::memory:";
 
 /// A study's rows, resolved.
 #[derive(Clone, Debug, PartialEq)]
-pub struct SourceChoice {
+pub struct ResolvedRows {
     /// The rows, as passes read them.
     pub source: Source,
     /// How the rows are named in output: the table, the file, or `query`.
@@ -25,18 +25,18 @@ pub struct SourceChoice {
 /// What a `--source` text (or a SQL surface's `source` argument) names: a SELECT (text that
 /// starts with `SELECT`, `WITH` or `(`), a file (an existing file, a folder — refused later
 /// with the pattern to use — or a name ending in `.csv` or a Parquet extension), else a table.
-pub fn classify_source(text: &str) -> SourceKind {
+pub fn classify_source(text: &str) -> Rows {
     let head = text.trim_start().to_lowercase();
     if head.starts_with("select") || head.starts_with("with") || head.starts_with('(') {
-        SourceKind::Query(text.to_string())
+        Rows::Query(text.to_string())
     } else if Path::new(text).is_file()
         || Path::new(text).is_dir()
         || head.ends_with(".csv")
         || upshot_sql::is_parquet(&head)
     {
-        SourceKind::File(PathBuf::from(text))
+        Rows::File(PathBuf::from(text))
     } else {
-        SourceKind::Table(text.to_string())
+        Rows::Table(text.to_string())
     }
 }
 
@@ -60,15 +60,15 @@ fn file(p: &Path) -> Result<(Source, String), CoreError> {
 }
 
 /// The study's rows, with user SQL parsed by `dialect`'s parser (one read-only SELECT).
-pub fn source_of(study: &Study, dialect: &dyn Dialect) -> Result<SourceChoice, CoreError> {
+pub fn source_of(study: &Study, dialect: &dyn Dialect) -> Result<ResolvedRows, CoreError> {
     let database = study.source.database.clone();
     let (source, label) = match &study.source.rows {
-        Some(SourceKind::File(p)) => file(p)?,
-        Some(SourceKind::Table(t)) => (
+        Some(Rows::File(p)) => file(p)?,
+        Some(Rows::Table(t)) => (
             Source::table(t).map_err(|e| CoreError::Input(format!("source table: {e}")))?,
             t.clone(),
         ),
-        Some(SourceKind::Query(q)) => (
+        Some(Rows::Query(q)) => (
             Source::query(q, dialect)
                 .map_err(|e| CoreError::Input(format!("source query: {e}")))?,
             "query".to_string(),
@@ -84,7 +84,7 @@ pub fn source_of(study: &Study, dialect: &dyn Dialect) -> Result<SourceChoice, C
             "source {label} is read from a database: give --db (a DuckDB file) or [source].database in the study"
         )));
     }
-    Ok(SourceChoice {
+    Ok(ResolvedRows {
         source,
         label,
         database: database.unwrap_or_else(|| DEFAULT_DATABASE.to_string()),
@@ -95,7 +95,7 @@ pub fn source_of(study: &Study, dialect: &dyn Dialect) -> Result<SourceChoice, C
 /// source, or a table or query in a named database.
 pub fn has_columns_to_check(study: &Study) -> bool {
     match &study.source.rows {
-        Some(SourceKind::File(_)) => true,
+        Some(Rows::File(_)) => true,
         Some(_) => study.source.database.is_some(),
         None => false,
     }

@@ -8,9 +8,6 @@
 //! or estimators; it is the one crate that links the bundled DuckDB build.
 #![deny(missing_docs)]
 
-use upshot_engine::{
-    Access, Aggregates, Capabilities, Cell, Column, Connector, Engine, EngineError, Param, Write,
-};
 use duckdb::arrow::array::{Array, AsArray};
 use duckdb::arrow::compute::cast;
 use duckdb::arrow::datatypes::DataType;
@@ -18,6 +15,9 @@ use duckdb::arrow::record_batch::RecordBatch;
 use duckdb::arrow::util::display::{ArrayFormatter, FormatOptions};
 use duckdb::Connection;
 use upshot_duckdb_ext::Database;
+use upshot_engine::{
+    Access, Aggregates, Capabilities, Cell, Column, Connector, Engine, EngineError, Param, Write,
+};
 use upshot_sql::{Dialect, DuckDb, Functions, Pass, Source};
 
 /// DuckDB, embedded in the process, with upshot's functions registered.

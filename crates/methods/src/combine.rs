@@ -108,8 +108,14 @@ mod tests {
         let all = overall(&s, &[part(2.0, 0.5, 100.0), part(5.0, 1.0, 300.0)]);
         // w = 1/4, 3/4; τ = 0.5 + 3.75 = 4.25.
         assert!((all.estimate - 4.25).abs() < 1e-15);
-        let var = 0.0625 * 0.25 + 0.5625 * 1.0 + (0.25 * 2.25f64.powi(2) + 0.75 * 0.75f64.powi(2)) / 400.0;
-        assert!((all.std_error - var.sqrt()).abs() < 1e-15, "{}", all.std_error);
+        let var = 0.0625 * 0.25
+            + 0.5625 * 1.0
+            + (0.25 * 2.25f64.powi(2) + 0.75 * 0.75f64.powi(2)) / 400.0;
+        assert!(
+            (all.std_error - var.sqrt()).abs() < 1e-15,
+            "{}",
+            all.std_error
+        );
         assert_eq!(all.n_used, 400.0);
         assert_eq!(all.n_treated, Some(200.0));
         assert!((all.ci_high - all.estimate - crate::Z_975 * all.std_error).abs() < 1e-14);

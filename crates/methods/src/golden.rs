@@ -84,5 +84,10 @@ pub(crate) fn check(dir: &str, flavor: &Flavor, name: &str, pass: &Pass) {
     let parsed = sqlparser::parser::Parser::parse_sql(flavor.dialect.parser().as_ref(), &want)
         .unwrap_or_else(|e| panic!("{}: {e}", path.display()));
     assert_eq!(parsed.len(), 1);
-    assert_eq!(format!("{:#}", parsed[0]) + "\n", want, "{} does not round-trip", path.display());
+    assert_eq!(
+        format!("{:#}", parsed[0]) + "\n",
+        want,
+        "{} does not round-trip",
+        path.display()
+    );
 }

@@ -24,10 +24,10 @@
 #![deny(missing_docs)]
 
 mod combine;
-#[cfg(test)]
-mod golden;
 mod crossfit;
 mod doubly_robust;
+#[cfg(test)]
+mod golden;
 mod models;
 mod outcome;
 mod partial_out;
@@ -348,7 +348,9 @@ impl Spec {
         }
         if let Some(u) = &self.unit {
             if u.trim().is_empty() {
-                return Err(MethodError::Input("--unit: the unit key column is empty".into()));
+                return Err(MethodError::Input(
+                    "--unit: the unit key column is empty".into(),
+                ));
             }
         }
         if self.method == Method::Auto {
@@ -411,7 +413,10 @@ pub(crate) mod tests {
             let mut s = spec(Method::DoublyRobust);
             s.folds = folds;
             s.clip = clip;
-            assert!(matches!(s.check(), Err(MethodError::Input(_))), "{folds} {clip}");
+            assert!(
+                matches!(s.check(), Err(MethodError::Input(_))),
+                "{folds} {clip}"
+            );
             assert!(plan(&s).is_err(), "{folds} {clip}");
             let mut never = |_: &Pass| -> Result<Aggregates, String> { panic!("no pass may run") };
             assert!(estimate(&s, &mut never).is_err(), "{folds} {clip}");

@@ -1,8 +1,8 @@
 //! Per-group models: fitted coefficients keyed by segment (and, when cross-fitting, by the
 //! held-out fold), as the passes inline them; and the placeholder models of `plan`.
 
-use crate::prepare::{needs_folds, Setup};
 use crate::crossfit::folds;
+use crate::prepare::{needs_folds, Setup};
 use upshot_sql::{KeyValue, Model, Models, Selector};
 
 /// Models keyed by segment values.

@@ -3,11 +3,11 @@
 //! passes (the current coefficients inlined as literals), and — for cross-fitting — the fits
 //! that each leave one fold out.
 
+use crate::combine::segment_label;
 use crate::crossfit::{fold_sum, folds, row_design, rows_by_fold};
 use crate::models::{fold_models, per_segment};
 use crate::prepare::{needs_folds, Setup};
 use crate::read::{by_segment, logit_sums, row_of};
-use crate::combine::segment_label;
 use crate::{ask, MethodError, Runner};
 use upshot_fit::{logit_many, FitError, Logit, LogitSums, NewtonOptions};
 use upshot_sql::{
@@ -191,10 +191,9 @@ fn newton_complements(
                 // One row per fold of the segment; fit j adds up the rows of the other folds.
                 let rows = rows_by_fold(layout, &a, seg)?;
                 for j in 0..k {
-                    let mut sums =
-                        fold_sum(layout, &a, &rows, Some(j), Some(j)).map_err(|e| {
-                            MethodError::Input(format!("{}: {e}", segment_label(s, seg)))
-                        })?;
+                    let mut sums = fold_sum(layout, &a, &rows, Some(j), Some(j)).map_err(|e| {
+                        MethodError::Input(format!("{}: {e}", segment_label(s, seg)))
+                    })?;
                     sums.n = f64::NAN;
                     out.push(sums);
                 }
@@ -300,9 +299,8 @@ fn shared_curvature_complements(
                 let mut score = nalgebra::DVector::<f64>::zeros(kp);
                 for (f, row) in &rows {
                     if *f != j {
-                        score += &nalgebra::DVector::from_vec(
-                            pass.layout.fit(&a, *row, Some(j))?.score,
-                        );
+                        score +=
+                            &nalgebra::DVector::from_vec(pass.layout.fit(&a, *row, Some(j))?.score);
                     }
                 }
                 let step = curvature[i][j].solve(&score);

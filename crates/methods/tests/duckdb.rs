@@ -47,7 +47,11 @@ fn every_method_agrees_with_and_without_upshots_functions() {
             adjust: if method == Method::Stratify {
                 vec!["prior_orders".into(), "zone".into()]
             } else {
-                vec!["household_size".into(), "prior_orders".into(), "zone".into()]
+                vec![
+                    "household_size".into(),
+                    "prior_orders".into(),
+                    "zone".into(),
+                ]
             },
             segments: vec!["tenure_band".into()],
             estimand,

@@ -16,9 +16,28 @@ use sqlparser::ast::{
 /// The scalar functions a filter may call (lower case): deterministic, row-local, and
 /// spelled the same in DuckDB, PostgreSQL and Spark SQL.
 pub const FUNCTIONS: [&str; 22] = [
-    "abs", "ceil", "ceiling", "floor", "round", "sign", "sqrt", "exp", "ln", "log", "power",
-    "mod", "coalesce", "nullif", "greatest", "least", "lower", "upper", "length", "trim",
-    "substr", "substring",
+    "abs",
+    "ceil",
+    "ceiling",
+    "floor",
+    "round",
+    "sign",
+    "sqrt",
+    "exp",
+    "ln",
+    "log",
+    "power",
+    "mod",
+    "coalesce",
+    "nullif",
+    "greatest",
+    "least",
+    "lower",
+    "upper",
+    "length",
+    "trim",
+    "substr",
+    "substring",
 ];
 
 fn refuse(part: impl Into<String>, why: &str) -> SqlError {

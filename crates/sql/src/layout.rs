@@ -181,7 +181,11 @@ impl CellsLayout {
     }
     /// `(n, Σ y, Σ y²)` of the cell.
     pub fn sums(&self, a: &Aggregates, row: usize) -> Result<(f64, f64, f64), ResultError> {
-        Ok((a.number(row, "n")?, a.number(row, "sy")?, a.number(row, "syy")?))
+        Ok((
+            a.number(row, "n")?,
+            a.number(row, "sy")?,
+            a.number(row, "syy")?,
+        ))
     }
 }
 

@@ -33,8 +33,8 @@ mod template;
 
 pub use aggregates::{Aggregates, Cell, ResultError};
 pub use design::{
-    fold_of, Design, DesignTerm, Fold, Key, KeyValue, Model, Models, Out, Pass, PassText,
-    Selector, FOLD_PRIME,
+    fold_of, Design, DesignTerm, Fold, Key, KeyValue, Model, Models, Out, Pass, PassText, Selector,
+    FOLD_PRIME,
 };
 pub use dialect::{
     dialect_by_name, Dialect, DuckDb, FileKind, Flavor, Functions, Postgres, DIALECTS,

@@ -4,8 +4,8 @@
 //! `upshot-methods`), built from the same kit ([`crate::design`]).
 
 use crate::design::{
-    factor, not_null, predictor, products_of, Design, KeyValue, Model, Models, Out, Pass,
-    PassText, Products, Selector, SIGMOID,
+    factor, not_null, predictor, products_of, Design, KeyValue, Model, Models, Out, Pass, PassText,
+    Products, Selector, SIGMOID,
 };
 use crate::dialect::Flavor;
 use crate::error::SqlError;
@@ -14,7 +14,6 @@ use crate::layout::{
 };
 use crate::source::Source;
 use sqlparser::ast::Expr;
-
 
 /// A column to profile.
 #[derive(Clone, Debug, PartialEq, Eq)]
@@ -117,10 +116,7 @@ pub fn cells(
     let mut used = keys.to_vec();
     used.push(value.to_string());
     let y = t.column(value);
-    let ks: Vec<String> = keys
-        .iter()
-        .map(|k| t.column(k))
-        .collect();
+    let ks: Vec<String> = keys.iter().map(|k| t.column(k)).collect();
     let f = d.float_type();
     let mut items: Vec<String> = ks
         .iter()
@@ -180,12 +176,7 @@ pub fn gram(
             entries,
         }),
     ];
-    t.sql = t.aggregate(
-        k,
-        &design.key_names(),
-        &outs,
-        &format!("({rows}) AS rows_"),
-    );
+    t.sql = t.aggregate(k, &design.key_names(), &outs, &format!("({rows}) AS rows_"));
     Ok(Built {
         pass: Pass {
             name: "gram".into(),
@@ -344,7 +335,7 @@ pub fn logistic_fits(
                     ),
                     query: t.query(source, filter)?,
                 },
-                layout: layout,
+                layout,
             })
         }
     };
@@ -357,7 +348,7 @@ pub fn logistic_fits(
             ),
             query: t.query(source, filter)?,
         },
-        layout: layout,
+        layout,
     })
 }
 

@@ -8,9 +8,9 @@
 use sqlparser::parser::Parser;
 use std::path::PathBuf;
 use upshot_sql::{
-    cells, gram, levels, logistic_fits, parse_filter, profile, residuals, Design, DesignTerm, DuckDb,
-    Flavor, Fold, Key, KeyValue, Model, Models, Pass, Postgres, ProfileColumn, Selector, Source,
-    SqlError, Variants, DIALECTS,
+    cells, gram, levels, logistic_fits, parse_filter, profile, residuals, Design, DesignTerm,
+    DuckDb, Flavor, Fold, Key, KeyValue, Model, Models, Pass, Postgres, ProfileColumn, Selector,
+    Source, SqlError, Variants, DIALECTS,
 };
 
 /// The renderings with golden files: DuckDB as upshot opens it (with its functions), DuckDB
@@ -201,7 +201,7 @@ fn crossfit_passes(f: &Flavor) -> Vec<(String, Pass)> {
                 &["zone".into(), "mail wave".into(), "voucher".into()],
             )
             .unwrap()
-        .pass,
+            .pass,
         ),
         (
             "logistic-crossfit".into(),
@@ -214,7 +214,7 @@ fn crossfit_passes(f: &Flavor) -> Vec<(String, Pass)> {
                 Variants::Complement(2),
             )
             .unwrap()
-        .pass,
+            .pass,
         ),
         (
             "logistic-by-fold".into(),
@@ -227,7 +227,7 @@ fn crossfit_passes(f: &Flavor) -> Vec<(String, Pass)> {
                 Variants::ByFold,
             )
             .unwrap()
-        .pass,
+            .pass,
         ),
         (
             "logistic-scores".into(),
@@ -240,7 +240,7 @@ fn crossfit_passes(f: &Flavor) -> Vec<(String, Pass)> {
                 Variants::ComplementScores(2),
             )
             .unwrap()
-        .pass,
+            .pass,
         ),
     ]
 }
@@ -249,8 +249,10 @@ fn crossfit_passes(f: &Flavor) -> Vec<(String, Pass)> {
 fn golden_plans_render_and_round_trip() {
     let bless = std::env::var_os("UPSHOT_BLESS").is_some();
     for (dir, f) in flavors() {
-        let mut all: Vec<(String, Pass)> =
-            passes(&f).into_iter().map(|p| (p.name.clone(), p)).collect();
+        let mut all: Vec<(String, Pass)> = passes(&f)
+            .into_iter()
+            .map(|p| (p.name.clone(), p))
+            .collect();
         all.extend(crossfit_passes(&f));
         for (name, p) in all {
             let sql = p.sql() + "\n";
@@ -367,7 +369,9 @@ fn user_sql_must_be_one_select_or_one_expression() {
 #[test]
 fn csv_sources_are_string_literals() {
     let src = Source::Csv("demo-data/it's here.csv".into());
-    let sql = upshot_sql::schema_probe(&Flavor::duckdb(), &src).unwrap().sql();
+    let sql = upshot_sql::schema_probe(&Flavor::duckdb(), &src)
+        .unwrap()
+        .sql();
     assert!(
         sql.contains("read_csv_auto('demo-data/it''s here.csv') AS src"),
         "{sql}"
@@ -380,7 +384,9 @@ fn parquet_sources_are_string_literals() {
     let src = Source::file("data/part-*.PARQUET");
     assert_eq!(src, Source::Parquet("data/part-*.PARQUET".into()));
     assert_eq!(Source::file("a.csv"), Source::Csv("a.csv".into()));
-    let sql = upshot_sql::schema_probe(&Flavor::duckdb(), &src).unwrap().sql();
+    let sql = upshot_sql::schema_probe(&Flavor::duckdb(), &src)
+        .unwrap()
+        .sql();
     assert!(
         sql.contains("read_parquet('data/part-*.PARQUET') AS src"),
         "{sql}"

@@ -19,4 +19,4 @@ mod model;
 mod raw;
 
 pub use error::{Location, StudyError};
-pub use model::{Estimand, Method, Question, QuestionInput, Route, Source, SourceKind, Study};
+pub use model::{Estimand, Method, Question, QuestionInput, Route, Rows, SourceSection, Study};

@@ -140,10 +140,11 @@ impl Method {
     }
 }
 
-/// How the rows are named.
+/// The rows as a study or a flag names them, unparsed (the core library resolves them into an
+/// `upshot_sql::Source`, the one source type passes read).
 #[derive(Clone, Debug, PartialEq, Eq, serde::Serialize)]
 #[serde(rename_all = "snake_case")]
-pub enum SourceKind {
+pub enum Rows {
     /// A table or view in the database.
     Table(String),
     /// A single SELECT statement (checked when the plan is built).
@@ -152,13 +153,13 @@ pub enum SourceKind {
     File(PathBuf),
 }
 
-/// Where the rows come from.
+/// The `[source]` section: where the rows come from.
 #[derive(Clone, Debug, PartialEq, Eq, serde::Serialize)]
-pub struct Source {
+pub struct SourceSection {
     /// Engine location (a DuckDB file, `duckdb::memory:`, later URLs); `None` for the default.
     pub database: Option<String>,
     /// The rows.
-    pub rows: Option<SourceKind>,
+    pub rows: Option<Rows>,
     /// A SQL boolean expression restricting the rows (parsed as one expression later).
     pub filter: Option<String>,
     /// Unit key column (one row per unit), used for folds and probes.
@@ -227,7 +228,7 @@ pub struct Study {
     /// Free text.
     pub description: Option<String>,
     /// The rows.
-    pub source: Source,
+    pub source: SourceSection,
     /// The diagram.
     pub diagram: Diagram,
     /// The questions, in file order.
@@ -344,7 +345,7 @@ impl Study {
         };
 
         // Source.
-        let mut source = Source {
+        let mut source = SourceSection {
             database: None,
             rows: None,
             filter: None,
@@ -358,21 +359,21 @@ impl Study {
                 kinds.push((
                     "table",
                     t.span().start,
-                    SourceKind::Table(nonempty(&lines, "source.table", t)?),
+                    Rows::Table(nonempty(&lines, "source.table", t)?),
                 ));
             }
             if let Some(q) = rs.query {
                 kinds.push((
                     "query",
                     q.span().start,
-                    SourceKind::Query(nonempty(&lines, "source.query", q)?),
+                    Rows::Query(nonempty(&lines, "source.query", q)?),
                 ));
             }
             if let Some(f) = rs.file {
                 kinds.push((
                     "file",
                     f.span().start,
-                    SourceKind::File(base.join(nonempty(&lines, "source.file", f)?)),
+                    Rows::File(base.join(nonempty(&lines, "source.file", f)?)),
                 ));
             }
             if kinds.len() > 1 {
@@ -506,7 +507,7 @@ impl Study {
             path: None,
             name: "command-line".into(),
             description: None,
-            source: Source {
+            source: SourceSection {
                 database: None,
                 rows: None,
                 filter: None,

@@ -10,10 +10,10 @@ mod passes;
 
 use crate::combine::{finish, segment, segment_label, target_size, Part};
 use crate::crossfit::{complement_moments, fold_gram_design, folds, row_design};
+use crate::models::per_segment;
 use crate::models::{fold_models, placeholder};
 use crate::outcome::fit_arm;
 use crate::prepare::{needs_folds, Setup};
-use crate::models::per_segment;
 use crate::propensity::{
     by_fold_pass, check_arms, complement_pass, cross_fitted_propensity, scores_pass_only,
 };

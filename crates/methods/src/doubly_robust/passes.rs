@@ -86,7 +86,6 @@ pub(crate) fn augmented_sums(
     })
 }
 
-
 /// The augmented score pass's sums of one group.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub(crate) struct AugmentedSums {

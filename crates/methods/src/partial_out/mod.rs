@@ -253,7 +253,11 @@ mod tests {
         assert!((theta - direct).abs() < 1e-15);
         let meat: f64 = sum(&|a, b| (a * (b - theta * a)).powi(2));
         let want = meat / s.stt.powi(2);
-        assert!((s.var(theta) - want).abs() < 1e-14 * want, "{} vs {want}", s.var(theta));
+        assert!(
+            (s.var(theta) - want).abs() < 1e-14 * want,
+            "{} vs {want}",
+            s.var(theta)
+        );
         assert_eq!(s.n, 6.0);
     }
 }

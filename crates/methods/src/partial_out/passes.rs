@@ -47,7 +47,6 @@ pub(crate) fn partial_out_sums(
     })
 }
 
-
 /// The layout of the partialled-out score pass: per group `n`, `Σ rt²`, `Σ rt ry`,
 /// `Σ rt² ry²`, `Σ rt³ ry`, `Σ rt⁴`.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]

@@ -11,8 +11,8 @@
 mod passes;
 
 use crate::combine::{finish, segment, segment_label, target_size, Part};
-use crate::prepare::Setup;
 use crate::models::{per_segment, placeholder_segments};
+use crate::prepare::Setup;
 use crate::propensity::{design, fit_propensity, logistic_pass};
 use crate::read::{row_of, symmetric};
 use crate::{ask, Estimate, MethodError, Outcome, Runner};

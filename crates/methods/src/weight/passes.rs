@@ -95,7 +95,6 @@ pub(crate) fn weighting_sums(
     })
 }
 
-
 /// The weighting pass's sums of one group.
 #[derive(Clone, Debug, PartialEq)]
 pub(crate) struct WeightingSums {
