@@ -91,3 +91,34 @@ pub(crate) fn check(dir: &str, flavor: &Flavor, name: &str, pass: &Pass) {
         path.display()
     );
 }
+
+/// The logistic passes of cross-fitting (file names carry a prefix to keep them apart from the
+/// single fit's `logistic-step`).
+#[test]
+fn golden_crossfit_logistic_passes() {
+    use upshot_sql::{logistic_fits, Source, Variants};
+    let src = Source::table("customers").unwrap();
+    let design = fold_design();
+    for (dir, f) in flavors() {
+        for (name, variants, models) in [
+            (
+                "logistic-crossfit",
+                Variants::Complement(2),
+                fold_models(0.0),
+            ),
+            (
+                "logistic-by-fold",
+                Variants::ByFold,
+                Models::single(vec![0.1, 0.2, 0.3]),
+            ),
+            (
+                "logistic-scores",
+                Variants::ComplementScores(2),
+                fold_models(0.0),
+            ),
+        ] {
+            let p = logistic_fits(&f, &src, None, &design, &models, variants).unwrap();
+            check(dir, &f, name, &p);
+        }
+    }
+}

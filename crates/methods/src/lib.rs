@@ -23,6 +23,34 @@
 //! This crate does no I/O.
 #![deny(missing_docs)]
 
+/// Declares a module's estimator: a unit struct whose [`Estimator`] impl answers to `$method`
+/// and calls the module's `passes` and `run`.
+macro_rules! estimator {
+    ($name:ident, $method:expr) => {
+        /// This module's estimator (registered in `ESTIMATORS`).
+        pub(crate) struct $name;
+
+        impl crate::Estimator for $name {
+            fn method(&self) -> crate::Method {
+                $method
+            }
+            fn passes(
+                &self,
+                s: &crate::prepare::Setup,
+            ) -> Result<Vec<upshot_sql::Pass>, crate::MethodError> {
+                passes(s)
+            }
+            fn run(
+                &self,
+                s: &crate::prepare::Setup,
+                r: &mut dyn crate::Runner,
+            ) -> Result<crate::Outcome, crate::MethodError> {
+                run(s, r)
+            }
+        }
+    };
+}
+
 mod combine;
 mod crossfit;
 mod doubly_robust;

@@ -165,17 +165,4 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     Ok(out)
 }
 
-/// The `doubly-robust` estimator.
-pub(crate) struct DoublyRobust;
-
-impl crate::Estimator for DoublyRobust {
-    fn method(&self) -> crate::Method {
-        crate::Method::DoublyRobust
-    }
-    fn passes(&self, s: &Setup) -> Result<Vec<Pass>, MethodError> {
-        passes(s)
-    }
-    fn run(&self, s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError> {
-        run(s, r)
-    }
-}
+estimator!(DoublyRobust, crate::Method::DoublyRobust);

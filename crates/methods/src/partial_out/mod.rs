@@ -214,20 +214,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     })
 }
 
-/// The `partial-out` estimator.
-pub(crate) struct PartialOut;
-
-impl crate::Estimator for PartialOut {
-    fn method(&self) -> crate::Method {
-        crate::Method::PartialOut
-    }
-    fn passes(&self, s: &Setup) -> Result<Vec<Pass>, MethodError> {
-        passes(s)
-    }
-    fn run(&self, s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError> {
-        run(s, r)
-    }
-}
+estimator!(PartialOut, crate::Method::PartialOut);
 
 #[cfg(test)]
 mod tests {

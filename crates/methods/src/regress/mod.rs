@@ -193,17 +193,4 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     })
 }
 
-/// The `regress` estimator.
-pub(crate) struct Regress;
-
-impl crate::Estimator for Regress {
-    fn method(&self) -> crate::Method {
-        crate::Method::Regress
-    }
-    fn passes(&self, s: &Setup) -> Result<Vec<Pass>, MethodError> {
-        passes(s)
-    }
-    fn run(&self, s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError> {
-        run(s, r)
-    }
-}
+estimator!(Regress, crate::Method::Regress);

@@ -185,20 +185,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     Ok(out)
 }
 
-/// The `stratify` estimator.
-pub(crate) struct Stratify;
-
-impl crate::Estimator for Stratify {
-    fn method(&self) -> crate::Method {
-        crate::Method::Stratify
-    }
-    fn passes(&self, s: &Setup) -> Result<Vec<Pass>, MethodError> {
-        passes(s)
-    }
-    fn run(&self, s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError> {
-        run(s, r)
-    }
-}
+estimator!(Stratify, crate::Method::Stratify);
 
 #[cfg(test)]
 mod tests {

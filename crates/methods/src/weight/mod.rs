@@ -129,17 +129,4 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     Ok(out)
 }
 
-/// The `weight` estimator.
-pub(crate) struct Weight;
-
-impl crate::Estimator for Weight {
-    fn method(&self) -> crate::Method {
-        crate::Method::Weight
-    }
-    fn passes(&self, s: &Setup) -> Result<Vec<Pass>, MethodError> {
-        passes(s)
-    }
-    fn run(&self, s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError> {
-        run(s, r)
-    }
-}
+estimator!(Weight, crate::Method::Weight);
