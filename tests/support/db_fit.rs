@@ -75,7 +75,8 @@ pub fn fit(path: &str, outcome: &str, covariates: &[String], logistic: bool) -> 
                             &Models::single(c.to_vec()),
                             Variants::Single,
                         )
-                        .map_err(|e| e.to_string())?,
+                        .map_err(|e| e.to_string())?
+                        .pass,
                     )
                     .map_err(|e| e.to_string())?;
                 let p = c.len();

@@ -258,7 +258,36 @@ fn plan_lists_the_passes_run_executes() {
         assert!(s.contains("-- pass 1: profile"), "{s}");
         assert!(s.contains("SELECT"), "{s}");
     }
-    let pg = upshot(&[
+    // PostgreSQL reads a table (plan opens no database); a file source is refused there.
+    let pg = |source: &str| {
+        upshot(&[
+            "plan",
+            "--graph",
+            GRAPH,
+            "--db",
+            "warehouse.duckdb",
+            "--source",
+            source,
+            "--treatment",
+            "voucher",
+            "--outcome",
+            "spend_30d",
+            "--method",
+            "weight",
+            "--dialect",
+            "postgres",
+        ])
+    };
+    let out = pg("analytics.customers");
+    let s = String::from_utf8_lossy(&out.stdout);
+    assert!(s.contains("DOUBLE PRECISION"), "{}", text(&out));
+    assert!(s.contains("\"analytics\".\"customers\""), "{s}");
+    assert!(!s.contains("upshot_"), "{s}");
+    let out = pg(SAMPLE);
+    assert_eq!(out.status.code(), Some(2), "{}", text(&out));
+    assert!(text(&out).contains("reads no CSV files"), "{}", text(&out));
+    // Without upshot's functions: --portable; the old dialect name says what replaced it.
+    let portable = upshot(&[
         "plan",
         "--graph",
         GRAPH,
@@ -270,13 +299,26 @@ fn plan_lists_the_passes_run_executes() {
         "spend_30d",
         "--method",
         "weight",
-        "--dialect",
-        "postgres",
+        "--portable",
     ]);
-    assert!(
-        String::from_utf8_lossy(&pg.stdout).contains("DOUBLE PRECISION"),
-        "{}",
-        text(&pg)
+    let s = String::from_utf8_lossy(&portable.stdout);
+    assert!(s.contains("SUM(") && !s.contains("upshot_"), "{s}");
+    fails(
+        &[
+            "plan",
+            "--graph",
+            GRAPH,
+            "--source",
+            SAMPLE,
+            "--treatment",
+            "voucher",
+            "--outcome",
+            "spend_30d",
+            "--dialect",
+            "duckdb-plain",
+        ],
+        2,
+        &["--portable"],
     );
 }
 
@@ -783,7 +825,7 @@ fn filters_are_row_predicates_and_sources_read_only() {
             "--filter",
             "prior_orders < (SELECT count(*) FROM read_text('/etc/hostname'))",
         ]),
-        &["--filter", "subquery", "read_text"],
+        &["filter", "subquery", "read_text"],
     );
     go(
         base(&["--source", "customers", "--filter", "getenv('HOME') <> ''"]),

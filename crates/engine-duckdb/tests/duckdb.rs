@@ -231,24 +231,37 @@ fn fused_moments_equal_plain_sums() {
     };
     type Build<'a> = dyn Fn(&Flavor) -> upshot_sql::Pass + 'a;
     let passes: Vec<(&str, Box<Build<'_>>)> = vec![
-        ("gram", Box::new(|f| gram(f, &src, None, &design).unwrap())),
+        (
+            "gram",
+            Box::new(|f| gram(f, &src, None, &design).unwrap().pass),
+        ),
         (
             "logistic",
-            Box::new(|f| logistic_fits(f, &src, None, &design, &one, Variants::Single).unwrap()),
+            Box::new(|f| {
+                logistic_fits(f, &src, None, &design, &one, Variants::Single)
+                    .unwrap()
+                    .pass
+            }),
         ),
         (
             "logistic by fold",
-            Box::new(|f| logistic_fits(f, &src, None, &design, &one, Variants::ByFold).unwrap()),
+            Box::new(|f| {
+                logistic_fits(f, &src, None, &design, &one, Variants::ByFold)
+                    .unwrap()
+                    .pass
+            }),
         ),
         (
             "logistic cross-fit",
             Box::new(|f| {
-                logistic_fits(f, &src, None, &design, &by_fold, Variants::Complement(3)).unwrap()
+                logistic_fits(f, &src, None, &design, &by_fold, Variants::Complement(3))
+                    .unwrap()
+                    .pass
             }),
         ),
         (
             "residuals",
-            Box::new(|f| residuals(f, &src, None, &design, &one).unwrap()),
+            Box::new(|f| residuals(f, &src, None, &design, &one).unwrap().pass),
         ),
     ];
     for (what, build) in &passes {

@@ -111,7 +111,8 @@ pub struct LogisticRow {
     pub n: f64,
     /// `Σ w_i (t − p)`.
     pub score: Vec<f64>,
-    /// `Σ p (1 − p) w_i w_j`, `i ≤ j`, row by row (empty for a scores-only pass).
+    /// `Σ p (1 − p) w_i w_j`, `i ≤ j`, row by row (empty for a scores-only pass, whose
+    /// log-likelihood and extreme probabilities are not computed either).
     pub information: Vec<f64>,
     /// The log-likelihood.
     pub loglik: f64,
@@ -152,14 +153,22 @@ impl LogisticLayout {
         fit: Option<usize>,
     ) -> Result<LogisticRow, ResultError> {
         let pre = fit.map_or(String::new(), |m| format!("m{m}_"));
+        let n = a.number(row, "n")?;
+        let score = vector(a, row, &format!("{pre}u"), self.width)?;
+        if self.scores_only {
+            return Ok(LogisticRow {
+                n,
+                score,
+                information: vec![],
+                loglik: 0.0,
+                min_p: 0.5,
+                max_p: 0.5,
+            });
+        }
         Ok(LogisticRow {
-            n: a.number(row, "n")?,
-            score: vector(a, row, &format!("{pre}u"), self.width)?,
-            information: if self.scores_only {
-                vec![]
-            } else {
-                upper(a, row, &format!("{pre}h"), self.width)?
-            },
+            n,
+            score,
+            information: upper(a, row, &format!("{pre}h"), self.width)?,
             loglik: a.number_or(row, &format!("{pre}loglik"), 0.0)?,
             min_p: a.number_or(row, &format!("{pre}min_p"), 0.5)?,
             max_p: a.number_or(row, &format!("{pre}max_p"), 0.5)?,

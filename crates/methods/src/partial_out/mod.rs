@@ -241,7 +241,7 @@ mod tests {
         let meat: f64 = sum(&|a, b| (a * (b - theta * a)).powi(2));
         let want = meat / s.stt.powi(2);
         assert!(
-            (s.var(theta) - want).abs() < 1e-14 * want,
+            (s.var(theta) - want).abs() < 1e-12 * want,
             "{} vs {want}",
             s.var(theta)
         );
