@@ -215,6 +215,21 @@ impl LevelsLayout {
     }
 }
 
+/// A column to profile.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct ProfileColumn {
+    /// Column name.
+    pub name: String,
+    /// Whether to compute a mean (numeric columns).
+    pub numeric: bool,
+    /// Whether to count distinct values (approximately where the engine can): hashing every
+    /// value is the costliest part of a profile, so only columns whose checks need it ask.
+    pub distinct: bool,
+    /// Whether to count the values that are neither 0 nor 1 (`c{i}_not01`): the exact, cheap
+    /// check of a 0/1 treatment.
+    pub zero_one: bool,
+}
+
 /// One profiled column, as the profile pass returned it.
 #[derive(Clone, Debug, PartialEq)]
 pub struct ProfiledColumn {
@@ -238,7 +253,7 @@ pub struct ProfiledColumn {
 #[derive(Clone, Debug, PartialEq, Eq)]
 pub struct ProfileLayout {
     /// The columns, in the order profiled.
-    pub columns: Vec<crate::passes::ProfileColumn>,
+    pub columns: Vec<ProfileColumn>,
 }
 
 impl ProfileLayout {

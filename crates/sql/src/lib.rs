@@ -44,11 +44,9 @@ pub use error::SqlError;
 pub use filter::FUNCTIONS as FILTER_FUNCTIONS;
 pub use layout::{
     group_keys, Built, CellsLayout, GramLayout, LevelsLayout, LogisticLayout, LogisticRow,
-    ProfileLayout, ProfiledColumn, ResidualLayout,
+    ProfileColumn, ProfileLayout, ProfiledColumn, ResidualLayout,
 };
-pub use passes::{
-    cells, gram, levels, logistic_fits, profile, residuals, schema_probe, ProfileColumn, Variants,
-};
+pub use passes::{cells, gram, levels, logistic_fits, profile, residuals, schema_probe, Variants};
 pub use results_table::{results_schema_file, results_sql, ResultsSql, RESULT_COLUMNS};
 pub use source::{complete_cases, is_parquet, is_parquet_pattern, parse_filter, Source};
 pub use sqlparser::ast::Expr;

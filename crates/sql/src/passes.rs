@@ -10,25 +10,11 @@ use crate::design::{
 use crate::dialect::Flavor;
 use crate::error::SqlError;
 use crate::layout::{
-    Built, CellsLayout, GramLayout, LevelsLayout, LogisticLayout, ProfileLayout, ResidualLayout,
+    Built, CellsLayout, GramLayout, LevelsLayout, LogisticLayout, ProfileColumn, ProfileLayout,
+    ResidualLayout,
 };
 use crate::source::Source;
 use sqlparser::ast::Expr;
-
-/// A column to profile.
-#[derive(Clone, Debug, PartialEq, Eq)]
-pub struct ProfileColumn {
-    /// Column name.
-    pub name: String,
-    /// Whether to compute a mean (numeric columns).
-    pub numeric: bool,
-    /// Whether to count distinct values (approximately where the engine can): hashing every
-    /// value is the costliest part of a profile, so only columns whose checks need it ask.
-    pub distinct: bool,
-    /// Whether to count the values that are neither 0 nor 1 (`c{i}_not01`): the exact, cheap
-    /// check of a 0/1 treatment.
-    pub zero_one: bool,
-}
 
 /// The profile pass: row count, and per column non-NULL count, and for numeric columns
 /// minimum, maximum, mean and sum of squares and, where asked, distinct count
