@@ -17,26 +17,32 @@ pub(crate) fn folds(s: &Setup) -> u32 {
     }
 }
 
+/// How the rows a nuisance model of held-out fold `j` is fitted on are named in messages:
+/// `segment x, rows outside fold j` when cross-fitting, the segment's label otherwise.
+pub(crate) fn fit_label(s: &Setup, seg: &[KeyValue], j: usize) -> String {
+    let label = crate::combine::segment_label(s, seg);
+    if folds(s) > 1 {
+        format!("{label}, rows outside fold {j}")
+    } else {
+        label
+    }
+}
+
+/// The fold hash of a cross-fitting spec (`None` without cross-fitting, which includes a
+/// spec without a unit key).
 fn fold(s: &Setup) -> Option<Fold> {
-    needs_folds(s.spec).then(|| Fold {
-        unit: s.spec.unit.clone().expect("checked with the schema"),
+    let unit = s.spec.unit.clone().filter(|_| needs_folds(s.spec))?;
+    Some(Fold {
+        unit,
         folds: s.spec.folds,
     })
 }
 
 /// The Gram design grouped by segment, fold (when cross-fitting) and, if `by_arm`, arm, over
 /// the covariates and then `last` terms.
-pub(crate) fn fold_gram_design(
-    s: &Setup,
-    by_arm: bool,
-    last: Vec<upshot_sql::DesignTerm>,
-) -> Design {
+pub(crate) fn gram_design(s: &Setup, by_arm: bool, last: Vec<upshot_sql::DesignTerm>) -> Design {
     let spec = s.spec;
-    let mut keys: Vec<Key> = spec
-        .segments
-        .iter()
-        .map(|c| Key::Column(c.clone()))
-        .collect();
+    let mut keys = s.segment_keys();
     if needs_folds(spec) {
         keys.push(Key::Fold);
     }
@@ -53,16 +59,12 @@ pub(crate) fn fold_gram_design(
     }
 }
 
-/// The row design for passes that evaluate fold-selected models: segment keys, the fold, the
-/// treatment `t` and outcome `y`.
+/// The row design for passes that evaluate per-segment (and, when cross-fitting, per-fold)
+/// models: segment keys, the fold, the treatment `t` and outcome `y`.
 pub(crate) fn row_design(s: &Setup) -> Design {
     let spec = s.spec;
     Design {
-        keys: spec
-            .segments
-            .iter()
-            .map(|c| Key::Column(c.clone()))
-            .collect(),
+        keys: s.segment_keys(),
         terms: s.terms.clone(),
         extras: vec![("t", spec.treatment.clone()), ("y", spec.outcome.clone())],
         fold: fold(s),

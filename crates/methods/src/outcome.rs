@@ -1,31 +1,10 @@
-//! Per-arm linear outcome models: the Gram design grouped by segment and arm, least-squares
-//! fits with errors that name the rows, and the covariate moments of a target population.
+//! Per-arm linear outcome models: least-squares fits from a Gram pass's moments, with errors
+//! that name the rows, and the covariate moments of a target population.
 
 use crate::prepare::Setup;
 use crate::MethodError;
 use nalgebra::{DMatrix, DVector};
 use upshot_fit::{ols, Moments, Ols};
-use upshot_sql::{Design, Key};
-
-pub(crate) fn gram_design(s: &Setup, by_arm: bool) -> Design {
-    let spec = s.spec;
-    let mut keys: Vec<Key> = spec
-        .segments
-        .iter()
-        .map(|c| Key::Column(c.clone()))
-        .collect();
-    if by_arm {
-        keys.push(Key::Column(spec.treatment.clone()));
-    }
-    let mut terms = s.terms.clone();
-    terms.push(s.outcome_term.clone());
-    Design {
-        keys,
-        terms,
-        extras: vec![],
-        fold: None,
-    }
-}
 
 /// A least-squares fit of the outcome (last term) on the covariates, with context in errors.
 pub(crate) fn fit_arm(s: &Setup, m: &Moments, what: &str) -> Result<Ols, MethodError> {

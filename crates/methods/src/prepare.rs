@@ -53,6 +53,15 @@ impl Setup<'_> {
     pub fn column(&self, name: &str) -> Option<&Profiled> {
         self.profiled.iter().find(|p| p.name == name)
     }
+
+    /// The segment columns as group keys of a design.
+    pub fn segment_keys(&self) -> Vec<upshot_sql::Key> {
+        self.spec
+            .segments
+            .iter()
+            .map(|c| upshot_sql::Key::Column(c.clone()))
+            .collect()
+    }
 }
 
 fn edit_distance(a: &str, b: &str) -> usize {

@@ -4,36 +4,15 @@
 //! that each leave one fold out.
 
 use crate::combine::segment_label;
-use crate::crossfit::{fold_sum, folds, row_design, rows_by_fold};
+use crate::crossfit::{fit_label, fold_sum, folds, row_design, rows_by_fold};
 use crate::models::{fold_models, per_segment};
 use crate::prepare::{needs_folds, Setup};
 use crate::read::{by_segment, logit_sums, row_of};
 use crate::{ask, MethodError, Runner};
 use upshot_fit::{logit_many, FitError, Logit, LogitSums, NewtonOptions};
 use upshot_sql::{
-    logistic_fits, Aggregates, Built, Design, Key, KeyValue, LogisticLayout, Models, Variants,
+    logistic_fits, Aggregates, Built, Design, KeyValue, LogisticLayout, Models, Variants,
 };
-
-pub(crate) fn design(s: &Setup, fold: bool) -> Design {
-    let spec = s.spec;
-    Design {
-        keys: spec
-            .segments
-            .iter()
-            .map(|c| Key::Column(c.clone()))
-            .collect(),
-        terms: s.terms.clone(),
-        extras: vec![("t", spec.treatment.clone()), ("y", spec.outcome.clone())],
-        fold: if fold && crate::prepare::needs_folds(spec) {
-            Some(upshot_sql::Fold {
-                unit: spec.unit.clone().expect("checked with the schema"),
-                folds: spec.folds,
-            })
-        } else {
-            None
-        },
-    }
-}
 
 pub(crate) fn param_names(s: &Setup) -> Vec<String> {
     let mut names = vec!["(intercept)".to_string()];
@@ -50,7 +29,10 @@ pub(crate) fn logistic_pass(
         &spec.flavor,
         &spec.source,
         s.filter.as_ref(),
-        &design(s, false),
+        &Design {
+            fold: None,
+            ..row_design(s)
+        },
         models,
         Variants::Single,
     )?)
@@ -206,11 +188,7 @@ fn newton_complements(
     for (i, seg) in segs.iter().enumerate() {
         let mut per = Vec::new();
         for j in 0..k {
-            let label = if k > 1 {
-                format!("{}, rows outside fold {j}", segment_label(s, seg))
-            } else {
-                segment_label(s, seg)
-            };
+            let label = fit_label(s, seg, j);
             let f = fits[i * k + j]
                 .clone()
                 .map_err(|e| propensity_error(&label, e))?;

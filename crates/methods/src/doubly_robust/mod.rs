@@ -9,7 +9,7 @@
 mod passes;
 
 use crate::combine::{finish, segment, segment_label, target_size, Part};
-use crate::crossfit::{complement_moments, fold_gram_design, folds, row_design};
+use crate::crossfit::{complement_moments, fit_label, folds, gram_design, row_design};
 use crate::models::per_segment;
 use crate::models::{fold_models, placeholder};
 use crate::outcome::fit_arm;
@@ -28,7 +28,7 @@ fn gram_pass(s: &Setup) -> Result<Built<GramLayout>, MethodError> {
         &spec.flavor,
         &spec.source,
         s.filter.as_ref(),
-        &fold_gram_design(s, true, vec![s.outcome_term.clone()]),
+        &gram_design(s, true, vec![s.outcome_term.clone()]),
     )?)
 }
 
@@ -91,14 +91,9 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     let mut coef1 = Vec::new();
     let mut coef0 = Vec::new();
     for (seg, per_fold) in &comp {
-        let label = segment_label(s, seg);
         let (mut c1, mut c0) = (Vec::new(), Vec::new());
         for (j, arms) in per_fold.iter().enumerate() {
-            let what = if k > 1 {
-                format!("{label}, rows outside fold {j}")
-            } else {
-                label.clone()
-            };
+            let what = fit_label(s, seg, j);
             let n1 = arms[1].as_ref().map_or(0.0, |m| m.n);
             let n0 = arms[0].as_ref().map_or(0.0, |m| m.n);
             check_arms(s, seg, n1, n0).map_err(|e| match k {

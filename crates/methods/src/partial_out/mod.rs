@@ -9,8 +9,8 @@
 
 mod passes;
 
-use crate::combine::{segment, segment_label, Part};
-use crate::crossfit::{complement_moments, fold_gram_design, folds, row_design};
+use crate::combine::{segment, Part};
+use crate::crossfit::{complement_moments, fit_label, gram_design, row_design};
 use crate::models::{fold_models, placeholder};
 use crate::prepare::Setup;
 use crate::read::{keys, row_of};
@@ -25,7 +25,7 @@ fn gram_pass(s: &Setup) -> Result<Built<GramLayout>, MethodError> {
         &spec.flavor,
         &spec.source,
         s.filter.as_ref(),
-        &fold_gram_design(
+        &gram_design(
             s,
             false,
             vec![s.treatment_term.clone(), s.outcome_term.clone()],
@@ -98,7 +98,6 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     let g = ask(r, &gp)?;
     let comp = complement_moments(s, &gp.layout, &g, &names, &terms, false)?;
     let x: Vec<usize> = (0..p).collect();
-    let k = folds(s) as usize;
     let segs: Vec<Vec<KeyValue>> = comp.iter().map(|c| c.0.clone()).collect();
     let (mut ct, mut cy) = (Vec::new(), Vec::new());
     let binary = matches!(
@@ -106,14 +105,9 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
         Some((upshot_sql::Cell::Number(a), upshot_sql::Cell::Number(b), other)) if *a == 0.0 && *b == 1.0 && other == 0.0
     );
     for (seg, per_fold) in &comp {
-        let label = segment_label(s, seg);
         let (mut a, mut b) = (Vec::new(), Vec::new());
         for (j, m) in per_fold.iter().enumerate() {
-            let what = if k > 1 {
-                format!("{label}, rows outside fold {j}")
-            } else {
-                label.clone()
-            };
+            let what = fit_label(s, seg, j);
             let m = m[0].as_ref().ok_or_else(|| {
                 MethodError::Input(format!("{what}: no rows to fit the nuisance models"))
             })?;

@@ -6,7 +6,8 @@
 //! for `c̃ = (1, x̄)`, HC1 covariances `V`, and the target rows' covariate covariance `Σₓ`.
 
 use crate::combine::{finish, segment, segment_label, Part};
-use crate::outcome::{covariate_moments, fit_arm, gram_design};
+use crate::crossfit::gram_design;
+use crate::outcome::{covariate_moments, fit_arm};
 use crate::prepare::Setup;
 use crate::read::{by_segment, moments, row_of, symmetric};
 use crate::{ask, Estimand, Estimate, MethodError, Outcome, Runner};
@@ -19,11 +20,7 @@ use upshot_sql::{
 
 fn residual_design(s: &Setup) -> Design {
     let spec = s.spec;
-    let mut keys: Vec<Key> = spec
-        .segments
-        .iter()
-        .map(|c| Key::Column(c.clone()))
-        .collect();
+    let mut keys = s.segment_keys();
     keys.push(Key::Column(spec.treatment.clone()));
     Design {
         keys,
@@ -39,7 +36,7 @@ fn gram_pass(s: &Setup) -> Result<Built<GramLayout>, MethodError> {
         &spec.flavor,
         &spec.source,
         s.filter.as_ref(),
-        &gram_design(s, true),
+        &gram_design(s, true, vec![s.outcome_term.clone()]),
     )?)
 }
 

@@ -11,14 +11,15 @@
 mod passes;
 
 use crate::combine::{finish, segment, segment_label, target_size, Part};
+use crate::crossfit::row_design;
 use crate::models::{per_segment, placeholder_segments};
 use crate::prepare::Setup;
-use crate::propensity::{design, fit_propensity, logistic_pass};
+use crate::propensity::{fit_propensity, logistic_pass};
 use crate::read::{row_of, symmetric};
 use crate::{ask, Estimate, MethodError, Outcome, Runner};
 use nalgebra::DVector;
 use passes::{weighting_sums, WeightingLayout};
-use upshot_sql::{Built, Models, Pass};
+use upshot_sql::{Built, Design, Models, Pass};
 
 fn weights_pass(s: &Setup, models: &Models) -> Result<Built<WeightingLayout>, MethodError> {
     let spec = s.spec;
@@ -26,7 +27,10 @@ fn weights_pass(s: &Setup, models: &Models) -> Result<Built<WeightingLayout>, Me
         &spec.flavor,
         &spec.source,
         s.filter.as_ref(),
-        &design(s, false),
+        &Design {
+            fold: None,
+            ..row_design(s)
+        },
         models,
         spec.estimand,
         spec.clip,
