@@ -935,3 +935,35 @@ fn the_one_binary_treatment_rule() {
         &["binary", "partial-out"],
     );
 }
+
+#[test]
+fn check_and_run_read_the_same_database_from_a_study() {
+    // A study names its database relative to itself; `check` and `run` both resolve it so,
+    // whatever the current folder.
+    let dir = std::env::temp_dir().join(format!("upshot-run-{}-paths", std::process::id()));
+    let _ = std::fs::remove_dir_all(&dir);
+    std::fs::create_dir_all(dir.join("studies")).unwrap();
+    let db = dir.join("studies/warehouse.duckdb");
+    let e = DuckDbEngine::open(db.to_str().unwrap(), true).unwrap();
+    e.execute_batch(&format!(
+        "CREATE TABLE customers AS SELECT * FROM read_csv_auto('{}')",
+        repo().join(SAMPLE).display()
+    ))
+    .unwrap();
+    drop(e);
+    std::fs::copy(repo().join(GRAPH), dir.join("studies/voucher.graph")).unwrap();
+    std::fs::write(
+        dir.join("studies/s.toml"),
+        "[source]\ndatabase = \"warehouse.duckdb\"\ntable = \"customers\"\n\n[diagram]\nfile = \"voucher.graph\"\n\n[[question]]\nname = \"spend\"\ntreatment = \"voucher\"\noutcome = \"spend_30d\"\nmethod = \"regress\"\n",
+    )
+    .unwrap();
+    for verb in ["check", "run"] {
+        let out = Command::new(env!("CARGO_BIN_EXE_upshot"))
+            .args([verb, "studies/s.toml"])
+            .current_dir(&dir)
+            .output()
+            .unwrap();
+        assert_eq!(out.status.code(), Some(0), "{verb}: {}", text(&out));
+    }
+    let _ = std::fs::remove_dir_all(&dir);
+}
