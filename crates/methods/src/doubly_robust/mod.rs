@@ -132,8 +132,9 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
         let var = (snn - 2.0 * tau * sdn + tau * tau * sd) / (sd * sd);
         let (clipped1, clipped0) = (a.clipped1, a.clipped0);
         out.diagnostics.notes.push(format!(
-            "{}: cross-fitted propensity from {:.4} to {:.4}{}",
+            "{}: {}propensity from {:.4} to {:.4}{}",
             segment_label(s, seg),
+            if needs_folds(spec) { "cross-fitted " } else { "" },
             a.min_e,
             a.max_e,
             if clipped1 + clipped0 > 0.0 {
