@@ -168,6 +168,7 @@ fn main() {
                 name: c.name,
                 numeric: c.numeric,
                 integer: c.integer,
+                boolean: c.boolean,
             })
             .collect();
         for (row, tally) in methods.iter().zip(tallies.iter_mut()) {

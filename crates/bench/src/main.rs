@@ -187,6 +187,7 @@ fn measure(approach: &str, db: &Path, w: &Work) -> Result<Value, String> {
                     name: c.name,
                     numeric: c.numeric,
                     integer: c.integer,
+                    boolean: c.boolean,
                 })
                 .collect();
             let flavor = if approach == "upshot" {

@@ -69,7 +69,7 @@ fn scratch(name: &str) -> PathBuf {
          prior_orders + 100 * voucher AS leak, customer_id % 2000 AS cell_id, \
          CASE WHEN customer_id % 10 = 0 THEN NULL ELSE household_size END AS household_gappy, \
          CAST(NULL AS DOUBLE) AS empty_col, spend_30d AS \"spend 30d\", zone AS \"select\", \
-         prior_orders AS \"say \"\"hi\"\"\" FROM read_csv_auto('{}');
+         prior_orders AS \"say \"\"hi\"\"\", CAST(voucher AS BOOLEAN) AS voucher_flag FROM read_csv_auto('{}');
          CREATE TABLE new_untreated AS SELECT * REPLACE (CASE WHEN tenure_band = 'new' THEN 0 ELSE voucher END AS voucher) FROM customers;",
         csv.display()
     ))
@@ -520,7 +520,7 @@ fn bad_input_is_refused_with_the_column_or_value_named() {
         e.columns(&upshot_sql::Source::table("customers").unwrap())
             .unwrap()
             .len(),
-        18
+        19
     );
 }
 
@@ -966,4 +966,39 @@ fn check_and_run_read_the_same_database_from_a_study() {
         assert_eq!(out.status.code(), Some(0), "{verb}: {}", text(&out));
     }
     let _ = std::fs::remove_dir_all(&dir);
+}
+
+#[test]
+fn a_boolean_treatment_gives_the_estimate_of_its_0_1_coding() {
+    let db = scratch("boolean");
+    let db = db.to_str().unwrap();
+    let estimate = |t: &str| {
+        let g = format!("prior_orders, zone -> {t} -> spend_30d; prior_orders, zone -> spend_30d");
+        let v = json(&[
+            "run",
+            "--db",
+            db,
+            "--source",
+            "customers",
+            "--graph",
+            &g,
+            "--treatment",
+            t,
+            "--outcome",
+            "spend_30d",
+            "--method",
+            "doubly-robust",
+            "--unit",
+            "customer_id",
+        ]);
+        (
+            v["estimates"][0]["estimate"].as_f64().unwrap(),
+            v["estimates"][0]["std_error"].as_f64().unwrap(),
+        )
+    };
+    let (a, b) = (estimate("voucher"), estimate("voucher_flag"));
+    assert!(
+        (a.0 - b.0).abs() < 1e-12 * a.0.abs() && (a.1 - b.1).abs() < 1e-12 * a.1,
+        "{a:?} {b:?}"
+    );
 }

@@ -179,7 +179,7 @@ pub fn resolve(
 ) -> Result<Vec<Resolved>, CoreError> {
     questions(study, only)?
         .into_iter()
-        .map(|q| resolve_one(study, q, settings, flavor))
+        .map(|q| resolve_one(study, q, settings, flavor.clone()))
         .collect()
 }
 

@@ -59,19 +59,25 @@ pub fn run(
                 r.source_label
             )));
         }
-        r.spec.flavor = engine.flavor();
         let cols = engine.columns(&r.spec.source).map_err(|e| {
             CoreError::Input(format!(
                 "question `{}`: cannot read the columns of {}: {e}; check the table name (quoted names are case-sensitive), the file path or the query",
                 r.question, r.source_label
             ))
         })?;
+        let booleans = cols
+            .iter()
+            .filter(|c| c.boolean)
+            .map(|c| c.name.clone())
+            .collect();
+        r.spec.flavor = engine.flavor().with_booleans(booleans);
         r.spec.columns = Some(
             cols.into_iter()
                 .map(|c| ColumnType {
                     name: c.name,
                     numeric: c.numeric,
                     integer: c.integer,
+                    boolean: c.boolean,
                 })
                 .collect(),
         );

@@ -235,6 +235,7 @@ impl Engine for DuckDbEngine {
                 type_name: f.data_type().to_string(),
                 numeric: f.data_type().is_numeric() || matches!(f.data_type(), DataType::Boolean),
                 integer: f.data_type().is_integer(),
+                boolean: matches!(f.data_type(), DataType::Boolean),
             })
             .collect())
     }

@@ -62,6 +62,8 @@ pub struct Column {
     pub numeric: bool,
     /// Whether the type is an integer.
     pub integer: bool,
+    /// Whether the type is boolean (some dialects read it as a number through an integer).
+    pub boolean: bool,
 }
 
 /// A parameter of a write statement.
@@ -112,10 +114,7 @@ pub trait Engine {
     fn capabilities(&self) -> Capabilities;
     /// What passes are built for: the dialect and the functions present.
     fn flavor(&self) -> Flavor {
-        Flavor {
-            dialect: self.dialect(),
-            functions: self.capabilities().functions,
-        }
+        Flavor::plain(self.dialect()).with_functions(self.capabilities().functions)
     }
     /// Runs one pass and returns its few rows.
     fn run(&self, pass: &Pass) -> Result<Aggregates, EngineError>;

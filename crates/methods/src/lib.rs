@@ -137,6 +137,8 @@ pub struct ColumnType {
     pub numeric: bool,
     /// Integer type (a unit key for folds must be one).
     pub integer: bool,
+    /// Boolean type.
+    pub boolean: bool,
 }
 
 /// One estimation request, fully resolved (route chosen, sets fixed).

@@ -28,6 +28,7 @@ fn every_method_agrees_with_and_without_upshots_functions() {
             name: c.name,
             numeric: c.numeric,
             integer: c.integer,
+            boolean: c.boolean,
         })
         .collect();
     for (method, estimand) in [

@@ -44,7 +44,7 @@ impl PassText {
     /// An empty text for `flavor`.
     pub fn new(flavor: &Flavor) -> Self {
         PassText {
-            flavor: *flavor,
+            flavor: flavor.clone(),
             binds: Vec::new(),
             sql: String::new(),
         }
@@ -70,6 +70,26 @@ impl PassText {
     /// The float type of the flavor's dialect.
     pub fn float(&self) -> &'static str {
         self.flavor.dialect.float_type()
+    }
+    /// Whether column `name` is read through an integer: a boolean column, in a dialect that
+    /// cannot cast a boolean to a float.
+    pub fn boolean_via_integer(&self, name: &str) -> bool {
+        !self.flavor.dialect.casts_boolean_to_float()
+            && self.flavor.booleans.iter().any(|b| b == name)
+    }
+    /// The placeholder `p` of column `name` cast to the float type.
+    pub fn float_of(&self, p: &str, name: &str) -> String {
+        let f = self.float();
+        if self.boolean_via_integer(name) {
+            format!("CAST(CAST({p} AS INTEGER) AS {f})")
+        } else {
+            format!("CAST({p} AS {f})")
+        }
+    }
+    /// Column `name` cast to the float type.
+    pub fn float_column(&mut self, name: &str) -> String {
+        let p = self.column(name);
+        self.float_of(&p, name)
     }
     /// `SELECT keys, outputs FROM from [GROUP BY keys ORDER BY keys]` for a design of `k`
     /// terms (see [`Out`]).
@@ -303,7 +323,6 @@ impl Models {
 
 /// The SQL expression of one term, centred and scaled, reading the source's columns.
 pub fn term_sql(t: &mut PassText, term: &DesignTerm) -> Result<String, SqlError> {
-    let f = t.flavor.dialect.float_type();
     let text = t.flavor.dialect.text_type();
     let (centre, scale) = term.centre_scale();
     if !(scale.is_finite() && scale > 0.0) {
@@ -314,10 +333,7 @@ pub fn term_sql(t: &mut PassText, term: &DesignTerm) -> Result<String, SqlError>
     }
     template::number(centre, &format!("the centre of `{}`", term.column()))?;
     let raw = match term {
-        DesignTerm::Numeric { column, .. } => {
-            let c = t.bind(Bind::Column(column.clone()));
-            format!("CAST({c} AS {f})")
-        }
+        DesignTerm::Numeric { column, .. } => t.float_column(column),
         DesignTerm::Level { column, level, .. } => {
             let c = t.bind(Bind::Column(column.clone()));
             let l = t.bind(Bind::Text(level.clone()));
@@ -395,7 +411,6 @@ impl Design {
 
     /// The derived table of design rows; NULLs in any used column excluded.
     pub fn rows(&self, t: &mut PassText) -> Result<String, SqlError> {
-        let f = t.flavor.dialect.float_type();
         let mut items = Vec::new();
         for (i, k) in self.keys.iter().enumerate() {
             match k {
@@ -419,8 +434,7 @@ impl Design {
             items.push(format!("{} AS v{i}", term_sql(t, term)?));
         }
         for (alias, c) in &self.extras {
-            let p = t.bind(Bind::Column(c.clone()));
-            items.push(format!("CAST({p} AS {f}) AS {alias}"));
+            items.push(format!("{} AS {alias}", t.float_column(c)));
         }
         if items.is_empty() {
             items.push("1 AS one".into());

@@ -110,13 +110,17 @@ pub const DUCKDB_MOMENTS: (&str, usize) = ("upshot_moments", 160);
 /// The linear-predictor function upshot registers in the DuckDB databases it opens.
 pub const DUCKDB_LINEAR: &str = "upshot_linear";
 
-/// What passes are built for: a dialect and the functions the database offers.
-#[derive(Clone, Copy)]
+/// What passes are built for: the engine's dialect, the functions its database offers, and the
+/// source's boolean columns (a dialect that cannot cast a boolean to a float reads them through
+/// an integer; the list is empty when the source's types are not known, as in `plan`).
+#[derive(Clone)]
 pub struct Flavor {
     /// The SQL dialect.
     pub dialect: &'static dyn Dialect,
     /// upshot's functions present in the database.
     pub functions: Functions,
+    /// The source's boolean columns.
+    pub booleans: Vec<String>,
 }
 
 impl Flavor {
@@ -125,6 +129,7 @@ impl Flavor {
         Flavor {
             dialect,
             functions: Functions::NONE,
+            booleans: Vec::new(),
         }
     }
     /// DuckDB as upshot opens it: with upshot's functions.
@@ -132,7 +137,18 @@ impl Flavor {
         Flavor {
             dialect: &DuckDb,
             functions: Functions::UPSHOT_DUCKDB,
+            booleans: Vec::new(),
         }
+    }
+    /// The same, with `functions`.
+    pub fn with_functions(mut self, functions: Functions) -> Flavor {
+        self.functions = functions;
+        self
+    }
+    /// The same, for a source whose boolean columns are `booleans`.
+    pub fn with_booleans(mut self, booleans: Vec<String>) -> Flavor {
+        self.booleans = booleans;
+        self
     }
 }
 
@@ -141,6 +157,7 @@ impl std::fmt::Debug for Flavor {
         f.debug_struct("Flavor")
             .field("dialect", &self.dialect.name())
             .field("functions", &self.functions)
+            .field("booleans", &self.booleans)
             .finish()
     }
 }

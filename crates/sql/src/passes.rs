@@ -31,26 +31,30 @@ pub fn profile(
     let mut items = vec!["COUNT(*) AS n_rows".to_string()];
     for (i, c) in columns.iter().enumerate() {
         let p = t.column(&c.name);
+        let x = t.float_of(&p, &c.name);
+        // A boolean the dialect cannot cast is compared and ordered as a number too.
+        let v = if t.boolean_via_integer(&c.name) {
+            x.clone()
+        } else {
+            p.clone()
+        };
         items.push(format!("COUNT({p}) AS c{i}_n"));
         if c.numeric {
             // Text columns get no MIN/MAX: comparing strings row by row costs more than the
             // rest of the pass, and their levels come from the levels pass.
-            items.push(format!("MIN({p}) AS c{i}_min"));
-            items.push(format!("MAX({p}) AS c{i}_max"));
-            items.push(format!("AVG(CAST({p} AS {})) AS c{i}_mean", d.float_type()));
+            items.push(format!("MIN({v}) AS c{i}_min"));
+            items.push(format!("MAX({v}) AS c{i}_max"));
+            items.push(format!("AVG({x}) AS c{i}_mean"));
             // The sum of squares, not STDDEV_POP: the deviation only scales the later passes
             // (their sums are centred on the exact mean), and a running-variance aggregate
             // costs several times a sum.
-            items.push(format!(
-                "SUM(CAST({p} AS {f}) * CAST({p} AS {f})) AS c{i}_ss",
-                f = d.float_type()
-            ));
+            items.push(format!("SUM({x} * {x}) AS c{i}_ss"));
         }
         if c.zero_one {
             items.push(if d.aggregate_filter() {
-                format!("COUNT(*) FILTER (WHERE {p} <> 0 AND {p} <> 1) AS c{i}_not01")
+                format!("COUNT(*) FILTER (WHERE {v} <> 0 AND {v} <> 1) AS c{i}_not01")
             } else {
-                format!("SUM(CASE WHEN {p} <> 0 AND {p} <> 1 THEN 1 ELSE 0 END) AS c{i}_not01")
+                format!("SUM(CASE WHEN {v} <> 0 AND {v} <> 1 THEN 1 ELSE 0 END) AS c{i}_not01")
             });
         }
         if c.distinct {
@@ -98,20 +102,19 @@ pub fn cells(
     value: &str,
 ) -> Result<Built<CellsLayout>, SqlError> {
     let mut t = PassText::new(flavor);
-    let d = flavor.dialect;
     let mut used = keys.to_vec();
     used.push(value.to_string());
     let y = t.column(value);
     let ks: Vec<String> = keys.iter().map(|k| t.column(k)).collect();
-    let f = d.float_type();
     let mut items: Vec<String> = ks
         .iter()
         .enumerate()
         .map(|(i, k)| format!("{k} AS k{i}"))
         .collect();
     items.push("COUNT(*) AS n".into());
-    items.push(format!("SUM(CAST({y} AS {f})) AS sy"));
-    items.push(format!("SUM(CAST({y} AS {f}) * CAST({y} AS {f})) AS syy"));
+    let yf = t.float_of(&y, value);
+    items.push(format!("SUM({yf}) AS sy"));
+    items.push(format!("SUM({yf} * {yf}) AS syy"));
     let w = not_null(&mut t, &used);
     let mut sql = format!("SELECT {} FROM __src AS src WHERE {w}", items.join(", "));
     if !ks.is_empty() {

@@ -361,3 +361,42 @@ fn results_schema_file_is_current_and_statements_quote_the_name() {
     );
     assert!(upshot_sql::results_sql(d, "a..b").is_err());
 }
+
+#[test]
+fn booleans_are_read_through_an_integer_where_the_dialect_needs_it() {
+    let src = Source::table("t").unwrap();
+    let col = |name: &str| ProfileColumn {
+        name: name.into(),
+        numeric: true,
+        distinct: false,
+        zero_one: true,
+    };
+    let term = DesignTerm::Numeric {
+        column: "flag".into(),
+        centre: 0.5,
+        scale: 0.5,
+    };
+    let design = Design::grouped(&[], &[term], &[("t", "flag")]);
+    let pg = Flavor::plain(&Postgres).with_booleans(vec!["flag".into()]);
+    let p = profile(&pg, &src, None, &[col("flag"), col("x")])
+        .unwrap()
+        .sql();
+    let via = "CAST(CAST(\"flag\" AS INTEGER) AS DOUBLE PRECISION)";
+    assert!(p.contains(&format!("MIN({via})")), "{p}");
+    assert!(p.contains(&format!("AVG({via})")), "{p}");
+    assert!(p.contains(&format!("{via} <> 0")), "{p}");
+    assert!(
+        p.contains("MIN(\"x\")") && p.contains("AVG(CAST(\"x\" AS DOUBLE PRECISION))"),
+        "{p}"
+    );
+    let g = gram(&pg, &src, None, &design).unwrap().sql();
+    assert!(g.contains(via), "{g}");
+    assert!(!g.contains("CAST(\"flag\" AS DOUBLE PRECISION)"), "{g}");
+    // DuckDB casts a boolean to a float itself: the same text as for any column.
+    let duck = Flavor::duckdb().with_booleans(vec!["flag".into()]);
+    let p = profile(&duck, &src, None, &[col("flag")]).unwrap().sql();
+    assert!(
+        p.contains("AVG(CAST(\"flag\" AS DOUBLE))") && !p.contains("INTEGER"),
+        "{p}"
+    );
+}
