@@ -251,12 +251,9 @@ pub fn run_run(a: Args) -> Result<i32, Failure> {
     }
     let study = study_of(&a, "run")?;
     let settings = settings(&a)?;
-    // The engine's dialect parses user SQL before anything is opened.
-    let rows_at = match upshot_core::source_of(&study, &upshot_sql::DuckDb) {
-        Ok(s) => s.database,
-        Err(_) => upshot_core::DEFAULT_DATABASE.to_string(),
-    };
-    let connector = upshot_core::connector(ENGINES, &rows_at)
+    // The engine's dialect parses user SQL; nothing is opened before every question resolves.
+    let locator = upshot_core::database_of(&study);
+    let connector = upshot_core::connector(ENGINES, &locator)
         .map_err(|e| Failure::input(format!("--db: {e}")))?;
     let resolved = upshot_core::resolve(
         &study,
@@ -264,9 +261,6 @@ pub fn run_run(a: Args) -> Result<i32, Failure> {
         &settings,
         Flavor::plain(connector.dialect()),
     )?;
-    let locator = resolved
-        .first()
-        .map_or(rows_at.clone(), |r| r.database.clone());
     let access = if a.into.is_some() {
         Access::ReadWrite
     } else {

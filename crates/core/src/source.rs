@@ -59,6 +59,15 @@ fn file(p: &Path) -> Result<(Source, String), CoreError> {
     Ok((Source::file(&shown), shown))
 }
 
+/// The locator of the database a study's rows are in ([`DEFAULT_DATABASE`] when it names none).
+pub fn database_of(study: &Study) -> String {
+    study
+        .source
+        .database
+        .clone()
+        .unwrap_or_else(|| DEFAULT_DATABASE.to_string())
+}
+
 /// The study's rows, with user SQL parsed by `dialect`'s parser (one read-only SELECT).
 pub fn source_of(study: &Study, dialect: &dyn Dialect) -> Result<ResolvedRows, CoreError> {
     let database = study.source.database.clone();
@@ -87,7 +96,7 @@ pub fn source_of(study: &Study, dialect: &dyn Dialect) -> Result<ResolvedRows, C
     Ok(ResolvedRows {
         source,
         label,
-        database: database.unwrap_or_else(|| DEFAULT_DATABASE.to_string()),
+        database: database_of(study),
     })
 }
 
