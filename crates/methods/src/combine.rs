@@ -32,6 +32,21 @@ pub(crate) struct Part {
     pub target_size: f64,
 }
 
+impl Part {
+    /// A segment's estimate of a 0/1 treatment: `tau` with variance `var` from `n` rows of
+    /// which `n1` are treated; the target population's size follows the estimand.
+    pub(crate) fn binary(s: &Setup, seg: &[KeyValue], tau: f64, var: f64, n: f64, n1: f64) -> Part {
+        let mut e = Estimate::new(s.spec, &segment(s, seg), tau, var.max(0.0).sqrt());
+        e.n_treated = Some(n1);
+        e.n_control = Some(n - n1);
+        e.n_used = n;
+        Part {
+            estimate: e,
+            target_size: target_size(s.spec.estimand, n, n1),
+        }
+    }
+}
+
 /// The overall estimate from independent segments: the target-size weighted mean of segment
 /// estimates, with variance `Σ w² V + Σ w (τ_s - τ)² / N` (the second term is the sampling
 /// variation of the segment shares; it is what the per-row influence function gives).

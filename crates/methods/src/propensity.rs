@@ -38,6 +38,19 @@ pub(crate) fn logistic_pass(
     )?)
 }
 
+/// `; N treated and M untreated rows had propensities clipped to [c, 1 - c]`, or nothing.
+pub(crate) fn clipping(s: &Setup, clipped1: f64, clipped0: f64) -> String {
+    if clipped1 + clipped0 > 0.0 {
+        format!(
+            "; {clipped1} treated and {clipped0} untreated rows had propensities clipped to [{}, {}]",
+            s.spec.clip,
+            1.0 - s.spec.clip
+        )
+    } else {
+        String::new()
+    }
+}
+
 /// Maps a propensity fit error to a message naming the segment.
 pub(crate) fn propensity_error(label: &str, e: FitError) -> MethodError {
     let advice = match &e {

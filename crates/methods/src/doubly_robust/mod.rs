@@ -8,17 +8,16 @@
 
 mod passes;
 
-use crate::combine::{finish, segment, segment_label, target_size, Part};
+use crate::combine::{finish, segment_label, Part};
 use crate::crossfit::{complement_moments, fit_label, folds, gram_design, row_design};
-use crate::models::per_segment;
-use crate::models::{fold_models, placeholder};
+use crate::models::{fold_models, per_segment, placeholder};
 use crate::outcome::fit_arm;
 use crate::prepare::{needs_folds, Setup};
 use crate::propensity::{
-    by_fold_pass, check_arms, complement_pass, cross_fitted_propensity, scores_pass_only,
+    by_fold_pass, check_arms, clipping, complement_pass, cross_fitted_propensity, scores_pass_only,
 };
 use crate::read::row_of;
-use crate::{ask, Estimate, MethodError, Outcome, Runner};
+use crate::{ask, MethodError, Outcome, Runner};
 use passes::{augmented_sums, AugmentedLayout, Nuisances};
 use upshot_sql::{gram, Built, GramLayout, KeyValue, Models, Pass};
 
@@ -130,32 +129,19 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
         let (sn, snn, sdn, sd) = (a.sn, a.snn, a.sdn, a.sd);
         let tau = sn / sd;
         let var = (snn - 2.0 * tau * sdn + tau * tau * sd) / (sd * sd);
-        let (clipped1, clipped0) = (a.clipped1, a.clipped0);
         out.diagnostics.notes.push(format!(
             "{}: {}propensity from {:.4} to {:.4}{}",
             segment_label(s, seg),
-            if needs_folds(spec) { "cross-fitted " } else { "" },
+            if needs_folds(spec) {
+                "cross-fitted "
+            } else {
+                ""
+            },
             a.min_e,
             a.max_e,
-            if clipped1 + clipped0 > 0.0 {
-                format!(
-                    "; {clipped1} treated and {clipped0} untreated rows had propensities clipped to [{}, {}]",
-                    spec.clip,
-                    1.0 - spec.clip
-                )
-            } else {
-                String::new()
-            }
+            clipping(s, a.clipped1, a.clipped0)
         ));
-        let mut e = Estimate::new(spec, &segment(s, seg), tau, var.max(0.0).sqrt());
-        e.n_treated = Some(n1);
-        e.n_control = Some(n - n1);
-        e.n_used = n;
-        let size = target_size(spec.estimand, n, n1);
-        parts.push(Part {
-            estimate: e,
-            target_size: size,
-        });
+        parts.push(Part::binary(s, seg, tau, var, n, n1));
     }
     out.estimates = finish(s, parts);
     Ok(out)

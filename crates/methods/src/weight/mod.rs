@@ -10,13 +10,13 @@
 
 mod passes;
 
-use crate::combine::{finish, segment, segment_label, target_size, Part};
+use crate::combine::{finish, segment_label, Part};
 use crate::crossfit::row_design;
 use crate::models::{per_segment, placeholder_segments};
 use crate::prepare::Setup;
-use crate::propensity::{fit_propensity, logistic_pass};
+use crate::propensity::{clipping, fit_propensity, logistic_pass};
 use crate::read::{row_of, symmetric};
-use crate::{ask, Estimate, MethodError, Outcome, Runner};
+use crate::{ask, MethodError, Outcome, Runner};
 use nalgebra::DVector;
 use passes::{weighting_sums, WeightingLayout};
 use upshot_sql::{Built, Design, Models, Pass};
@@ -51,7 +51,6 @@ pub(crate) fn passes(s: &Setup) -> Result<Vec<Pass>, MethodError> {
 const HEAVY_TAIL: f64 = 0.5;
 
 pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError> {
-    let spec = s.spec;
     let k = s.terms.len() + 1;
     let (segs, fits) = fit_propensity(s, r)?;
     let coefs: Vec<Vec<f64>> = fits.iter().map(|f| f.coef.clone()).collect();
@@ -103,11 +102,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
             ess1,
             ess0,
             n - n1,
-            if clipped1 + clipped0 > 0.0 {
-                format!("; {clipped1} treated and {clipped0} untreated rows had propensities clipped to [{}, {}]", spec.clip, 1.0 - spec.clip)
-            } else {
-                String::new()
-            }
+            clipping(s, clipped1, clipped0)
         ));
         // Heavy-tailed weights: upshot's own rule, from the coverage benchmark (docs/methods.md):
         // where an arm's effective sample size fell below half its rows, the sandwich intervals
@@ -119,15 +114,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
                 ));
             }
         }
-        let mut e = Estimate::new(spec, &segment(s, key), tau, var.max(0.0).sqrt());
-        e.n_treated = Some(n1);
-        e.n_control = Some(n - n1);
-        e.n_used = n;
-        let size = target_size(spec.estimand, n, n1);
-        parts.push(Part {
-            estimate: e,
-            target_size: size,
-        });
+        parts.push(Part::binary(s, key, tau, var, n, n1));
     }
     out.estimates = finish(s, parts);
     Ok(out)
