@@ -136,9 +136,13 @@ pub fn run(a: Args) -> Result<i32, Failure> {
     };
     let study = load_study(a.study.as_deref(), a.graph.as_deref(), overrides, "check")?;
     if !a.offline && upshot_core::has_columns_to_check(&study) {
-        let engine =
-            upshot_core::connect(ENGINES, &upshot_core::database_of(&study), Access::ReadOnly)
-                .map_err(|e| Failure::input(format!("[source]: {e}")))?;
+        let engine = upshot_core::connect(
+            ENGINES,
+            &upshot_core::database_of(&study),
+            Access::ReadOnly,
+            &upshot_core::files_of(&study),
+        )
+        .map_err(|e| Failure::input(format!("[source]: {e}")))?;
         upshot_core::check_columns(&study, engine.as_ref())?;
     }
     let doc = identify::check(&study, a.question.as_deref())?;

@@ -267,7 +267,7 @@ pub fn run_run(a: Args) -> Result<i32, Failure> {
         Access::ReadOnly
     };
     let engine = connector
-        .connect(&locator, access)
+        .connect(&locator, access, &upshot_core::files_of(&study))
         .map_err(|e| Failure::input(format!("--db: {e}")))?;
     if a.into.is_some() && !engine.capabilities().durable {
         return Err(Failure::input(

@@ -30,7 +30,9 @@ fn the_library_gives_the_estimates_of_the_command_line() {
         .iter()
         .map(|r| upshot_core::plan(r).unwrap())
         .collect();
-    let engine = upshot_core::connect(connectors, &resolved[0].database, Access::ReadOnly).unwrap();
+    let files = upshot_core::files_of(&study);
+    let engine =
+        upshot_core::connect(connectors, &resolved[0].database, Access::ReadOnly, &files).unwrap();
     let mut passes = 0;
     let answers = upshot_core::run(engine.as_ref(), resolved, &mut |_, _| passes += 1).unwrap();
     assert_eq!(answers.len(), 3);

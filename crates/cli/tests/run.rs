@@ -1002,3 +1002,51 @@ fn a_boolean_treatment_gives_the_estimate_of_its_0_1_coding() {
         "{a:?} {b:?}"
     );
 }
+
+#[test]
+fn the_database_reads_no_file_and_no_url_on_a_querys_behalf() {
+    let db = scratch("confined");
+    let db = db.to_str().unwrap();
+    let g = "prior_orders, zone -> voucher; prior_orders, zone, voucher -> spend_30d";
+    let csv = repo().join(SAMPLE).display().to_string();
+    for q in [
+        format!("SELECT * FROM read_csv_auto('{csv}')"),
+        "SELECT c.* FROM customers c, read_text('/etc/hostname') t".to_string(),
+        "SELECT c.* FROM customers c, read_text('https://example.invalid/x.txt') t".to_string(),
+    ] {
+        fails(
+            &[
+                "run",
+                "--db",
+                db,
+                "--source",
+                &q,
+                "--graph",
+                g,
+                "--treatment",
+                "voucher",
+                "--outcome",
+                "spend_30d",
+                "--method",
+                "regress",
+            ],
+            2,
+            &["file source"],
+        );
+    }
+    // The study's own file source is read, as a file or through a query over the table.
+    let ok = upshot(&[
+        "run",
+        "--source",
+        SAMPLE,
+        "--graph",
+        g,
+        "--treatment",
+        "voucher",
+        "--outcome",
+        "spend_30d",
+        "--method",
+        "regress",
+    ]);
+    assert_eq!(ok.status.code(), Some(0), "{}", text(&ok));
+}

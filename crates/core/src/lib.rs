@@ -29,8 +29,8 @@ mod source;
 pub use resolve::{plan, resolve, QuestionPlan, Resolved, Settings};
 pub use results::{results_rows, run, write_results, Answer, QuestionSummary};
 pub use source::{
-    check_columns, classify_source, database_of, has_columns_to_check, source_of, ResolvedRows,
-    DEFAULT_DATABASE,
+    check_columns, classify_source, database_of, files_of, has_columns_to_check, source_of,
+    ResolvedRows, DEFAULT_DATABASE,
 };
 pub use upshot_engine::{connect, connector, Access, Connector, Engine};
 pub use upshot_methods::{Basis, Diagnostics, Estimate, NullPolicy, PlannedPass, Spec};

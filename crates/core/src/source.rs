@@ -68,6 +68,15 @@ pub fn database_of(study: &Study) -> String {
         .unwrap_or_else(|| DEFAULT_DATABASE.to_string())
 }
 
+/// The files a study's rows are read from (a CSV or Parquet file, or a pattern over files): the
+/// only files an engine opened for it may read.
+pub fn files_of(study: &Study) -> Vec<String> {
+    match &study.source.rows {
+        Some(Rows::File(p)) => vec![p.display().to_string()],
+        _ => vec![],
+    }
+}
+
 /// The study's rows, with user SQL parsed by `dialect`'s parser (one read-only SELECT).
 pub fn source_of(study: &Study, dialect: &dyn Dialect) -> Result<ResolvedRows, CoreError> {
     let database = study.source.database.clone();

@@ -3,8 +3,10 @@
 //! registered; CSV and Parquet files read as sources. Results come back as Arrow and are
 //! turned into a tiny row table at once (a pass returns one row per group).
 //!
-//! [`DUCKDB`] is the [`Connector`] the binary links; [`DuckDbEngine::open`] opens one directly
-//! (tests, the benchmark). This crate builds no SQL from strings and knows nothing of diagrams
+//! [`DUCKDB`] is the [`Connector`] the binary links: it opens databases confined
+//! ([`DuckDbEngine::open_confined`]: no extension auto-install or auto-load, no file but the
+//! study's file sources, no network, configuration locked). [`DuckDbEngine::open`] opens one
+//! unconfined, for tests and the benchmark that set up their own tables. This crate builds no SQL from strings and knows nothing of diagrams
 //! or estimators; it is the one crate that links the bundled DuckDB build.
 #![deny(missing_docs)]
 
@@ -49,6 +51,57 @@ impl DuckDbEngine {
             db,
             memory: path.is_none(),
         })
+    }
+
+    /// Opens `location` as [`DuckDbEngine::open`] does, then confines it: no extension is
+    /// installed or loaded on a query's behalf, no file is read but `files` (a path, or a
+    /// pattern whose folder is then readable), nothing is fetched from the network, and the
+    /// configuration is locked so that no query can change any of it.
+    pub fn open_confined(
+        location: &str,
+        write: bool,
+        files: &[String],
+    ) -> Result<Self, EngineError> {
+        let e = Self::open(location, write)?;
+        let (mut paths, mut folders) = (Vec::new(), Vec::new());
+        for f in files {
+            let path = std::path::Path::new(f);
+            let absolute = std::path::absolute(path).unwrap_or_else(|_| path.to_path_buf());
+            if upshot_sql::is_parquet_pattern(f) {
+                for p in [path, absolute.as_path()] {
+                    let dir = p
+                        .parent()
+                        .map(|d| d.display().to_string())
+                        .unwrap_or_default();
+                    folders.push(upshot_sql::string_literal(&format!("{dir}/")));
+                }
+            } else {
+                paths.push(upshot_sql::string_literal(f));
+                paths.push(upshot_sql::string_literal(&absolute.display().to_string()));
+            }
+        }
+        let mut setup = vec![
+            "SET autoinstall_known_extensions = false".to_string(),
+            "SET autoload_known_extensions = false".to_string(),
+        ];
+        if !paths.is_empty() {
+            setup.push(format!("SET allowed_paths = [{}]", paths.join(", ")));
+        }
+        if !folders.is_empty() {
+            setup.push(format!(
+                "SET allowed_directories = [{}]",
+                folders.join(", ")
+            ));
+        }
+        setup.push("SET enable_external_access = false".into());
+        setup.push("SET lock_configuration = true".into());
+        e.conn()
+            .execute_batch(&setup.join(";\n"))
+            .map_err(|err| EngineError::Open {
+                location: location.to_string(),
+                message: format!("cannot confine the database: {err}"),
+            })?;
+        Ok(e)
     }
 
     fn conn(&self) -> &Connection {
@@ -122,11 +175,21 @@ impl DuckDbEngine {
     fn query(&self, name: &str, sql: &str) -> Result<Vec<RecordBatch>, EngineError> {
         let err = |e: duckdb::Error| EngineError::Query {
             pass: name.to_string(),
-            message: e.to_string(),
+            message: explained(e),
         };
         let mut stmt = self.conn().prepare(sql).map_err(err)?;
         let batches: Vec<RecordBatch> = stmt.query_arrow([]).map_err(err)?.collect();
         Ok(batches)
+    }
+}
+
+/// DuckDB's message, with what to do where upshot's confinement refused something.
+fn explained(e: duckdb::Error) -> String {
+    let m = e.to_string();
+    if m.contains("disabled by configuration") || m.contains("Permission Error") {
+        format!("{m}\n(upshot lets the database read no file but the study's own file source, and install or load no extension; give a file as the source, or load it into a table first)")
+    } else {
+        m
     }
 }
 
@@ -222,7 +285,7 @@ impl Engine for DuckDbEngine {
         let sql = pass.query.to_string();
         let err = |e: duckdb::Error| EngineError::Query {
             pass: "schema".into(),
-            message: e.to_string(),
+            message: explained(e),
         };
         let mut stmt = self.conn().prepare(&sql).map_err(err)?;
         let arrow = stmt.query_arrow([]).map_err(err)?;
@@ -260,10 +323,16 @@ impl Connector for DuckDbConnector {
     fn dialect(&self) -> &'static dyn Dialect {
         &DuckDb
     }
-    fn connect(&self, locator: &str, access: Access) -> Result<Box<dyn Engine>, EngineError> {
-        Ok(Box::new(DuckDbEngine::open(
+    fn connect(
+        &self,
+        locator: &str,
+        access: Access,
+        files: &[String],
+    ) -> Result<Box<dyn Engine>, EngineError> {
+        Ok(Box::new(DuckDbEngine::open_confined(
             locator,
             access == Access::ReadWrite,
+            files,
         )?))
     }
 }

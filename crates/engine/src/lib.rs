@@ -136,8 +136,14 @@ pub trait Connector: Sync {
     fn accepts(&self, locator: &str) -> bool;
     /// The SQL dialect of the engines it opens (user SQL is parsed with it before connecting).
     fn dialect(&self) -> &'static dyn Dialect;
-    /// Opens `locator`.
-    fn connect(&self, locator: &str, access: Access) -> Result<Box<dyn Engine>, EngineError>;
+    /// Opens `locator` with the least privilege the work needs: `access`, and reading no files
+    /// but `files` (the file sources of the questions to run: paths, or patterns over files).
+    fn connect(
+        &self,
+        locator: &str,
+        access: Access,
+        files: &[String],
+    ) -> Result<Box<dyn Engine>, EngineError>;
 }
 
 /// A locator as it may be shown: a password in a URL's user part (`user:secret@host`) is
@@ -186,8 +192,9 @@ pub fn connect(
     connectors: &[&dyn Connector],
     locator: &str,
     access: Access,
+    files: &[String],
 ) -> Result<Box<dyn Engine>, EngineError> {
-    connector(connectors, locator)?.connect(locator, access)
+    connector(connectors, locator)?.connect(locator, access, files)
 }
 
 #[cfg(test)]

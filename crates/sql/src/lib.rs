@@ -50,3 +50,9 @@ pub use passes::{cells, gram, levels, logistic_fits, profile, residuals, schema_
 pub use results_table::{results_schema_file, results_sql, ResultsSql, RESULT_COLUMNS};
 pub use source::{complete_cases, is_parquet, is_parquet_pattern, parse_filter, Source};
 pub use sqlparser::ast::Expr;
+
+/// `text` as a SQL string literal, rendered from the AST (quotes doubled): for the few
+/// statements of upshot's own that name a path, such as an engine's file allow-list.
+pub fn string_literal(text: &str) -> String {
+    Expr::value(sqlparser::ast::Value::SingleQuotedString(text.to_string())).to_string()
+}
