@@ -46,7 +46,18 @@ fn main() {
         Ok(code) => std::process::exit(code),
         Err(f) => {
             use std::io::Write as _;
-            let _ = writeln!(std::io::stderr(), "upshot: error: {}", f.message);
+            // Control characters from user text (ESC, NUL, ...) are shown escaped, never sent to
+            // the terminal; line breaks and tabs of multi-line messages stay.
+            let shown: String = f
+                .message
+                .chars()
+                .map(|c| match c {
+                    '\n' | '\t' => c.to_string(),
+                    c if c.is_control() => c.escape_unicode().to_string(),
+                    c => c.to_string(),
+                })
+                .collect();
+            let _ = writeln!(std::io::stderr(), "upshot: error: {shown}");
             std::process::exit(f.code);
         }
     }

@@ -164,6 +164,20 @@ pub fn run_csv(answers: &[Answer]) -> String {
     o
 }
 
+/// `s` on one comment line: control characters shown escaped, so that no text can end the
+/// comment and stand in the plan as SQL (names are refused with such characters anyway).
+fn comment(s: &str) -> String {
+    s.chars()
+        .map(|c| {
+            if c.is_control() {
+                c.escape_unicode().to_string()
+            } else {
+                c.to_string()
+            }
+        })
+        .collect()
+}
+
 /// The JSON document of `plan`.
 pub fn plan_json(plans: &[QuestionPlan]) -> Result<String, Failure> {
     let doc = serde_json::json!({"format": "upshot-plan/1", "tool_version": env!("CARGO_PKG_VERSION"), "questions": plans});
@@ -174,8 +188,8 @@ pub fn plan_json(plans: &[QuestionPlan]) -> Result<String, Failure> {
 pub fn plan_text(plans: &[QuestionPlan]) -> String {
     let mut out = String::new();
     for doc in plans {
-        out.push_str(&format!(
-            "-- question {}: {} of {} on {} by method {}, adjusting for {{{}}} ({} SQL, plan {})\n",
+        out.push_str(&comment(&format!(
+            "-- question {}: {} of {} on {} by method {}, adjusting for {{{}}} ({} SQL, plan {})",
             doc.question,
             doc.estimand.as_str(),
             doc.treatment,
@@ -184,19 +198,24 @@ pub fn plan_text(plans: &[QuestionPlan]) -> String {
             doc.adjustment_set.join(", "),
             doc.dialect,
             doc.plan_hash
-        ));
+        )));
+        out.push('\n');
         for (i, p) in doc.passes.iter().enumerate() {
-            out.push_str(&format!(
-                "\n-- pass {}: {} — {}\n",
+            out.push('\n');
+            out.push_str(&comment(&format!(
+                "-- pass {}: {} — {}",
                 i + 1,
                 p.name,
                 p.purpose
-            ));
+            )));
+            out.push('\n');
             if let Some(x) = &p.inlines {
-                out.push_str(&format!("-- inlines: {x}\n"));
+                out.push_str(&comment(&format!("-- inlines: {x}")));
+                out.push('\n');
             }
             if let Some(x) = &p.repeats {
-                out.push_str(&format!("-- runs: {x}\n"));
+                out.push_str(&comment(&format!("-- runs: {x}")));
+                out.push('\n');
             }
             out.push_str(&p.sql);
             out.push_str(";\n");

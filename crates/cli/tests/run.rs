@@ -1050,3 +1050,82 @@ fn the_database_reads_no_file_and_no_url_on_a_querys_behalf() {
     ]);
     assert_eq!(ok.status.code(), Some(0), "{}", text(&ok));
 }
+
+#[test]
+fn names_with_control_or_invisible_characters_are_refused() {
+    let dir = std::env::temp_dir().join(format!("upshot-run-{}-names", std::process::id()));
+    let _ = std::fs::remove_dir_all(&dir);
+    std::fs::create_dir_all(&dir).unwrap();
+    std::fs::copy(repo().join(SAMPLE), dir.join("customers.csv")).unwrap();
+    // A question name that would have put `DROP TABLE sim;` on a line of its own in a plan.
+    let study = dir.join("q.toml");
+    std::fs::write(
+        &study,
+        "[source]\nfile = \"customers.csv\"\n[diagram]\ntext = '''prior_orders -> voucher -> spend_30d; prior_orders -> spend_30d'''\n[[question]]\nname = \"q\\nDROP TABLE sim;\\n--\"\ntreatment = \"voucher\"\noutcome = \"spend_30d\"\n",
+    )
+    .unwrap();
+    for verb in ["plan", "check", "run"] {
+        fails(
+            &[verb, study.to_str().unwrap()],
+            2,
+            &["U+000A", "question name"],
+        );
+    }
+    // A DOT variable whose quoted name holds a line break, and one with a zero-width space.
+    for (graph, code) in [
+        (
+            "digraph { \"prior\nDROP TABLE sim;\" -> voucher -> spend_30d }",
+            "U+000A",
+        ),
+        (
+            "digraph { \"prior\u{200B}orders\" -> voucher -> spend_30d }",
+            "U+200B",
+        ),
+        (
+            "prior_orders -> voucher -> spend_30d; \"esc\u{1b}]0;pwned\u{7}\" -> spend_30d",
+            "U+001B",
+        ),
+    ] {
+        let out = upshot(&[
+            "plan",
+            "--graph",
+            graph,
+            "--source",
+            SAMPLE,
+            "--treatment",
+            "voucher",
+            "--outcome",
+            "spend_30d",
+        ]);
+        let err = String::from_utf8_lossy(&out.stderr);
+        assert_eq!(out.status.code(), Some(2), "{graph:?}: {}", text(&out));
+        assert!(err.contains(code), "{graph:?}: {err}");
+        assert!(
+            !err.contains('\u{1b}') && !err.contains("\nDROP"),
+            "{err:?}"
+        );
+        assert!(out.stdout.is_empty());
+    }
+    let _ = std::fs::remove_dir_all(&dir);
+}
+
+#[test]
+fn a_non_deterministic_filter_is_refused() {
+    fails(
+        &[
+            "run",
+            "--graph",
+            GRAPH,
+            "--source",
+            SAMPLE,
+            "--treatment",
+            "voucher",
+            "--outcome",
+            "spend_30d",
+            "--filter",
+            "random() < 0.5",
+        ],
+        2,
+        &["random(...)", "deterministic"],
+    );
+}

@@ -183,7 +183,7 @@ fn check(e: &Expr, depth: usize) -> Result<(), SqlError> {
                 return Err(refuse(
                     format!("{name}(...)"),
                     &format!(
-                        "only these scalar functions are allowed in a filter: {}",
+                        "a filter is evaluated by every pass, so it may call only deterministic scalar functions, these: {}",
                         FUNCTIONS.join(", ")
                     ),
                 ));

@@ -344,6 +344,8 @@ impl Study {
             }
         };
 
+        check_diagram_names(&diagram, label)?;
+
         // Source.
         let mut source = SourceSection {
             database: None,
@@ -466,6 +468,7 @@ impl Study {
         let lines = Lines::new(graph_text, graph_label);
         let diagram = Diagram::parse(graph_text)
             .map_err(|e| diagram_error(&e, Some((&lines, 0)), graph_label))?;
+        check_diagram_names(&diagram, graph_label)?;
         let estimand = match &q.estimand {
             None => Estimand::Ate,
             Some(e) => parse_estimand(e, &At::Flag("--estimand"), "estimand")?,
@@ -575,6 +578,44 @@ impl Study {
         self.questions = out;
         Ok(self)
     }
+}
+
+/// The first character of `name` that may not stand in a name — a control character (a line
+/// break, ESC, NUL: it could break out of a comment in a printed plan or drive a terminal) or an
+/// invisible one (zero-width characters make look-alike names) — with its position.
+fn bad_char(name: &str) -> Option<(usize, char)> {
+    name.chars().enumerate().find(|(_, c)| {
+        c.is_control()
+            || matches!(
+                c,
+                '\u{200B}'..='\u{200F}' | '\u{2028}' | '\u{2029}' | '\u{202A}'..='\u{202E}'
+                    | '\u{2060}'..='\u{2064}' | '\u{FEFF}'
+            )
+    })
+}
+
+/// The refusal of a name holding such a character, with the name shown escaped.
+fn name_error(what: &str, name: &str, at: (usize, char)) -> String {
+    format!(
+        "{what} \"{}\" holds the character U+{:04X} at position {}; names may not hold control or invisible characters: rename it",
+        name.escape_debug(),
+        u32::from(at.1),
+        at.0 + 1
+    )
+}
+
+/// Checks every variable name of a diagram (see [`bad_char`]).
+fn check_diagram_names(d: &Diagram, label: &str) -> Result<(), StudyError> {
+    for n in d.nodes() {
+        if let Some(at) = bad_char(&n.name) {
+            return Err(StudyError {
+                location: Location::Path(label.to_string()),
+                key: Some("diagram".into()),
+                message: name_error("the diagram's variable", &n.name, at),
+            });
+        }
+    }
+    Ok(())
 }
 
 fn file_stem(label: &str) -> String {
@@ -739,6 +780,12 @@ fn question_from_file(
 }
 
 fn build_question(d: &Diagram, p: QuestionParts) -> Result<Question, StudyError> {
+    if let Some(at) = bad_char(&p.name) {
+        return Err(p
+            .method
+            .1
+            .err("name", name_error("the question name", &p.name, at)));
+    }
     let variables = || {
         let mut v: Vec<&str> = d
             .nodes()
