@@ -70,6 +70,10 @@ fn scratch(name: &str) -> PathBuf {
          CASE WHEN customer_id % 10 = 0 THEN NULL ELSE household_size END AS household_gappy, \
          CAST(NULL AS DOUBLE) AS empty_col, spend_30d AS \"spend 30d\", zone AS \"select\", \
          prior_orders AS \"say \"\"hi\"\"\", CAST(voucher AS BOOLEAN) AS voucher_flag FROM read_csv_auto('{}');
+         CREATE TABLE extreme AS SELECT *, prior_orders * 1e300 AS big_x, spend_30d * 1e300 AS big_y, \
+         CASE WHEN customer_id = 100017 THEN 1.7e308 ELSE spend_30d END AS huge_y, \
+         CASE WHEN customer_id = 100017 THEN 'inf'::DOUBLE ELSE spend_30d END AS inf_y, \
+         CASE WHEN customer_id = 100017 THEN 'nan'::DOUBLE ELSE household_size END AS nan_x FROM customers;
          CREATE TABLE new_untreated AS SELECT * REPLACE (CASE WHEN tenure_band = 'new' THEN 0 ELSE voucher END AS voucher) FROM customers;",
         csv.display()
     ))
@@ -1128,4 +1132,67 @@ fn a_non_deterministic_filter_is_refused() {
         2,
         &["random(...)", "deterministic"],
     );
+}
+
+#[test]
+fn extreme_values_are_refused_with_the_column_named() {
+    let db = scratch("extreme");
+    let db = db.to_str().unwrap();
+    for method in [
+        "stratify",
+        "regress",
+        "weight",
+        "doubly-robust",
+        "partial-out",
+    ] {
+        for (x, y, needles) in [
+            ("big_x", "spend_30d", ["`big_x`", "rescale"]),
+            ("prior_orders", "big_y", ["big_y", "rescale"]),
+            ("prior_orders", "huge_y", ["huge_y", "rescale"]),
+            ("prior_orders", "inf_y", ["inf_y", "infinit"]),
+            ("nan_x", "spend_30d", ["`nan_x`", "NaN"]),
+        ] {
+            if method == "stratify" && (x == "big_x" || x == "nan_x") {
+                continue; // continuous strata are refused for another reason
+            }
+            let g = format!("{x} -> voucher -> {y}; {x} -> {y}");
+            let out = upshot(&[
+                "run",
+                "--db",
+                db,
+                "--source",
+                "extreme",
+                "--graph",
+                &g,
+                "--treatment",
+                "voucher",
+                "--outcome",
+                y,
+                "--method",
+                method,
+                "--unit",
+                "customer_id",
+                "--format",
+                "json",
+            ]);
+            let err = String::from_utf8_lossy(&out.stderr);
+            assert_eq!(
+                out.status.code(),
+                Some(2),
+                "{method} {x} {y}: {}",
+                text(&out)
+            );
+            assert!(
+                out.stdout.is_empty(),
+                "{method} {x} {y} printed: {}",
+                text(&out)
+            );
+            for n in needles {
+                assert!(
+                    err.contains(n) || (method == "stratify" && err.contains("non-finite")),
+                    "{method} {x} {y}: `{n}` not in {err}"
+                );
+            }
+        }
+    }
 }

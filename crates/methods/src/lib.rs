@@ -213,9 +213,28 @@ impl<F: FnMut(&Pass) -> Result<Aggregates, String>> Runner for F {
     }
 }
 
-pub(crate) fn ask(r: &mut dyn Runner, pass: &Pass) -> Result<Aggregates, MethodError> {
+/// Runs a pass whose non-finite values the caller checks by name (the profile).
+pub(crate) fn ask_unchecked(r: &mut dyn Runner, pass: &Pass) -> Result<Aggregates, MethodError> {
     r.run(pass)
         .map_err(|m| MethodError::Engine(format!("the {} pass failed: {m}", pass.name)))
+}
+
+/// Runs a pass and refuses a non-finite result.
+pub(crate) fn ask(r: &mut dyn Runner, pass: &Pass) -> Result<Aggregates, MethodError> {
+    let a = ask_unchecked(r, pass)?;
+    // A sum that overflowed (or met a non-finite value) must not reach an estimate.
+    for (i, name) in a.names.iter().enumerate() {
+        if a.rows
+            .iter()
+            .any(|row| matches!(row.get(i), Some(upshot_sql::Cell::Number(x)) if !x.is_finite()))
+        {
+            return Err(MethodError::Input(format!(
+                "the {} pass gave a non-finite `{name}`: the sums overflowed or met infinite values; rescale the large columns in a source query",
+                pass.name
+            )));
+        }
+    }
+    Ok(a)
 }
 
 /// One estimate: overall (`segment` = `all`) or for one segment.
@@ -342,6 +361,17 @@ pub fn estimate(spec: &Spec, runner: &mut dyn Runner) -> Result<Outcome, MethodE
     diag.warnings.append(&mut out.diagnostics.warnings);
     diag.passes = counted.n;
     out.diagnostics = diag;
+    for e in &out.estimates {
+        // Never a number that is not finite, nor an error of exactly zero from noise.
+        if !e.estimate.is_finite() || !e.std_error.is_finite() || e.std_error <= 0.0 {
+            return Err(MethodError::Input(format!(
+                "{}: the estimate ({}) or its standard error ({}) is degenerate: the rows leave no variation to estimate from, or their values are too large; check the segment's rows, or rescale large columns",
+                if e.segment == "all" { "all rows".to_string() } else { format!("segment {}", e.segment) },
+                e.estimate,
+                e.std_error
+            )));
+        }
+    }
     Ok(out)
 }
 

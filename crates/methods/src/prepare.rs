@@ -1,7 +1,9 @@
 //! The passes every method starts with: the profile (counts, NULLs, ranges, centres, scales)
 //! and the levels of categorical covariates; the checks they allow; the design terms.
 
-use crate::{ask, ColumnType, Diagnostics, Method, MethodError, NullPolicy, Runner, Spec};
+use crate::{
+    ask, ask_unchecked, ColumnType, Diagnostics, Method, MethodError, NullPolicy, Runner, Spec,
+};
 use serde::Serialize;
 use upshot_sql::{
     complete_cases, levels, profile, Built, Cell, DesignTerm, Expr, LevelsLayout, ProfileColumn,
@@ -255,6 +257,50 @@ fn scale(p: &ProfiledColumn) -> Option<f64> {
     })
 }
 
+/// Largest magnitude a used numeric value may have. Passes sum products of up to four values
+/// over every row (squared weights times squared outcomes, fourth powers of residuals), which
+/// overflow a double well before the values themselves do; no count, amount or rate of a
+/// business table comes near 1e30, and refusing beyond it keeps every sum finite for any
+/// table size an engine holds.
+pub const MAX_MAGNITUDE: f64 = 1e30;
+
+/// Refuses non-finite values (infinity, NaN) and magnitudes beyond [`MAX_MAGNITUDE`] in the
+/// profiled numeric columns, naming the column and what to do.
+fn check_magnitudes(cols: &[Profiled]) -> Result<(), MethodError> {
+    for c in cols {
+        let values = [&c.min, &c.max];
+        for v in values {
+            let Cell::Number(x) = v else { continue };
+            if x.is_nan() {
+                return Err(MethodError::Input(format!(
+                    "column `{}` holds NaN (not-a-number) values; exclude them in a source query (WHERE NOT isnan(...)) or fix the data",
+                    c.name
+                )));
+            }
+            if x.is_infinite() {
+                return Err(MethodError::Input(format!(
+                    "column `{}` holds {} values; exclude them in a source query or fix the data",
+                    c.name,
+                    if *x > 0.0 { "+infinity" } else { "-infinity" }
+                )));
+            }
+            if x.abs() > MAX_MAGNITUDE {
+                return Err(MethodError::Input(format!(
+                    "column `{}` holds values as large as {x:e}, beyond ±{MAX_MAGNITUDE:e}, where sums of their products overflow; rescale it in a source query (for example divide it by a power of ten) and read the estimate in the new unit",
+                    c.name
+                )));
+            }
+        }
+        if c.mean.is_some_and(|m| !m.is_finite()) || c.sd.is_some_and(|s| !s.is_finite()) {
+            return Err(MethodError::Input(format!(
+                "column `{}`: its sum of squares overflows; rescale it in a source query (for example divide it by a power of ten)",
+                c.name
+            )));
+        }
+    }
+    Ok(())
+}
+
 /// Whether the profile computes column `c`'s numeric statistics (min, max, mean, sum of
 /// squares): numeric columns that a later pass centres and scales, and the treatment (its
 /// checks). Stratify fits no design, so of its columns only the treatment needs them — at 10M
@@ -326,7 +372,7 @@ pub(crate) fn prepare<'a>(spec: &'a Spec, r: &mut dyn Runner) -> Result<Setup<'a
     check_schema(spec)?;
     let used = used_columns(spec);
     let pp = profile_pass(spec)?;
-    let prof = ask(r, &pp)?;
+    let prof = ask_unchecked(r, &pp)?;
     let n_rows = pp.layout.rows(&prof)?;
     if n_rows == 0.0 {
         return Err(MethodError::Input(if spec.filter.is_some() {
@@ -371,6 +417,7 @@ pub(crate) fn prepare<'a>(spec: &'a Spec, r: &mut dyn Runner) -> Result<Setup<'a
             .find(|p| p.name == n)
             .expect("profiled")
     };
+    check_magnitudes(&profiled_cols)?;
     let t = col(&spec.treatment);
     let (tmin, tmax) = (show(&t.min), show(&t.max));
     if t.sd == Some(0.0) || tmin == tmax {

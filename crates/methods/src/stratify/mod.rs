@@ -6,7 +6,7 @@
 use crate::combine::{finish, segment, segment_label, Part};
 use crate::prepare::Setup;
 use crate::read::by_segment;
-use crate::{ask, Estimand, Estimate, MethodError, Outcome, Runner};
+use crate::{ask_unchecked, Estimand, Estimate, MethodError, Outcome, Runner};
 use upshot_sql::{cells, Built, CellsLayout, KeyValue, Pass};
 
 /// Most distinct values a numeric adjustment column may have to count as discrete.
@@ -87,7 +87,16 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
         }
     }
     let cp = cells_pass(s)?;
-    let a = ask(r, &cp)?;
+    let a = ask_unchecked(r, &cp)?;
+    for row in 0..a.rows.len() {
+        let (_, sy, syy) = cp.layout.sums(&a, row)?;
+        if !sy.is_finite() || !syy.is_finite() {
+            return Err(MethodError::Input(format!(
+                "outcome `{}` holds infinite values or values too large to square and sum; exclude the infinite values, or rescale it in a source query (for example divide it by a power of ten)",
+                spec.outcome
+            )));
+        }
+    }
     let nseg = spec.segments.len();
     let nadj = crate::prepare::modelled(spec).len();
     let mut out = Outcome {
