@@ -53,13 +53,13 @@ pub struct Args {
     #[arg(long)]
     unit: Option<String>,
     /// Cross-fitting folds for doubly-robust and partial-out (1 = none).
-    #[arg(long, default_value_t = 5)]
-    folds: u32,
+    #[arg(long, default_value_t = 5, allow_negative_numbers = true)]
+    folds: i64,
     /// Rows with NULL in a used column: `exclude` (count and report them) or `error`.
     #[arg(long = "on-null", default_value = "exclude")]
     on_null: String,
     /// Clip propensities to [c, 1 - c] (0 = no clipping).
-    #[arg(long, default_value_t = 0.01)]
+    #[arg(long, default_value_t = 0.01, allow_negative_numbers = true)]
     clip: f64,
     /// Add squares of numeric covariates to the models.
     #[arg(long)]
@@ -137,8 +137,15 @@ fn settings(a: &Args) -> Result<Settings, Failure> {
             )))
         }
     };
+    let folds = u32::try_from(a.folds).map_err(|_| {
+        Failure::input(format!(
+            "--folds: {} folds; use 1 (no cross-fitting) to {}",
+            a.folds,
+            upshot_core::MAX_FOLDS
+        ))
+    })?;
     Ok(Settings {
-        folds: a.folds,
+        folds,
         clip: a.clip,
         on_null,
         basis: Basis {
@@ -244,6 +251,11 @@ pub fn run_run(a: Args) -> Result<i32, Failure> {
             "--dialect and --portable belong to `upshot plan`; `run` uses the engine's dialect",
         ));
     }
+    if a.run_key.as_deref().is_some_and(|k| k.trim().is_empty()) {
+        return Err(Failure::input(
+            "--run-key: empty; name the run (for example daily-2026-12-03), or leave the flag out",
+        ));
+    }
     if a.run_key.is_some() && a.into.is_none() {
         return Err(Failure::input(
             "--run-key needs --into TABLE (it names a run in the results table)",
@@ -268,7 +280,7 @@ pub fn run_run(a: Args) -> Result<i32, Failure> {
     };
     let engine = connector
         .connect(&locator, access, &upshot_core::files_of(&study))
-        .map_err(|e| Failure::input(format!("--db: {e}")))?;
+        .map_err(crate::exit::opening)?;
     if a.into.is_some() && !engine.capabilities().durable {
         return Err(Failure::input(
             "--into needs a database file to write to: give --db FILE (a DuckDB file; it is created if missing)",

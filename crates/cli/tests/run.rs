@@ -73,7 +73,8 @@ fn scratch(name: &str) -> PathBuf {
          CREATE TABLE extreme AS SELECT *, prior_orders * 1e300 AS big_x, spend_30d * 1e300 AS big_y, \
          CASE WHEN customer_id = 100017 THEN 1.7e308 ELSE spend_30d END AS huge_y, \
          CASE WHEN customer_id = 100017 THEN 'inf'::DOUBLE ELSE spend_30d END AS inf_y, \
-         CASE WHEN customer_id = 100017 THEN 'nan'::DOUBLE ELSE household_size END AS nan_x FROM customers;
+         CASE WHEN customer_id = 100017 THEN 'nan'::DOUBLE ELSE household_size END AS nan_x, \
+         CAST(spend_30d AS VARCHAR) AS spend_text FROM customers;
          CREATE TABLE new_untreated AS SELECT * REPLACE (CASE WHEN tenure_band = 'new' THEN 0 ELSE voucher END AS voucher) FROM customers;",
         csv.display()
     ))
@@ -1195,4 +1196,109 @@ fn extreme_values_are_refused_with_the_column_named() {
             }
         }
     }
+}
+
+#[test]
+fn weak_spots_get_specific_answers() {
+    let db = scratch("weak");
+    let db = db.to_str().unwrap();
+    let g = "prior_orders, zone -> voucher; prior_orders, zone, voucher -> spend_30d";
+    let run = |extra: &[&str]| {
+        let mut a = vec![
+            "run",
+            "--db",
+            db,
+            "--graph",
+            g,
+            "--treatment",
+            "voucher",
+            "--outcome",
+            "spend_30d",
+            "--method",
+            "regress",
+        ];
+        a.extend(extra);
+        a.iter().map(|s| s.to_string()).collect::<Vec<_>>()
+    };
+    let go = |a: Vec<String>, code: i32, needles: &[&str]| {
+        let refs: Vec<&str> = a.iter().map(|s| s.as_str()).collect();
+        fails(&refs, code, needles);
+    };
+    // A bare value is not silently cast to a boolean.
+    go(
+        run(&["--source", "customers", "--filter", "prior_orders"]),
+        2,
+        &["a filter must be a condition"],
+    );
+    // Statements other than SELECT are named as such, not looked up as tables.
+    for q in [
+        "ATTACH 'other.duckdb' AS other",
+        "COPY customers TO 'out.csv'",
+        "PRAGMA database_list",
+        "SET threads = 1",
+        "CREATE TABLE z AS SELECT 1",
+        "INSTALL httpfs",
+        "LOAD httpfs",
+    ] {
+        let a = run(&["--source", q]);
+        let refs: Vec<&str> = a.iter().map(|s| s.as_str()).collect();
+        let out = upshot(&refs);
+        assert_eq!(out.status.code(), Some(2), "{q}: {}", text(&out));
+        let err = String::from_utf8_lossy(&out.stderr);
+        assert!(err.contains("source"), "{q}: {err}");
+        assert!(
+            !err.contains("cannot read the columns"),
+            "{q} was looked up: {err}"
+        );
+    }
+    // Out-of-range numbers are reported as given.
+    go(
+        run(&["--source", "customers", "--folds", "-1"]),
+        2,
+        &["--folds: -1 folds"],
+    );
+    go(
+        run(&["--source", "customers", "--clip", "-0.1"]),
+        2,
+        &["--clip: -0.1"],
+    );
+    // An empty run key is not stored.
+    go(
+        run(&[
+            "--source",
+            "customers",
+            "--into",
+            "effects",
+            "--run-key",
+            " ",
+        ]),
+        2,
+        &["--run-key: empty"],
+    );
+    // A text column of numbers is called text.
+    let out = upshot(&[
+        "run",
+        "--db",
+        db,
+        "--source",
+        "extreme",
+        "--graph",
+        "spend_text -> voucher -> spend_30d; spend_text -> spend_30d",
+        "--treatment",
+        "voucher",
+        "--outcome",
+        "spend_30d",
+        "--method",
+        "regress",
+    ]);
+    assert_eq!(out.status.code(), Some(2), "{}", text(&out));
+    assert!(text(&out).contains("is a text column"), "{}", text(&out));
+    // A database held by another process: a retryable failure (exit 1), nothing written.
+    let held = DuckDbEngine::open(db, true).unwrap();
+    go(
+        run(&["--source", "customers", "--into", "effects"]),
+        1,
+        &["in use", "retry"],
+    );
+    drop(held);
 }

@@ -32,8 +32,8 @@ pub use source::{
     check_columns, classify_source, database_of, files_of, has_columns_to_check, source_of,
     ResolvedRows, DEFAULT_DATABASE,
 };
-pub use upshot_engine::{connect, connector, Access, Connector, Engine};
-pub use upshot_methods::{Basis, Diagnostics, Estimate, NullPolicy, PlannedPass, Spec};
+pub use upshot_engine::{connect, connector, Access, Connector, Engine, EngineError};
+pub use upshot_methods::{Basis, Diagnostics, Estimate, NullPolicy, PlannedPass, Spec, MAX_FOLDS};
 pub use upshot_sql::Flavor;
 pub use upshot_study::{Estimand, Method, Route, Study};
 

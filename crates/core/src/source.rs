@@ -27,7 +27,47 @@ pub struct ResolvedRows {
 /// with the pattern to use — or a name ending in `.csv` or a Parquet extension), else a table.
 pub fn classify_source(text: &str) -> Rows {
     let head = text.trim_start().to_lowercase();
-    if head.starts_with("select") || head.starts_with("with") || head.starts_with('(') {
+    let first = head
+        .split(|c: char| !c.is_ascii_alphabetic())
+        .next()
+        .unwrap_or("");
+    // Other statements are classified as queries, so that the one-SELECT rule refuses them by
+    // name (instead of looking them up as a table).
+    const STATEMENTS: [&str; 26] = [
+        "attach",
+        "detach",
+        "copy",
+        "pragma",
+        "install",
+        "load",
+        "set",
+        "reset",
+        "create",
+        "drop",
+        "delete",
+        "insert",
+        "update",
+        "alter",
+        "call",
+        "export",
+        "import",
+        "use",
+        "checkpoint",
+        "vacuum",
+        "begin",
+        "commit",
+        "rollback",
+        "truncate",
+        "merge",
+        "grant",
+    ];
+    let statement = STATEMENTS.contains(&first) && head.len() > first.len();
+    if statement
+        || head.starts_with("select")
+        || head.starts_with("with")
+        || head.starts_with('(')
+        || head.starts_with("values")
+    {
         Rows::Query(text.to_string())
     } else if Path::new(text).is_file()
         || Path::new(text).is_dir()

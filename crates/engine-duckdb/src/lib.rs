@@ -43,9 +43,19 @@ impl DuckDbEngine {
                 });
             }
         }
-        let db = Database::open(path, write).map_err(|e| EngineError::Open {
-            location: location.to_string(),
-            message: e.to_string(),
+        let db = Database::open(path, write).map_err(|e| {
+            let message = e.to_string();
+            if message.contains("lock") {
+                EngineError::Busy {
+                    location: location.to_string(),
+                    message,
+                }
+            } else {
+                EngineError::Open {
+                    location: location.to_string(),
+                    message,
+                }
+            }
         })?;
         Ok(DuckDbEngine {
             db,

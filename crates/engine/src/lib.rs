@@ -30,6 +30,15 @@ pub enum EngineError {
         /// The database's message.
         message: String,
     },
+    /// The database is held by another process (a lock conflict): nothing was done; retrying
+    /// later can succeed.
+    #[error("{location} is in use by another process ({message}); nothing was done — retry when it is free")]
+    Busy {
+        /// What was opened.
+        location: String,
+        /// The database's message.
+        message: String,
+    },
     /// No connector accepts the locator.
     #[error("no engine opens `{location}`; {expected}")]
     Unknown {

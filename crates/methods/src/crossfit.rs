@@ -114,7 +114,7 @@ pub(crate) fn fold_sum(
     }
     total.ok_or_else(|| {
         MethodError::Input(format!(
-            "every row of a segment falls in fold {}; use fewer folds (--folds) or more rows",
+            "every row of a group falls in fold {}: the unit key takes too few distinct values to spread rows over the folds; name a key with one value per unit (--unit), use fewer folds (--folds), or more rows",
             leave_out.unwrap_or(0)
         ))
     })

@@ -451,10 +451,22 @@ pub(crate) fn prepare<'a>(spec: &'a Spec, r: &mut dyn Runner) -> Result<Setup<'a
         }
         for (c, lv) in &levels_of {
             if lv.len() > MAX_LEVELS {
-                return Err(MethodError::Input(format!(
-                    "covariate `{c}` has {} levels, too many to one-hot (at most {MAX_LEVELS}); coarsen it in a source query, or treat it as numeric",
-                    lv.len()
-                )));
+                let text = spec
+                    .columns
+                    .as_ref()
+                    .and_then(|cs| cs.iter().find(|k| &k.name == c))
+                    .is_some_and(|k| !k.numeric);
+                return Err(MethodError::Input(if text {
+                    format!(
+                        "covariate `{c}` is a text column with {} distinct values: if it holds numbers, convert it in a source query (CAST({c} AS DOUBLE)); if it is a category, coarsen it to at most {MAX_LEVELS} levels",
+                        lv.len()
+                    )
+                } else {
+                    format!(
+                        "covariate `{c}` has {} levels, too many to one-hot (at most {MAX_LEVELS}); coarsen it in a source query, or treat it as numeric",
+                        lv.len()
+                    )
+                }));
             }
         }
     }

@@ -18,7 +18,7 @@ pub enum SqlError {
         count: usize,
     },
     /// A statement that is not a SELECT.
-    #[error("the source query must be a SELECT (read-only), found {kind}")]
+    #[error("a source is a table name, a file, or one read-only SELECT; found {kind}")]
     NotASelect {
         /// What was found.
         kind: String,

@@ -49,7 +49,48 @@ fn refuse(part: impl Into<String>, why: &str) -> SqlError {
 
 /// Checks that `e` is a row predicate over the source's columns.
 pub(crate) fn check_row_predicate(e: &Expr) -> Result<(), SqlError> {
-    check(e, 0)
+    check(e, 0)?;
+    if !is_predicate(e, 0) {
+        return Err(refuse(
+            short(&e.to_string()),
+            "a filter must be a condition (a comparison, IS NULL, IN, BETWEEN, LIKE, or such conditions joined by AND, OR, NOT); write `x <> 0` or `flag = true` instead of a bare value",
+        ));
+    }
+    Ok(())
+}
+
+/// Whether `e` is a condition by its form (so that no value is cast to a boolean silently).
+fn is_predicate(e: &Expr, depth: usize) -> bool {
+    use BinaryOperator as B;
+    if depth > MAX_DEPTH {
+        return false;
+    }
+    match e {
+        Expr::Nested(x) => is_predicate(x, depth + 1),
+        Expr::UnaryOp {
+            op: UnaryOperator::Not,
+            expr,
+        } => is_predicate(expr, depth + 1),
+        Expr::BinaryOp { left, op, right } => match op {
+            B::And | B::Or => is_predicate(left, depth + 1) && is_predicate(right, depth + 1),
+            B::Gt | B::Lt | B::GtEq | B::LtEq | B::Eq | B::NotEq => true,
+            _ => false,
+        },
+        Expr::Value(v) => matches!(v.value, Value::Boolean(_)),
+        Expr::IsNull(_)
+        | Expr::IsNotNull(_)
+        | Expr::IsTrue(_)
+        | Expr::IsNotTrue(_)
+        | Expr::IsFalse(_)
+        | Expr::IsNotFalse(_)
+        | Expr::IsDistinctFrom(..)
+        | Expr::IsNotDistinctFrom(..)
+        | Expr::Between { .. }
+        | Expr::In { .. }
+        | Expr::Like { .. }
+        | Expr::ILike { .. } => true,
+        _ => false,
+    }
 }
 
 /// Deeper nesting than this is refused (no stack exhaustion on hostile input).
@@ -283,5 +324,9 @@ mod tests {
         assert!(refused("getenv('HOME') = 'x'").contains("getenv"));
         assert!(refused("t.x > 1").contains("t.x"));
         assert!(refused("sum(x) OVER () > 1").contains("sum(...)"));
+        // A bare value is not silently cast to a boolean.
+        assert!(refused("x1").contains("a filter must be a condition"));
+        assert!(refused("x1 + 1").contains("a filter must be a condition"));
+        assert!(refused("(a > 1) AND b").contains("a filter must be a condition"));
     }
 }
