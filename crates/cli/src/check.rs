@@ -18,7 +18,7 @@ pub struct Args {
     #[arg(long)]
     question: Option<String>,
     /// Diagram: a file path, `-` for standard input, or inline text such as "z -> t -> y; t <-> y".
-    #[arg(long)]
+    #[arg(long, allow_hyphen_values = true)]
     graph: Option<String>,
     /// Treatment variable(s), comma-separated.
     #[arg(long, value_delimiter = ',')]

@@ -20,7 +20,7 @@ pub struct Args {
     #[arg(long)]
     question: Option<String>,
     /// Diagram: a file path, `-` for standard input, or inline edges such as "z -> t -> y".
-    #[arg(long)]
+    #[arg(long, allow_hyphen_values = true)]
     graph: Option<String>,
     /// Treatment column.
     #[arg(long, value_delimiter = ',')]
@@ -114,6 +114,11 @@ fn study_of(a: &Args, verb: &str) -> Result<Study, Failure> {
         study.source.filter = Some(f.clone());
     }
     if let Some(u) = &a.unit {
+        if study.diagram.index_of(u).is_some() {
+            return Err(Failure::input(format!(
+                "--unit: `{u}` is a variable of the diagram; the unit key must identify rows (for example customer_id)"
+            )));
+        }
         study.source.unit = Some(u.clone());
         for q in &mut study.questions {
             q.unit = None;
@@ -281,6 +286,9 @@ pub fn run_run(a: Args) -> Result<i32, Failure> {
     let engine = connector
         .connect(&locator, access, &upshot_core::files_of(&study))
         .map_err(crate::exit::opening)?;
+    if let Some(table) = &a.into {
+        upshot_core::check_results_table(engine.as_ref(), table)?;
+    }
     if a.into.is_some() && !engine.capabilities().durable {
         return Err(Failure::input(
             "--into needs a database file to write to: give --db FILE (a DuckDB file; it is created if missing)",
@@ -298,19 +306,24 @@ pub fn run_run(a: Args) -> Result<i32, Failure> {
         "csv" => render::run_csv(&answers),
         _ => render::run_text(&answers),
     };
-    // The output first: when it cannot be written, nothing goes into the results table.
-    emit(&out)?;
-    if let Some(table) = &a.into {
-        upshot_core::write_results(
-            engine.as_ref(),
-            table,
-            a.run_key.as_deref(),
-            &study,
-            &answers,
-        )?;
-        if format == "text" {
-            emit(&format!("estimates appended to {table}\n"))?;
+    match &a.into {
+        // The rows are written, then the output, then the transaction commits: both or neither.
+        Some(table) => {
+            let out = if format == "text" {
+                format!("{out}estimates appended to {table}\n")
+            } else {
+                out
+            };
+            upshot_core::write_results(
+                engine.as_ref(),
+                table,
+                a.run_key.as_deref(),
+                &study,
+                &answers,
+                &mut || emit(&out).map_err(|f| f.message),
+            )?;
         }
+        None => emit(&out)?,
     }
     Ok(OK)
 }

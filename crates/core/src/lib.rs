@@ -27,7 +27,7 @@ mod results;
 mod source;
 
 pub use resolve::{plan, resolve, QuestionPlan, Resolved, Settings};
-pub use results::{results_rows, run, write_results, Answer, QuestionSummary};
+pub use results::{check_results_table, results_rows, run, write_results, Answer, QuestionSummary};
 pub use source::{
     check_columns, classify_source, database_of, files_of, has_columns_to_check, source_of,
     ResolvedRows, DEFAULT_DATABASE,

@@ -173,15 +173,26 @@ pub fn results_rows(
     (run_id, rows)
 }
 
+/// Checks a results-table name for `engine` before anything runs (the name is quoted part by
+/// part; an empty part is refused).
+pub fn check_results_table(engine: &dyn Engine, table: &str) -> Result<(), CoreError> {
+    upshot_sql::results_sql(engine.dialect(), table)
+        .map(|_| ())
+        .map_err(|e| CoreError::Input(format!("--into: {e}")))
+}
+
 /// Writes the answers to the results table `table` in one transaction: creates it if missing,
-/// replaces the rows of an earlier run with the same `run_key`, appends these. Nothing is
-/// written when any statement fails.
+/// replaces the rows of an earlier run with the same `run_key`, appends these, then calls
+/// `before_commit` (a surface writes its output there) and commits. Nothing is written when any
+/// statement or `before_commit` fails; a failing `before_commit`'s message comes back as
+/// [`CoreError::Engine`].
 pub fn write_results(
     engine: &dyn Engine,
     table: &str,
     run_key: Option<&str>,
     study: &Study,
     answers: &[Answer],
+    before_commit: &mut dyn FnMut() -> Result<(), String>,
 ) -> Result<(), CoreError> {
     if !engine.capabilities().durable {
         return Err(CoreError::Input(
@@ -209,9 +220,14 @@ pub fn write_results(
         sql: sql.insert,
         rows,
     });
-    engine.write(&statements).map_err(|e| {
-        CoreError::Engine(format!(
-            "--into {table}: nothing was written (the transaction was rolled back): {e}"
-        ))
-    })
+    engine
+        .write(&statements, before_commit)
+        .map_err(|e| match e {
+            upshot_engine::EngineError::Aborted(why) => CoreError::Engine(format!(
+                "{why}; --into {table}: nothing was written (the transaction was rolled back)"
+            )),
+            e => CoreError::Engine(format!(
+                "--into {table}: nothing was written (the transaction was rolled back): {e}"
+            )),
+        })
 }

@@ -128,7 +128,11 @@ impl DuckDbEngine {
             })
     }
 
-    fn write_all(&self, statements: &[Write]) -> Result<(), EngineError> {
+    fn write_all(
+        &self,
+        statements: &[Write],
+        before_commit: &mut dyn FnMut() -> Result<(), String>,
+    ) -> Result<(), EngineError> {
         let err = |e: duckdb::Error| EngineError::Query {
             pass: "write".into(),
             message: e.to_string(),
@@ -157,7 +161,13 @@ impl DuckDbEngine {
             Ok::<(), duckdb::Error>(())
         })();
         match result {
-            Ok(()) => self.conn().execute_batch("COMMIT").map_err(err),
+            Ok(()) => match before_commit() {
+                Ok(()) => self.conn().execute_batch("COMMIT").map_err(err),
+                Err(why) => {
+                    let _ = self.conn().execute_batch("ROLLBACK");
+                    Err(EngineError::Aborted(why))
+                }
+            },
             Err(e) => {
                 let _ = self.conn().execute_batch("ROLLBACK");
                 Err(err(e))
@@ -276,8 +286,12 @@ impl Engine for DuckDbEngine {
         }
     }
 
-    fn write(&self, statements: &[Write]) -> Result<(), EngineError> {
-        self.write_all(statements)
+    fn write(
+        &self,
+        statements: &[Write],
+        before_commit: &mut dyn FnMut() -> Result<(), String>,
+    ) -> Result<(), EngineError> {
+        self.write_all(statements, before_commit)
     }
 
     fn run(&self, pass: &Pass) -> Result<Aggregates, EngineError> {

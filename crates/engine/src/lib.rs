@@ -55,6 +55,9 @@ pub enum EngineError {
         /// The database's message.
         message: String,
     },
+    /// A write was rolled back because the step before its commit failed (the message).
+    #[error("{0}")]
+    Aborted(String),
     /// A result value of an unexpected type.
     #[error(transparent)]
     Result(#[from] upshot_sql::ResultError),
@@ -130,9 +133,14 @@ pub trait Engine {
     /// The columns of a source (reads no rows).
     fn columns(&self, source: &Source) -> Result<Vec<Column>, EngineError>;
     /// Runs statements of upshot's own in one transaction: each statement once per row of
-    /// parameters (once without parameters when it has no rows). Either every statement takes
-    /// effect or none does.
-    fn write(&self, statements: &[Write]) -> Result<(), EngineError>;
+    /// parameters (once without parameters when it has no rows), then `before_commit` (a
+    /// surface writes its output there), then commits. Either every statement takes effect or
+    /// none does: a failing statement or a failing `before_commit` rolls all back.
+    fn write(
+        &self,
+        statements: &[Write],
+        before_commit: &mut dyn FnMut() -> Result<(), String>,
+    ) -> Result<(), EngineError>;
 }
 
 /// Opens engines of one kind from locators.

@@ -28,6 +28,16 @@ pub(crate) fn fit_label(s: &Setup, seg: &[KeyValue], j: usize) -> String {
     }
 }
 
+/// The refusal when every row of a group falls in fold `j`, so that the models leaving it out
+/// have no rows: the unit key takes too few values.
+pub(crate) fn one_fold(s: &Setup, j: usize) -> MethodError {
+    MethodError::Input(format!(
+        "every row falls in fold {j}: the unit key `{}` takes too few distinct values to spread rows over {} folds; name a key with one value per unit (--unit), or use --folds 1",
+        s.spec.unit.as_deref().unwrap_or(""),
+        s.spec.folds
+    ))
+}
+
 /// The fold hash of a cross-fitting spec (`None` without cross-fitting, which includes a
 /// spec without a unit key).
 fn fold(s: &Setup) -> Option<Fold> {
@@ -114,7 +124,7 @@ pub(crate) fn fold_sum(
     }
     total.ok_or_else(|| {
         MethodError::Input(format!(
-            "every row of a group falls in fold {}: the unit key takes too few distinct values to spread rows over the folds; name a key with one value per unit (--unit), use fewer folds (--folds), or more rows",
+            "every row of a group falls in fold {}: the unit key takes too few distinct values to spread rows over the folds; name a key with one value per unit (--unit), or use --folds 1",
             leave_out.unwrap_or(0)
         ))
     })

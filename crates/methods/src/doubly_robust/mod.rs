@@ -95,6 +95,9 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
             let what = fit_label(s, seg, j);
             let n1 = arms[1].as_ref().map_or(0.0, |m| m.n);
             let n0 = arms[0].as_ref().map_or(0.0, |m| m.n);
+            if k > 1 && n1 + n0 == 0.0 {
+                return Err(crate::crossfit::one_fold(s, j));
+            }
             check_arms(s, seg, n1, n0).map_err(|e| match k {
                 1 => e,
                 _ => MethodError::Input(format!("{what}: {e}")),

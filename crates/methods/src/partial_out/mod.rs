@@ -108,8 +108,9 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
         let (mut a, mut b) = (Vec::new(), Vec::new());
         for (j, m) in per_fold.iter().enumerate() {
             let what = fit_label(s, seg, j);
-            let m = m[0].as_ref().ok_or_else(|| {
-                MethodError::Input(format!("{what}: no rows to fit the nuisance models"))
+            let m = m[0].as_ref().ok_or_else(|| match per_fold.len() {
+                1 => MethodError::Input(format!("{what}: no rows to fit the nuisance models")),
+                _ => crate::crossfit::one_fold(s, j),
             })?;
             let ft = ols(m, p, &x).map_err(|e| {
                 MethodError::Input(format!(
