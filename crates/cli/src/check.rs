@@ -74,6 +74,11 @@ pub(crate) fn read_graph(value: &str) -> Result<(String, String), Failure> {
     if p.is_file() {
         let s = std::fs::read_to_string(p)
             .map_err(|e| Failure::input(format!("--graph: cannot read {value}: {e}")))?;
+        if !upshot_study::looks_like_diagram(&s) {
+            return Err(Failure::input(format!(
+                "--graph: {value} holds no diagram (no edge such as `a -> b` in it); check the path"
+            )));
+        }
         return Ok((s, value.to_string()));
     }
     if value.contains("->")

@@ -19,4 +19,7 @@ mod model;
 mod raw;
 
 pub use error::{Location, StudyError};
-pub use model::{Estimand, Method, Question, QuestionInput, Route, Rows, SourceSection, Study};
+pub use model::{
+    looks_like_diagram, Estimand, Method, Question, QuestionInput, Route, Rows, SourceSection,
+    Study,
+};

@@ -324,6 +324,16 @@ impl Study {
                         format!("cannot read {}: {e}", p.display()),
                     )
                 })?;
+                if !looks_like_diagram(&dt) {
+                    return Err(lines.error(
+                        off,
+                        Some("diagram.file".into()),
+                        format!(
+                            "{} holds no diagram (no edge such as `a -> b` in it); check the path",
+                            p.display()
+                        ),
+                    ));
+                }
                 let dl = Lines::new(&dt, &p.display().to_string());
                 Diagram::parse(&dt)
                     .map_err(|e| diagram_error(&e, Some((&dl, 0)), &p.display().to_string()))?
@@ -616,6 +626,12 @@ fn check_diagram_names(d: &Diagram, label: &str) -> Result<(), StudyError> {
         }
     }
     Ok(())
+}
+
+/// Whether a file's text may be a diagram at all (it has an edge): a file that is not is
+/// refused without quoting any of its lines.
+pub fn looks_like_diagram(text: &str) -> bool {
+    text.contains("->") || text.contains("<-") || text.contains("--")
 }
 
 fn file_stem(label: &str) -> String {
