@@ -384,6 +384,14 @@ fn render(doc: &CheckReport) -> String {
             }
         }
     }
+    if doc.implied_pairs_unexamined > 0 {
+        let _ = writeln!(
+            o,
+            "   ({} more pairs of variables not examined: a diagram this large gets the first {} pairs)",
+            doc.implied_pairs_unexamined,
+            upshot_graph::report::MAX_IMPLIED_PAIRS
+        );
+    }
     o
 }
 

@@ -92,6 +92,10 @@ pub struct CheckReport {
     pub questions: Vec<QuestionReport>,
     /// Testable independences the diagram implies.
     pub implied_independences: Vec<NamedIndependence>,
+    /// Non-adjacent pairs left unexamined for implied independences (large diagrams; see
+    /// `upshot_graph::report::MAX_IMPLIED_PAIRS`); absent when every pair was examined.
+    #[serde(skip_serializing_if = "is_zero")]
+    pub implied_pairs_unexamined: usize,
     /// The local Markov basis, when small enough to print.
     pub local_markov_basis: Option<Vec<NamedMarkovStatement>>,
     /// 0 when every question is identified, else 3.
@@ -400,6 +404,7 @@ pub fn check(study: &Study, only: Option<&str>) -> Result<CheckReport, CoreError
         3
     };
     let (edges, pairs) = d.declared_edges();
+    let (implied, unexamined) = report::implied(d);
     Ok(CheckReport {
         format: "upshot-check/1",
         tool_version: env!("CARGO_PKG_VERSION"),
@@ -425,9 +430,14 @@ pub fn check(study: &Study, only: Option<&str>) -> Result<CheckReport, CoreError
                 .map(|&(x, y)| [d.name(x).to_string(), d.name(y).to_string()])
                 .collect(),
         },
-        implied_independences: report::implied(d),
+        implied_independences: implied,
+        implied_pairs_unexamined: unexamined,
         local_markov_basis: report::markov_basis(d),
         questions: reports,
         exit_code: code,
     })
+}
+
+fn is_zero(n: &usize) -> bool {
+    *n == 0
 }

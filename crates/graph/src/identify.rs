@@ -546,6 +546,14 @@ pub struct Independence {
 /// statement is implied by the diagram; together they need not imply all of its independences
 /// (that is what [`local_markov_basis`] gives).
 pub fn implied_independences(d: &Diagram) -> Vec<Independence> {
+    implied_independences_up_to(d, usize::MAX).0
+}
+
+/// As [`implied_independences`], examining at most `max_pairs` non-adjacent pairs (in
+/// topological order): each pair costs a moralisation and a separator search, so a diagram of
+/// thousands of variables has millions of them. Returns the independences found and how many
+/// non-adjacent pairs were left unexamined.
+pub fn implied_independences_up_to(d: &Diagram, max_pairs: usize) -> (Vec<Independence>, usize) {
     let g = d.dag();
     let order = g.topological_order().expect("diagram is acyclic");
     let mut pos = vec![0; g.len()];
@@ -555,11 +563,17 @@ pub fn implied_independences(d: &Diagram) -> Vec<Independence> {
     let obs: Vec<usize> = order.iter().copied().filter(|&v| !d.is_latent(v)).collect();
     let observed = d.observed();
     let mut out = Vec::new();
+    let (mut examined, mut unexamined) = (0usize, 0usize);
     for (i, &a) in obs.iter().enumerate() {
         for &b in &obs[i + 1..] {
             if g.has_edge(a, b) || g.has_edge(b, a) {
                 continue;
             }
+            if examined >= max_pairs {
+                unexamined += 1;
+                continue;
+            }
+            examined += 1;
             let (sa, sb) = (g.set([a]), g.set([b]));
             let an = g.ancestors(&sa.union(&sb));
             let adj = g.moral_graph(&an);
@@ -571,7 +585,7 @@ pub fn implied_independences(d: &Diagram) -> Vec<Independence> {
             }
         }
     }
-    out
+    (out, unexamined)
 }
 
 /// One statement of the local Markov property: `node` is independent of `independent_of` (its

@@ -87,63 +87,36 @@ pub fn minimal_separators(
 ) -> (Vec<NodeSet>, bool) {
     let mut out = Vec::new();
     let mut complete = true;
-    let forced = NodeSet::new(source.capacity());
-    branch(
-        adj,
-        source.clone(),
-        forced,
-        target,
-        allowed,
-        limit,
-        &mut out,
-        &mut complete,
-    );
-    (out, complete)
-}
-
-#[allow(clippy::too_many_arguments)]
-fn branch(
-    adj: &[Vec<usize>],
-    mut region: NodeSet,
-    forced: NodeSet,
-    target: &NodeSet,
-    allowed: &NodeSet,
-    limit: usize,
-    out: &mut Vec<NodeSet>,
-    complete: &mut bool,
-) {
-    if out.len() >= limit {
-        *complete = false;
-        return;
-    }
-    if !close(adj, &mut region, target, allowed) {
-        return;
-    }
-    let n = border(adj, &region);
-    let d = component(adj, target, &region.union(&n));
-    if !forced.is_subset(&border(adj, &d)) {
-        return;
-    }
-    match n.difference(&forced).first() {
-        None => out.push(n),
-        Some(v) => {
-            let mut grown = region.clone();
-            grown.insert(v);
-            branch(
-                adj,
-                grown,
-                forced.clone(),
-                target,
-                allowed,
-                limit,
-                out,
-                complete,
-            );
-            let mut more = forced;
-            more.insert(v);
-            branch(adj, region, more, target, allowed, limit, out, complete);
+    // Depth-first over (region, forced) pairs with an explicit stack: a recursion here went as
+    // deep as the diagram is large and overflowed the stack on 30,000 nodes. The `grown` branch
+    // is explored before the `forced` one, as the recursion did, so the order is unchanged.
+    let mut stack = vec![(source.clone(), NodeSet::new(source.capacity()))];
+    while let Some((mut region, forced)) = stack.pop() {
+        if out.len() >= limit {
+            complete = false;
+            break;
+        }
+        if !close(adj, &mut region, target, allowed) {
+            continue;
+        }
+        let n = border(adj, &region);
+        let d = component(adj, target, &region.union(&n));
+        if !forced.is_subset(&border(adj, &d)) {
+            continue;
+        }
+        match n.difference(&forced).first() {
+            None => out.push(n),
+            Some(v) => {
+                let mut grown = region.clone();
+                grown.insert(v);
+                let mut more = forced.clone();
+                more.insert(v);
+                stack.push((region, more));
+                stack.push((grown, forced));
+            }
         }
     }
+    (out, complete)
 }
 
 #[cfg(test)]
