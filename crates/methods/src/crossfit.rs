@@ -6,7 +6,7 @@ use crate::prepare::{needs_folds, Setup};
 use crate::read::{by_segment, logit_sums, moments};
 use crate::MethodError;
 use upshot_fit::{LogitSums, Moments};
-use upshot_sql::{Aggregates, Design, Fold, GramLayout, Key, KeyValue, LogisticLayout};
+use upshot_sql::{Aggregates, Built, Design, Fold, GramLayout, Key, KeyValue, LogisticLayout};
 
 /// Folds actually used (1 when cross-fitting is off).
 pub(crate) fn folds(s: &Setup) -> u32 {
@@ -67,6 +67,22 @@ pub(crate) fn gram_design(s: &Setup, by_arm: bool, last: Vec<upshot_sql::DesignT
         extras: vec![],
         fold: fold(s),
     }
+}
+
+/// The Gram pass over [`gram_design`]: per segment (fold, arm) the centred sums of the
+/// covariates and the `last` terms.
+pub(crate) fn gram_pass(
+    s: &Setup,
+    by_arm: bool,
+    last: Vec<upshot_sql::DesignTerm>,
+) -> Result<Built<GramLayout>, MethodError> {
+    let spec = s.spec;
+    Ok(upshot_sql::gram(
+        &spec.flavor,
+        &spec.source,
+        s.filter.as_ref(),
+        &gram_design(s, by_arm, last),
+    )?)
 }
 
 /// The row design for passes that evaluate per-segment (and, when cross-fitting, per-fold)

@@ -9,7 +9,7 @@
 mod passes;
 
 use crate::combine::{finish, segment_label, Part};
-use crate::crossfit::{complement_moments, fit_label, folds, gram_design, row_design};
+use crate::crossfit::{complement_moments, fit_label, folds, gram_pass, row_design};
 use crate::models::{fold_models, per_segment, placeholder};
 use crate::outcome::fit_arm;
 use crate::prepare::{needs_folds, Setup};
@@ -19,17 +19,7 @@ use crate::propensity::{
 use crate::read::row_of;
 use crate::{ask, MethodError, Outcome, Runner};
 use passes::{augmented_sums, AugmentedLayout, Nuisances};
-use upshot_sql::{gram, Built, GramLayout, KeyValue, Models, Pass};
-
-fn gram_pass(s: &Setup) -> Result<Built<GramLayout>, MethodError> {
-    let spec = s.spec;
-    Ok(gram(
-        &spec.flavor,
-        &spec.source,
-        s.filter.as_ref(),
-        &gram_design(s, true, vec![s.outcome_term.clone()]),
-    )?)
-}
+use upshot_sql::{Built, KeyValue, Models, Pass};
 
 fn scores_pass(
     s: &Setup,
@@ -58,7 +48,7 @@ pub(crate) fn passes(s: &Setup) -> Result<Vec<Pass>, MethodError> {
     let m = fold_models(s, &segs, &coef);
     if !needs_folds(s.spec) {
         return Ok(vec![
-            gram_pass(s)?.pass,
+            gram_pass(s, true, vec![s.outcome_term.clone()])?.pass,
             complement_pass(s, &m)?.pass,
             scores_pass(s, &m, &m, &m)?.pass,
         ]);
@@ -67,7 +57,7 @@ pub(crate) fn passes(s: &Setup) -> Result<Vec<Pass>, MethodError> {
     // one fold out (scores only; full Newton passes only if those do not settle).
     let whole = per_segment(&segs, &vec![vec![0.0; s.terms.len() + 1]; segs.len()]);
     Ok(vec![
-        gram_pass(s)?.pass,
+        gram_pass(s, true, vec![s.outcome_term.clone()])?.pass,
         by_fold_pass(s, &whole)?.pass,
         scores_pass_only(s, &m)?.pass,
         scores_pass(s, &m, &m, &m)?.pass,
@@ -82,7 +72,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     names.push(spec.outcome.clone());
     let mut terms = s.terms.clone();
     terms.push(s.outcome_term.clone());
-    let gp = gram_pass(s)?;
+    let gp = gram_pass(s, true, vec![s.outcome_term.clone()])?;
     let g = ask(r, &gp)?;
     let comp = complement_moments(s, &gp.layout, &g, &names, &terms, true)?;
     let x: Vec<usize> = (0..p).collect();

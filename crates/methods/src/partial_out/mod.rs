@@ -10,28 +10,14 @@
 mod passes;
 
 use crate::combine::{segment, Part};
-use crate::crossfit::{complement_moments, fit_label, gram_design, row_design};
+use crate::crossfit::{complement_moments, fit_label, gram_pass, row_design};
 use crate::models::{fold_models, placeholder};
 use crate::prepare::Setup;
 use crate::read::{keys, row_of};
 use crate::{ask, Estimand, Estimate, MethodError, Outcome, Runner, Segment};
 use passes::{partial_out_sums, PartialOutLayout};
 use upshot_fit::ols;
-use upshot_sql::{gram, Built, GramLayout, KeyValue, Pass};
-
-fn gram_pass(s: &Setup) -> Result<Built<GramLayout>, MethodError> {
-    let spec = s.spec;
-    Ok(gram(
-        &spec.flavor,
-        &spec.source,
-        s.filter.as_ref(),
-        &gram_design(
-            s,
-            false,
-            vec![s.treatment_term.clone(), s.outcome_term.clone()],
-        ),
-    )?)
-}
+use upshot_sql::{Built, KeyValue, Pass};
 
 fn scores_pass(
     s: &Setup,
@@ -53,7 +39,12 @@ fn scores_pass(
 pub(crate) fn passes(s: &Setup) -> Result<Vec<Pass>, MethodError> {
     let (segs, coef) = placeholder(s);
     Ok(vec![
-        gram_pass(s)?.pass,
+        gram_pass(
+            s,
+            false,
+            vec![s.treatment_term.clone(), s.outcome_term.clone()],
+        )?
+        .pass,
         scores_pass(s, &segs, &coef, &coef)?.pass,
     ])
 }
@@ -94,7 +85,11 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     let mut terms = s.terms.clone();
     terms.push(s.treatment_term.clone());
     terms.push(s.outcome_term.clone());
-    let gp = gram_pass(s)?;
+    let gp = gram_pass(
+        s,
+        false,
+        vec![s.treatment_term.clone(), s.outcome_term.clone()],
+    )?;
     let g = ask(r, &gp)?;
     let comp = complement_moments(s, &gp.layout, &g, &names, &terms, false)?;
     let x: Vec<usize> = (0..p).collect();

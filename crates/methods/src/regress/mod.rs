@@ -6,7 +6,7 @@
 //! for `c̃ = (1, x̄)`, HC1 covariances `V`, and the target rows' covariate covariance `Σₓ`.
 
 use crate::combine::{finish, segment, segment_label, Part};
-use crate::crossfit::gram_design;
+use crate::crossfit::gram_pass;
 use crate::outcome::{covariate_moments, fit_arm};
 use crate::prepare::Setup;
 use crate::read::{by_segment, moments, row_of, symmetric};
@@ -14,8 +14,7 @@ use crate::{ask, Estimand, Estimate, MethodError, Outcome, Runner};
 use nalgebra::DVector;
 use upshot_fit::{Moments, Ols};
 use upshot_sql::{
-    gram, residuals, Built, Design, GramLayout, Key, KeyValue, Model, Models, Pass, ResidualLayout,
-    Selector,
+    residuals, Built, Design, Key, KeyValue, Model, Models, Pass, ResidualLayout, Selector,
 };
 
 fn residual_design(s: &Setup) -> Design {
@@ -28,16 +27,6 @@ fn residual_design(s: &Setup) -> Design {
         extras: vec![("y", spec.outcome.clone())],
         fold: None,
     }
-}
-
-fn gram_pass(s: &Setup) -> Result<Built<GramLayout>, MethodError> {
-    let spec = s.spec;
-    Ok(gram(
-        &spec.flavor,
-        &spec.source,
-        s.filter.as_ref(),
-        &gram_design(s, true, vec![s.outcome_term.clone()]),
-    )?)
 }
 
 fn residual_pass(s: &Setup, models: &Models) -> Result<Built<ResidualLayout>, MethodError> {
@@ -78,7 +67,7 @@ pub(crate) fn placeholder_models(s: &Setup) -> Models {
 
 pub(crate) fn passes(s: &Setup) -> Result<Vec<Pass>, MethodError> {
     Ok(vec![
-        gram_pass(s)?.pass,
+        gram_pass(s, true, vec![s.outcome_term.clone()])?.pass,
         residual_pass(s, &placeholder_models(s))?.pass,
     ])
 }
@@ -91,7 +80,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     names.push(spec.outcome.clone());
     let mut terms = s.terms.clone();
     terms.push(s.outcome_term.clone());
-    let gp = gram_pass(s)?;
+    let gp = gram_pass(s, true, vec![s.outcome_term.clone()])?;
     let g = ask(r, &gp)?;
     struct Seg {
         key: Vec<KeyValue>,
