@@ -437,11 +437,23 @@ pub fn find_instruments(d: &Diagram, x: &NodeSet, y: &NodeSet) -> Vec<(usize, No
     let dex = g.descendants(x);
     let obs = d.observed();
     let mut out = Vec::new();
+    // Candidate sets left to test in the whole search: a bound on the time a diagram of
+    // thousands of variables takes; diagrams a person draws never reach it.
+    let checks = std::cell::Cell::new(INSTRUMENT_SEARCH_CHECKS);
     for z in obs.difference(&dex).difference(y).iter() {
+        if checks.get() == 0 {
+            break;
+        }
         let zs = g.set([z]);
         // Candidate sets below are observed and free of the treatment's descendants, so only
         // relevance and exclusion remain to be tested (no graph copies per test).
-        let ok = |w: &NodeSet| !g.d_separated(&zs, x, w) && ux.d_separated(&zs, y, w);
+        let ok = |w: &NodeSet| {
+            if checks.get() == 0 {
+                return false;
+            }
+            checks.set(checks.get() - 1);
+            !g.d_separated(&zs, x, w) && ux.d_separated(&zs, y, w)
+        };
         let empty = g.empty_set();
         if ok(&empty) {
             out.push((z, empty));
@@ -472,7 +484,7 @@ pub fn find_instruments(d: &Diagram, x: &NodeSet, y: &NodeSet) -> Vec<(usize, No
                 }
             }
             grown.sort_by_cached_key(|s| (s.len(), d.sorted_names(s)));
-            hit = grown.into_iter().find(|w| ok(w));
+            hit = grown.into_iter().take(INSTRUMENT_BUDGET).find(|w| ok(w));
         }
         if hit.is_none() {
             hit = subsets_by_size(&allowed.to_vec(), g.len(), INSTRUMENT_BUDGET).find(|w| ok(w));
@@ -484,6 +496,10 @@ pub fn find_instruments(d: &Diagram, x: &NodeSet, y: &NodeSet) -> Vec<(usize, No
     }
     out
 }
+
+/// Candidate conditioning sets [`find_instruments`] tests on a whole diagram at most (each
+/// costs two d-separation tests); past it, the instruments found so far are reported.
+pub const INSTRUMENT_SEARCH_CHECKS: usize = 20_000;
 
 /// Checks per candidate instrument in the exhaustive stage of [`find_instruments`].
 pub const INSTRUMENT_BUDGET: usize = 4096;
