@@ -48,7 +48,9 @@ pub use layout::{
 };
 pub use passes::{cells, gram, levels, logistic_fits, profile, residuals, schema_probe, Variants};
 pub use results_table::{results_schema_file, results_sql, ResultsSql, RESULT_COLUMNS};
-pub use source::{complete_cases, is_parquet, is_parquet_pattern, parse_filter, Source};
+pub use source::{
+    complete_cases, is_parquet, is_parquet_pattern, parse_filter, Source, USER_SQL_DEPTH,
+};
 pub use sqlparser::ast::Expr;
 
 /// `text` as a SQL string literal, rendered from the AST (quotes doubled): for the few

@@ -400,3 +400,26 @@ fn booleans_are_read_through_an_integer_where_the_dialect_needs_it() {
         "{p}"
     );
 }
+
+/// Found by fuzzing (fuzz/regressions/sql): nested input that made the parser backtrack for
+/// 9.8 s is refused at once.
+#[test]
+fn deeply_nested_user_sql_is_refused_quickly() {
+    let path =
+        PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("../../fuzz/regressions/sql/nested-timeout");
+    let text = String::from_utf8_lossy(&std::fs::read(path).unwrap()).to_string();
+    for d in DIALECTS {
+        let _ = parse_filter(&text, d);
+        let _ = Source::query(&text, d);
+    }
+    let deep = format!("{}1 = 1{}", "(".repeat(40), ")".repeat(40));
+    assert!(matches!(
+        parse_filter(&deep, &DuckDb),
+        Err(SqlError::Parse { .. })
+    ));
+    assert!(parse_filter(
+        &format!("{}1 = 1{}", "(".repeat(10), ")".repeat(10)),
+        &DuckDb
+    )
+    .is_ok());
+}
