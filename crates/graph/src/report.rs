@@ -323,6 +323,9 @@ pub struct NamedIndependence {
     pub given: Vec<String>,
 }
 
+/// Most variables a diagram may have for [`markov_basis`] to list its statements.
+pub const MAX_MARKOV_VARIABLES: usize = 500;
+
 /// Most non-adjacent pairs [`implied`] examines: enough for every diagram a person draws
 /// (60 variables have at most 1,770 pairs), and a bound on the time large generated diagrams
 /// take (each pair costs a moralisation and a separator search).
@@ -371,8 +374,14 @@ pub struct NamedMarkovStatement {
     pub given: Vec<String>,
 }
 
-/// The local Markov basis by name (`None` when the diagram has latent variables).
+/// The local Markov basis by name (`None` when the diagram has latent variables, or more than
+/// [`MAX_MARKOV_VARIABLES`] variables).
 pub fn markov_basis(d: &Diagram) -> Option<Vec<NamedMarkovStatement>> {
+    // Its statements list every non-descendant of every variable: quadratic in size (a 30,000-node
+    // chain needed tens of GB), so large diagrams get the bounded pairwise list instead.
+    if d.len() > MAX_MARKOV_VARIABLES {
+        return None;
+    }
     identify::local_markov_basis(d).map(|b| {
         b.into_iter()
             .map(|s| NamedMarkovStatement {
