@@ -85,6 +85,15 @@ pub(crate) fn gram_pass(
     )?)
 }
 
+/// [`row_design`] without the fold: for passes of one model per segment (the propensity's
+/// Newton steps, the weighting pass).
+pub(crate) fn segment_row_design(s: &Setup) -> Design {
+    Design {
+        fold: None,
+        ..row_design(s)
+    }
+}
+
 /// The row design for passes that evaluate per-segment (and, when cross-fitting, per-fold)
 /// models: segment keys, the fold, the treatment `t` and outcome `y`.
 pub(crate) fn row_design(s: &Setup) -> Design {

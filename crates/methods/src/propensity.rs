@@ -4,15 +4,13 @@
 //! that each leave one fold out.
 
 use crate::combine::segment_label;
-use crate::crossfit::{fit_label, fold_sum, folds, row_design, rows_by_fold};
+use crate::crossfit::{fit_label, fold_sum, folds, row_design, rows_by_fold, segment_row_design};
 use crate::models::{fold_models, per_segment};
 use crate::prepare::{needs_folds, Setup};
 use crate::read::{by_segment, logit_sums, row_of};
 use crate::{ask, MethodError, Runner};
 use upshot_fit::{logit_many, FitError, Logit, LogitSums, NewtonOptions};
-use upshot_sql::{
-    logistic_fits, Aggregates, Built, Design, KeyValue, LogisticLayout, Models, Variants,
-};
+use upshot_sql::{logistic_fits, Aggregates, Built, KeyValue, LogisticLayout, Models, Variants};
 
 pub(crate) fn param_names(s: &Setup) -> Vec<String> {
     let mut names = vec!["(intercept)".to_string()];
@@ -29,10 +27,7 @@ pub(crate) fn logistic_pass(
         &spec.flavor,
         &spec.source,
         s.filter.as_ref(),
-        &Design {
-            fold: None,
-            ..row_design(s)
-        },
+        &segment_row_design(s),
         models,
         Variants::Single,
     )?)

@@ -11,7 +11,7 @@
 mod passes;
 
 use crate::combine::{finish, segment_label, Part};
-use crate::crossfit::row_design;
+use crate::crossfit::segment_row_design;
 use crate::models::{per_segment, placeholder_segments};
 use crate::prepare::Setup;
 use crate::propensity::{clipping, fit_propensity, logistic_pass};
@@ -19,7 +19,7 @@ use crate::read::{row_of, symmetric};
 use crate::{ask, MethodError, Outcome, Runner};
 use nalgebra::DVector;
 use passes::{weighting_sums, WeightingLayout};
-use upshot_sql::{Built, Design, Models, Pass};
+use upshot_sql::{Built, Models, Pass};
 
 fn weights_pass(s: &Setup, models: &Models) -> Result<Built<WeightingLayout>, MethodError> {
     let spec = s.spec;
@@ -27,10 +27,7 @@ fn weights_pass(s: &Setup, models: &Models) -> Result<Built<WeightingLayout>, Me
         &spec.flavor,
         &spec.source,
         s.filter.as_ref(),
-        &Design {
-            fold: None,
-            ..row_design(s)
-        },
+        &segment_row_design(s),
         models,
         spec.estimand,
         spec.clip,
