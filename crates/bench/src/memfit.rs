@@ -68,7 +68,7 @@ pub fn export(conn: &Connection, w: &Work) -> Result<Rows, String> {
         .iter()
         .map(|&k| {
             if w.folds() > 1 {
-                upshot_sql::fold_of(k as i64, FOLDS)
+                upshot_sql::fold_of(k as i128, FOLDS)
             } else {
                 0
             }

@@ -5,7 +5,8 @@
 //! their row counts and a hash of their contents).
 //!
 //! A case: `name`, `args` (with `{db}`, `{dir}`, `{sample}` replaced), `code`, `says`, optional
-//! `files` (written into `{dir}` first), `writes` (a successful `--into`). Cases whose name
+//! `files` (written into `{dir}` first), `writes` (a successful `--into`), `prints` (a fragment
+//! of standard output, for cases that succeed). Cases whose name
 //! starts with `output full` run with standard output on `/dev/full`.
 
 use serde_json::Value;
@@ -48,7 +49,10 @@ fn setup(dir: &Path) -> String {
         "CREATE TABLE customers AS SELECT *, prior_orders * 2 + 1 AS orders_doubled, \
          prior_orders + 100 * voucher AS leak, customer_id % 2000 AS cell_id, \
          CASE WHEN customer_id % 10 = 0 THEN NULL ELSE household_size END AS household_gappy, \
-         CAST(NULL AS DOUBLE) AS empty_col, 7 AS one_unit FROM read_csv_auto('{}');
+         CAST(NULL AS DOUBLE) AS empty_col, 7 AS one_unit, \
+         CAST(customer_id AS HUGEINT) * -100000000000000000000 AS huge_unit, \
+         CAST(customer_id AS UBIGINT) + 9223372036854775808 AS wide_unit, \
+         CAST(customer_id AS VARCHAR) AS sid FROM read_csv_auto('{}');
          CREATE TABLE extreme AS SELECT *, prior_orders * 1e300 AS big_x, spend_30d * 1e300 AS big_y, \
          CASE WHEN customer_id = 100017 THEN 1.7e308 ELSE spend_30d END AS huge_y, \
          CASE WHEN customer_id = 100017 THEN 'inf'::DOUBLE ELSE spend_30d END AS inf_y, \
@@ -115,6 +119,11 @@ fn every_hostile_case_gets_its_answer_and_changes_nothing() {
         }
         if !stderr.contains(&says) {
             wrong.push(format!("stderr lacks `{says}`"));
+        }
+        if let Some(prints) = c["prints"].as_str() {
+            if !stdout.contains(prints) {
+                wrong.push(format!("stdout lacks `{prints}`"));
+            }
         }
         if stderr.contains("panicked") || stderr.contains('\u{1b}') {
             wrong.push("a panic or a raw escape on stderr".into());

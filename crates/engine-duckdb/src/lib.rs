@@ -321,7 +321,12 @@ impl Engine for DuckDbEngine {
                 name: f.name().clone(),
                 type_name: f.data_type().to_string(),
                 numeric: f.data_type().is_numeric() || matches!(f.data_type(), DataType::Boolean),
-                integer: f.data_type().is_integer(),
+                // HUGEINT and UHUGEINT arrive as 38-digit decimals of scale 0.
+                integer: f.data_type().is_integer()
+                    || matches!(
+                        f.data_type(),
+                        DataType::Decimal128(_, 0) | DataType::Decimal256(_, 0)
+                    ),
                 boolean: matches!(f.data_type(), DataType::Boolean),
             })
             .collect())

@@ -298,3 +298,71 @@ fn fused_moments_equal_plain_sums() {
     );
     assert_eq!(upshot_sql::DUCKDB_LINEAR, upshot_duckdb_ext::LINEAR);
 }
+
+#[test]
+fn fold_hash_in_sql_equals_fold_of_for_every_integer_key_type() {
+    use upshot_sql::{fold_of, Fold, Key, KeyValue};
+    let e = DuckDbEngine::open(MEMORY, false).unwrap();
+    // Keys that fit 64 bits (negative too), 128-bit keys, unsigned keys past i64::MAX, and
+    // integral decimals: the SQL hash must put each row in the fold `fold_of` computes.
+    let keys: Vec<i128> = (0..400)
+        .map(|i| i128::from(i) * 7_919 - 1_000_000)
+        .chain((0..400).map(|i| (i128::from(i) + 3) * -100_000_000_000_000_000_000))
+        .chain((0..400).map(|i| i128::from(u64::MAX) - i128::from(i) * 1_234_567))
+        .collect();
+    e.execute_batch(
+        "CREATE TABLE k (b BIGINT, h HUGEINT, u UBIGINT, d DECIMAL(38,0), x DOUBLE, part INTEGER)",
+    )
+    .unwrap();
+    let mut values = Vec::new();
+    for (i, k) in keys.iter().enumerate() {
+        let part = i / 400;
+        let b = if part == 0 {
+            k.to_string()
+        } else {
+            "NULL".into()
+        };
+        let u = if part == 2 {
+            k.to_string()
+        } else {
+            "NULL".into()
+        };
+        values.push(format!("({b}, {k}, {u}, {k}, 1.0, {part})"));
+    }
+    e.execute_batch(&format!("INSERT INTO k VALUES {}", values.join(", ")))
+        .unwrap();
+    let src = Source::table("k").unwrap();
+    for (column, part) in [("b", Some(0)), ("h", None), ("u", Some(2)), ("d", None)] {
+        let f = e.flavor();
+        let filter = part.map(|p| parse_filter(&format!("part = {p}"), f.dialect).unwrap());
+        let design = Design {
+            keys: vec![Key::Fold],
+            terms: vec![DesignTerm::Numeric {
+                column: "x".into(),
+                centre: 0.0,
+                scale: 1.0,
+            }],
+            extras: vec![],
+            fold: Some(Fold {
+                unit: column.into(),
+                folds: 5,
+            }),
+        };
+        let built = gram(&f, &src, filter.as_ref(), &design).unwrap();
+        let g = e.run(&built.pass).unwrap();
+        let mut expected = [0.0f64; 5];
+        for (i, k) in keys.iter().enumerate() {
+            if part.is_none_or(|p| p == i / 400) {
+                expected[fold_of(*k, 5) as usize] += 1.0;
+            }
+        }
+        let mut got = [0.0f64; 5];
+        for r in 0..g.rows.len() {
+            let KeyValue::Number(fold) = built.layout.keys(&g, r).unwrap()[0] else {
+                panic!("fold key is a number")
+            };
+            got[fold as usize] = g.number(r, "n").unwrap();
+        }
+        assert_eq!(got, expected, "key column {column}");
+    }
+}

@@ -6,8 +6,8 @@ use crate::{
 };
 use serde::Serialize;
 use upshot_sql::{
-    complete_cases, levels, profile, Built, Cell, DesignTerm, Expr, LevelsLayout, ProfileColumn,
-    ProfileLayout, ProfiledColumn,
+    complete_cases, levels, nonfinite, profile, Built, Cell, DesignTerm, Expr, LevelsLayout,
+    ProfileColumn, ProfileLayout, ProfiledColumn,
 };
 
 /// Most levels a categorical covariate may have for one-hot encoding.
@@ -264,41 +264,124 @@ fn scale(p: &ProfiledColumn) -> Option<f64> {
 /// table size an engine holds.
 pub const MAX_MAGNITUDE: f64 = 1e30;
 
-/// Refuses non-finite values (infinity, NaN) and magnitudes beyond [`MAX_MAGNITUDE`] in the
-/// profiled numeric columns, naming the column and what to do.
-fn check_magnitudes(cols: &[Profiled]) -> Result<(), MethodError> {
-    for c in cols {
-        let values = [&c.min, &c.max];
-        for v in values {
-            let Cell::Number(x) = v else { continue };
-            if x.is_nan() {
-                return Err(MethodError::Input(format!(
-                    "column `{}` holds NaN (not-a-number) values; exclude them in a source query (WHERE NOT isnan(...)) or fix the data",
-                    c.name
-                )));
-            }
-            if x.is_infinite() {
-                return Err(MethodError::Input(format!(
-                    "column `{}` holds {} values; exclude them in a source query or fix the data",
-                    c.name,
-                    if *x > 0.0 { "+infinity" } else { "-infinity" }
-                )));
-            }
-            if x.abs() > MAX_MAGNITUDE {
-                return Err(MethodError::Input(format!(
-                    "column `{}` holds values as large as {x:e}, beyond ±{MAX_MAGNITUDE:e}, where sums of their products overflow; rescale it in a source query (for example divide it by a power of ten) and read the estimate in the new unit",
-                    c.name
-                )));
-            }
-        }
-        if c.mean.is_some_and(|m| !m.is_finite()) || c.sd.is_some_and(|s| !s.is_finite()) {
-            return Err(MethodError::Input(format!(
-                "column `{}`: its sum of squares overflows; rescale it in a source query (for example divide it by a power of ten)",
-                c.name
-            )));
-        }
+/// The profiled numeric columns holding a value that is not a finite number within
+/// ±[`MAX_MAGNITUDE`] (NaN, an infinity, or a larger magnitude), by their minimum and maximum.
+fn extreme_columns(cols: &[Profiled]) -> Vec<String> {
+    cols.iter()
+        .filter(|c| {
+            [&c.min, &c.max]
+                .into_iter()
+                .any(|v| matches!(v, Cell::Number(x) if !x.is_finite() || x.abs() > MAX_MAGNITUDE))
+        })
+        .map(|c| c.name.clone())
+        .collect()
+}
+
+/// The column as a filter may name it: bare when it is a plain lower-case identifier, else
+/// double-quoted.
+fn filter_name(c: &str) -> String {
+    let plain = c
+        .chars()
+        .next()
+        .is_some_and(|f| f.is_ascii_lowercase() || f == '_')
+        && c.chars()
+            .all(|x| x.is_ascii_lowercase() || x.is_ascii_digit() || x == '_');
+    if plain {
+        c.to_string()
+    } else {
+        format!("\"{}\"", c.replace('"', "\"\""))
     }
-    Ok(())
+}
+
+fn rows(n: f64) -> String {
+    if n == 1.0 {
+        "1 row".into()
+    } else {
+        format!("{n} rows")
+    }
+}
+
+/// The refusal of columns holding NaN, infinities or magnitudes beyond [`MAX_MAGNITUDE`]: one
+/// more pass (over the rows `filter` keeps) counts the offending rows of each kind, so the
+/// message says which column, how many rows and what they hold, and what to do.
+pub(crate) fn refuse_extremes(
+    spec: &Spec,
+    filter: Option<&Expr>,
+    columns: &[String],
+    r: &mut dyn Runner,
+) -> MethodError {
+    let built = match nonfinite(&spec.flavor, &spec.source, filter, columns, MAX_MAGNITUDE) {
+        Ok(b) => b,
+        Err(e) => return e.into(),
+    };
+    let a = match ask_unchecked(r, &built.pass) {
+        Ok(a) => a,
+        Err(e) => return e,
+    };
+    let mut parts = Vec::new();
+    let mut beyond_only = true;
+    let mut any_beyond = false;
+    for (i, c) in columns.iter().enumerate() {
+        let k = match built.layout.column(&a, i) {
+            Ok(k) => k,
+            Err(e) => return e.into(),
+        };
+        let mut kinds = Vec::new();
+        if k.nan > 0.0 {
+            kinds.push(format!("NaN (not-a-number) in {}", rows(k.nan)));
+        }
+        if k.pos_inf > 0.0 {
+            kinds.push(format!("+infinity in {}", rows(k.pos_inf)));
+        }
+        if k.neg_inf > 0.0 {
+            kinds.push(format!("-infinity in {}", rows(k.neg_inf)));
+        }
+        if k.nan + k.pos_inf + k.neg_inf > 0.0 {
+            beyond_only = false;
+        }
+        if k.beyond > 0.0 {
+            any_beyond = true;
+            kinds.push(format!(
+                "magnitudes beyond ±{MAX_MAGNITUDE:e} in {}",
+                rows(k.beyond)
+            ));
+        }
+        if kinds.is_empty() {
+            // The profile saw such a value but the count did not (the data changed between
+            // the passes): say what the profile saw.
+            kinds.push("a value that is not a finite number".into());
+        }
+        parts.push(format!("column `{c}` holds {}", kinds.join(", ")));
+    }
+    let keep = columns
+        .iter()
+        .map(|c| {
+            let n = filter_name(c);
+            format!("{n} BETWEEN -{MAX_MAGNITUDE:e} AND {MAX_MAGNITUDE:e}")
+        })
+        .collect::<Vec<_>>()
+        .join(" AND ");
+    let exclude = if beyond_only {
+        format!("exclude those rows with --filter \"{keep}\"")
+    } else {
+        format!("exclude those rows with --filter \"{keep}\" (NaN and the infinities fall outside that range in DuckDB, PostgreSQL and Spark SQL)")
+    };
+    MethodError::Input(if beyond_only {
+        format!(
+            "{}: sums of their products would overflow. Rescale the column in a source query (for example divide it by a power of ten) and read the estimate in the new unit, or {exclude}",
+            parts.join("; ")
+        )
+    } else {
+        format!(
+            "{}: these are not numbers an estimate can use. Fix the data, or {exclude}{}",
+            parts.join("; "),
+            if any_beyond {
+                "; rescale a column whose large magnitudes are real"
+            } else {
+                ""
+            }
+        )
+    })
 }
 
 /// Whether the profile computes column `c`'s numeric statistics (min, max, mean, sum of
@@ -417,7 +500,19 @@ pub(crate) fn prepare<'a>(spec: &'a Spec, r: &mut dyn Runner) -> Result<Setup<'a
             .find(|p| p.name == n)
             .expect("profiled")
     };
-    check_magnitudes(&profiled_cols)?;
+    let extreme = extreme_columns(&profiled_cols);
+    if !extreme.is_empty() {
+        return Err(refuse_extremes(spec, spec.filter.as_ref(), &extreme, r));
+    }
+    if let Some(c) = profiled_cols
+        .iter()
+        .find(|c| c.mean.is_some_and(|m| !m.is_finite()) || c.sd.is_some_and(|s| !s.is_finite()))
+    {
+        return Err(MethodError::Input(format!(
+            "column `{}`: its sum of squares overflows; rescale it in a source query (for example divide it by a power of ten)",
+            c.name
+        )));
+    }
     let t = col(&spec.treatment);
     let (tmin, tmax) = (show(&t.min), show(&t.max));
     if t.sd == Some(0.0) || tmin == tmax {

@@ -212,10 +212,12 @@ pub const FOLD_PRIME: i64 = 2_147_483_647;
 
 /// The fold of an integer unit key, exactly as the SQL of [`Fold`] computes it: a non-linear
 /// arithmetic hash (multiply, square, multiply-add, all modulo 2³¹ − 1), then modulo `folds`.
-/// Portable: only `%`, `*` and `+` on 64-bit integers.
-pub fn fold_of(key: i64, folds: u32) -> u32 {
+/// Portable: only `%`, `*` and `+` on 64-bit integers, after one `%` in the key's own type
+/// (so 128-bit and unsigned keys hash too); `%` truncates toward zero, as in SQL.
+pub fn fold_of(key: i128, folds: u32) -> u32 {
     let p = FOLD_PRIME;
-    let a = ((key % p) + p) % p;
+    let r = (key % i128::from(p)) as i64;
+    let a = (r + p) % p;
     let h1 = (a * 48_271 + 11) % p;
     let h2 = (h1 * h1) % p;
     let h3 = (h2 * 16_807 + h1) % p;
@@ -356,7 +358,7 @@ pub fn term_sql(t: &mut PassText, term: &DesignTerm) -> Result<String, SqlError>
 fn fold_sql(t: &mut PassText, fold: &Fold) -> String {
     let u = t.bind(Bind::Column(fold.unit.clone()));
     let p = FOLD_PRIME;
-    let a = format!("((CAST({u} AS BIGINT) % {p}) + {p}) % {p}");
+    let a = format!("(CAST({u} % {p} AS BIGINT) + {p}) % {p}");
     let h1 = format!("(({a}) * 48271 + 11) % {p}");
     let h2 = format!("(({h1}) * ({h1})) % {p}");
     let h3 = format!("(({h2}) * 16807 + ({h1})) % {p}");
@@ -723,7 +725,7 @@ mod tests {
         for c in count {
             assert!((3800..4200).contains(&c), "{count:?}");
         }
-        assert_eq!(fold_of(-7, 5), fold_of(FOLD_PRIME - 7, 5));
+        assert_eq!(fold_of(-7, 5), fold_of(i128::from(FOLD_PRIME - 7), 5));
         assert_eq!(fold_of(12345, 1), 0);
     }
 }

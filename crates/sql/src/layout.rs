@@ -309,3 +309,36 @@ impl ProfileLayout {
         })
     }
 }
+
+/// The layout of the [`nonfinite`](crate::passes::nonfinite) pass.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct NonFiniteLayout {
+    /// The columns, in the order counted.
+    pub columns: Vec<String>,
+}
+
+/// Rows of one column that hold a value other than a finite number within the limit.
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct NonFinite {
+    /// NaN (not-a-number).
+    pub nan: f64,
+    /// +infinity.
+    pub pos_inf: f64,
+    /// -infinity.
+    pub neg_inf: f64,
+    /// Finite, beyond ± the limit.
+    pub beyond: f64,
+}
+
+impl NonFiniteLayout {
+    /// Column `i`'s counts.
+    pub fn column(&self, a: &Aggregates, i: usize) -> Result<NonFinite, ResultError> {
+        let n = |what: &str| a.number_or(0, &format!("c{i}_{what}"), 0.0);
+        Ok(NonFinite {
+            nan: n("nan")?,
+            pos_inf: n("pinf")?,
+            neg_inf: n("ninf")?,
+            beyond: n("big")?,
+        })
+    }
+}

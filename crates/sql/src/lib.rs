@@ -44,9 +44,11 @@ pub use error::SqlError;
 pub use filter::FUNCTIONS as FILTER_FUNCTIONS;
 pub use layout::{
     group_keys, Built, CellsLayout, GramLayout, LevelsLayout, LogisticLayout, LogisticRow,
-    ProfileColumn, ProfileLayout, ProfiledColumn, ResidualLayout,
+    NonFinite, NonFiniteLayout, ProfileColumn, ProfileLayout, ProfiledColumn, ResidualLayout,
 };
-pub use passes::{cells, gram, levels, logistic_fits, profile, residuals, schema_probe, Variants};
+pub use passes::{
+    cells, gram, levels, logistic_fits, nonfinite, profile, residuals, schema_probe, Variants,
+};
 pub use results_table::{results_schema_file, results_sql, ResultsSql, RESULT_COLUMNS};
 pub use source::{
     complete_cases, is_parquet, is_parquet_pattern, parse_filter, Source, USER_SQL_DEPTH,

@@ -10,8 +10,8 @@ use crate::design::{
 use crate::dialect::Flavor;
 use crate::error::SqlError;
 use crate::layout::{
-    Built, CellsLayout, GramLayout, LevelsLayout, LogisticLayout, ProfileColumn, ProfileLayout,
-    ResidualLayout,
+    Built, CellsLayout, GramLayout, LevelsLayout, LogisticLayout, NonFiniteLayout, ProfileColumn,
+    ProfileLayout, ResidualLayout,
 };
 use crate::source::Source;
 use sqlparser::ast::Expr;
@@ -86,6 +86,60 @@ pub fn profile(
             query: t.query(source, filter)?,
         },
         layout: ProfileLayout {
+            columns: columns.to_vec(),
+        },
+    })
+}
+
+/// Per column, the rows whose value is not a finite number within ±`limit`: NaN, +infinity,
+/// -infinity, and finite values beyond the limit. Run only to explain a refusal (the profile
+/// found such a value), so a run that goes on never pays for it. Output aliases `c{i}_nan`,
+/// `c{i}_pinf`, `c{i}_ninf`, `c{i}_big`.
+pub fn nonfinite(
+    flavor: &Flavor,
+    source: &Source,
+    filter: Option<&Expr>,
+    columns: &[String],
+    limit: f64,
+) -> Result<Built<NonFiniteLayout>, SqlError> {
+    let mut t = PassText::new(flavor);
+    let d = flavor.dialect;
+    let f = t.float();
+    let count = |cond: String, alias: String| {
+        if d.aggregate_filter() {
+            format!("COUNT(*) FILTER (WHERE {cond}) AS {alias}")
+        } else {
+            format!("SUM(CASE WHEN {cond} THEN 1 ELSE 0 END) AS {alias}")
+        }
+    };
+    let mut items = vec!["COUNT(*) AS n_rows".to_string()];
+    for (i, c) in columns.iter().enumerate() {
+        let p = t.column(c);
+        let x = t.float_of(&p, c);
+        let l = t.number(limit, "the magnitude limit")?;
+        // NaN equals itself in DuckDB, PostgreSQL and Spark SQL (and orders above every number).
+        let nan = format!("{x} = CAST('NaN' AS {f})");
+        let pinf = format!("{x} = CAST('Infinity' AS {f})");
+        let ninf = format!("{x} = CAST('-Infinity' AS {f})");
+        items.push(count(nan.clone(), format!("c{i}_nan")));
+        items.push(count(pinf.clone(), format!("c{i}_pinf")));
+        items.push(count(ninf.clone(), format!("c{i}_ninf")));
+        items.push(count(
+            format!("NOT ({nan} OR {pinf} OR {ninf}) AND ({x} > {l} OR {x} < -{l})"),
+            format!("c{i}_big"),
+        ));
+    }
+    t.sql = format!(
+        "SELECT {} FROM __src AS src WHERE __filter",
+        items.join(", ")
+    );
+    Ok(Built {
+        pass: Pass {
+            name: "nonfinite".into(),
+            purpose: "per column: rows holding NaN, +infinity, -infinity, or a number beyond the magnitude limit (run only to explain a refusal)".into(),
+            query: t.query(source, filter)?,
+        },
+        layout: NonFiniteLayout {
             columns: columns.to_vec(),
         },
     })

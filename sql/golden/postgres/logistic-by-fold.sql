@@ -33,7 +33,7 @@ FROM
           (
             SELECT
               "tenure_band" AS k0,
-              (((((((((CAST("customer_id" AS BIGINT) % 2147483647) + 2147483647) % 2147483647) * 48271 + 11) % 2147483647) * (((((CAST("customer_id" AS BIGINT) % 2147483647) + 2147483647) % 2147483647) * 48271 + 11) % 2147483647)) % 2147483647) * 16807 + (((((CAST("customer_id" AS BIGINT) % 2147483647) + 2147483647) % 2147483647) * 48271 + 11) % 2147483647)) % 2147483647) % 2 AS f,
+              ((((((((CAST("customer_id" % 2147483647 AS BIGINT) + 2147483647) % 2147483647) * 48271 + 11) % 2147483647) * ((((CAST("customer_id" % 2147483647 AS BIGINT) + 2147483647) % 2147483647) * 48271 + 11) % 2147483647)) % 2147483647) * 16807 + ((((CAST("customer_id" % 2147483647 AS BIGINT) + 2147483647) % 2147483647) * 48271 + 11) % 2147483647)) % 2147483647) % 2 AS f,
               (CAST("prior orders" AS DOUBLE PRECISION) - 2.5) / 1.5 AS v0,
               (((CAST("prior orders" AS DOUBLE PRECISION) - 2.5) / 1.5) * ((CAST("prior orders" AS DOUBLE PRECISION) - 2.5) / 1.5) - 1.0) / 1.0 AS v1,
               CAST("voucher" AS DOUBLE PRECISION) AS t,

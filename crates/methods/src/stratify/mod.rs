@@ -91,10 +91,14 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     for row in 0..a.rows.len() {
         let (_, sy, syy) = cp.layout.sums(&a, row)?;
         if !sy.is_finite() || !syy.is_finite() {
-            return Err(MethodError::Input(format!(
-                "outcome `{}` holds infinite values or values too large to square and sum; exclude the infinite values, or rescale it in a source query (for example divide it by a power of ten)",
-                spec.outcome
-            )));
+            // The profile skips the outcome's range for stratify (it fits no design); its
+            // sums tell instead, and one more pass counts what they met.
+            return Err(crate::prepare::refuse_extremes(
+                spec,
+                s.filter.as_ref(),
+                std::slice::from_ref(&spec.outcome),
+                r,
+            ));
         }
     }
     let nseg = spec.segments.len();
