@@ -52,7 +52,9 @@ fn setup(dir: &Path) -> String {
          CAST(NULL AS DOUBLE) AS empty_col, 7 AS one_unit, \
          CAST(customer_id AS HUGEINT) * -100000000000000000000 AS huge_unit, \
          CAST(customer_id AS UBIGINT) + 9223372036854775808 AS wide_unit, \
-         CAST(customer_id AS VARCHAR) AS sid FROM read_csv_auto('{}');
+         CAST(customer_id AS VARCHAR) AS sid, \
+         CASE WHEN customer_id = 100017 THEN 'rare' ELSE zone END AS zone_rare, \
+         CASE WHEN customer_id % 50 = 0 THEN 'tiny' || (customer_id % 400) ELSE zone END AS zone_small FROM read_csv_auto('{}');
          CREATE TABLE extreme AS SELECT *, prior_orders * 1e300 AS big_x, spend_30d * 1e300 AS big_y, \
          CASE WHEN customer_id = 100017 THEN 1.7e308 ELSE spend_30d END AS huge_y, \
          CASE WHEN customer_id = 100017 THEN 'inf'::DOUBLE ELSE spend_30d END AS inf_y, \

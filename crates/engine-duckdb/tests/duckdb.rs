@@ -202,7 +202,7 @@ fn fused_moments_equal_plain_sums() {
         },
         DesignTerm::Level {
             column: "zone".into(),
-            level: "Harbour".into(),
+            levels: vec!["Harbour".into()],
             centre: 0.15,
             scale: 0.36,
         },

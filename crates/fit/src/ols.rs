@@ -120,10 +120,14 @@ pub fn ols(m: &Moments, y: usize, x: &[usize]) -> Result<Ols, FitError> {
     let k = x.len();
     let cxx = DMatrix::from_fn(k, k, |i, j| cov[(x[i], x[j])]);
     let cxy = DVector::from_fn(k, |i, _| cov[(x[i], y)]);
-    // Standardise to a correlation matrix; a zero variance is a constant column.
+    // Standardise to a correlation matrix; a zero variance is a constant column. The variance
+    // comes from E[v²] − E[v]², so a column constant in these rows (an indicator that is 0 in
+    // every row of an arm, centred on the whole table's share) leaves a rounding residue of
+    // about 1e-16 · E[v²], not an exact zero: judge it relative to E[v²].
     let sd: Vec<f64> = (0..k).map(|i| cxx[(i, i)].max(0.0).sqrt()).collect();
     for (i, s) in sd.iter().enumerate() {
-        if *s <= 1e-12 * (1.0 + cov[(x[i], x[i])].abs()) || *s == 0.0 {
+        let mean_square = m.gram[(x[i], x[i])] / m.n;
+        if *s == 0.0 || s * s <= 1e-10 * mean_square || *s <= 1e-12 {
             return Err(FitError::Constant {
                 column: m.names[x[i]].clone(),
             });

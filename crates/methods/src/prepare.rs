@@ -6,8 +6,8 @@ use crate::{
 };
 use serde::Serialize;
 use upshot_sql::{
-    complete_cases, levels, nonfinite, profile, Built, Cell, DesignTerm, Expr, LevelsLayout,
-    ProfileColumn, ProfileLayout, ProfiledColumn,
+    complete_cases, levels, nonfinite, profile, Built, Cell, DesignTerm, Expr, LevelRow,
+    LevelsLayout, ProfileColumn, ProfileLayout, ProfiledColumn,
 };
 
 /// Most levels a categorical covariate may have for one-hot encoding.
@@ -293,7 +293,7 @@ fn filter_name(c: &str) -> String {
     }
 }
 
-fn rows(n: f64) -> String {
+fn row_count(n: f64) -> String {
     if n == 1.0 {
         "1 row".into()
     } else {
@@ -328,13 +328,13 @@ pub(crate) fn refuse_extremes(
         };
         let mut kinds = Vec::new();
         if k.nan > 0.0 {
-            kinds.push(format!("NaN (not-a-number) in {}", rows(k.nan)));
+            kinds.push(format!("NaN (not-a-number) in {}", row_count(k.nan)));
         }
         if k.pos_inf > 0.0 {
-            kinds.push(format!("+infinity in {}", rows(k.pos_inf)));
+            kinds.push(format!("+infinity in {}", row_count(k.pos_inf)));
         }
         if k.neg_inf > 0.0 {
-            kinds.push(format!("-infinity in {}", rows(k.neg_inf)));
+            kinds.push(format!("-infinity in {}", row_count(k.neg_inf)));
         }
         if k.nan + k.pos_inf + k.neg_inf > 0.0 {
             beyond_only = false;
@@ -343,7 +343,7 @@ pub(crate) fn refuse_extremes(
             any_beyond = true;
             kinds.push(format!(
                 "magnitudes beyond ±{MAX_MAGNITUDE:e} in {}",
-                rows(k.beyond)
+                row_count(k.beyond)
             ));
         }
         if kinds.is_empty() {
@@ -441,12 +441,18 @@ pub(crate) fn levels_pass(
     if cats.is_empty() {
         return Ok(None);
     }
+    let arm = spec
+        .method
+        .needs_binary_treatment()
+        .then_some(spec.treatment.as_str());
     Ok(Some(levels(
         &spec.flavor,
         &spec.source,
         filter,
         &cats,
         &used_columns(spec),
+        &spec.segments,
+        arm,
     )?))
 }
 
@@ -533,19 +539,22 @@ pub(crate) fn prepare<'a>(spec: &'a Spec, r: &mut dyn Runner) -> Result<Setup<'a
         }
     }
     let filter = complete_cases(spec.flavor.dialect, spec.filter.as_ref(), &used);
-    let mut levels_of: Vec<(String, Vec<(String, f64)>)> = Vec::new();
+    let mut coded: Vec<Coded> = Vec::new();
+    let mut notes = Vec::new();
     if let Some(p) = levels_pass(spec, filter.as_ref())? {
         let a = ask(r, &p)?;
         let cats = categorical_covariates(spec);
-        for c in &cats {
-            levels_of.push((c.clone(), Vec::new()));
-        }
+        let mut rows_of: Vec<Vec<LevelRow>> = vec![Vec::new(); cats.len()];
         for row in 0..a.rows.len() {
-            let (which, level, n) = p.layout.level(&a, row)?;
-            levels_of[which].1.push((level, n));
+            let l = p.layout.level(&a, row)?;
+            if let Some(v) = rows_of.get_mut(l.which) {
+                v.push(l);
+            }
         }
-        for (c, lv) in &levels_of {
-            if lv.len() > MAX_LEVELS {
+        for (c, rows) in cats.iter().zip(&rows_of) {
+            let mut distinct: Vec<&str> = rows.iter().map(|l| l.level.as_str()).collect();
+            distinct.dedup();
+            if distinct.len() > MAX_LEVELS {
                 let text = spec
                     .columns
                     .as_ref()
@@ -554,15 +563,18 @@ pub(crate) fn prepare<'a>(spec: &'a Spec, r: &mut dyn Runner) -> Result<Setup<'a
                 return Err(MethodError::Input(if text {
                     format!(
                         "covariate `{c}` is a text column with {} distinct values: if it holds numbers, convert it in a source query (CAST({c} AS DOUBLE)); if it is a category, coarsen it to at most {MAX_LEVELS} levels",
-                        lv.len()
+                        distinct.len()
                     )
                 } else {
                     format!(
                         "covariate `{c}` has {} levels, too many to one-hot (at most {MAX_LEVELS}); coarsen it in a source query, or treat it as numeric",
-                        lv.len()
+                        distinct.len()
                     )
                 }));
             }
+            let (code, note) = code_levels(spec, c, rows)?;
+            coded.push(code);
+            notes.extend(note);
         }
     }
     let mut setup = Setup {
@@ -587,12 +599,12 @@ pub(crate) fn prepare<'a>(spec: &'a Spec, r: &mut dyn Runner) -> Result<Setup<'a
             rows_read: n_rows,
             rows_excluded_null: excluded,
             null_columns,
-            notes: no_unit_note(spec).into_iter().collect(),
+            notes: no_unit_note(spec).into_iter().chain(notes).collect(),
             ..Diagnostics::default()
         },
     };
     if spec.method != Method::Stratify {
-        let (terms, names) = covariate_terms(spec, &profiled_cols, &levels_of)?;
+        let (terms, names) = covariate_terms(spec, &profiled_cols, &coded)?;
         setup.terms = terms;
         setup.term_names = names;
     }
@@ -613,43 +625,215 @@ fn numeric_term(p: &Profiled) -> Result<DesignTerm, MethodError> {
     })
 }
 
+/// Fewest rows a level of a categorical covariate needs, in each treatment arm of every
+/// segment (methods with a 0/1 treatment; in all rows of every segment otherwise), to get an
+/// indicator of its own. upshot's rule, after the common practice of about ten observations
+/// per fitted parameter (the events-per-variable rule of thumb for logistic models, Peduzzi et
+/// al. 1996, cited from memory): below it an arm's model sees a constant or near-constant
+/// indicator, and the propensity model a perfectly predicted level.
+pub const MIN_LEVEL_ROWS: f64 = 10.0;
+
+/// One indicator of a categorical covariate: a level, or a pool of rare levels.
+#[derive(Clone, Debug, PartialEq)]
+pub(crate) struct Group {
+    /// The term's name (`column=level`, or `column=(rare levels)`).
+    pub name: String,
+    pub levels: Vec<String>,
+    pub rows: f64,
+}
+
+/// A categorical covariate as the design codes it: its indicators (every group but the
+/// reference) and its rows.
+#[derive(Clone, Debug, PartialEq)]
+pub(crate) struct Coded {
+    pub column: String,
+    pub indicators: Vec<Group>,
+    pub rows: f64,
+}
+
+/// The counts of one level (or pool) per segment: `(segment values, rows, treated rows)`.
+type PerSegment = Vec<(Vec<String>, f64, Option<f64>)>;
+
+fn enough(counts: &PerSegment, segments: &[Vec<String>]) -> bool {
+    segments.iter().all(|s| {
+        counts.iter().any(|(k, n, t)| {
+            k == s
+                && match t {
+                    Some(t) => t.min(n - t) >= MIN_LEVEL_ROWS,
+                    None => *n >= MIN_LEVEL_ROWS,
+                }
+        })
+    })
+}
+
+fn add_counts(pool: &mut PerSegment, counts: &PerSegment) {
+    for (k, n, t) in counts {
+        match pool.iter_mut().find(|(j, _, _)| j == k) {
+            Some(e) => {
+                e.1 += n;
+                e.2 = e.2.zip(*t).map(|(a, b)| a + b);
+            }
+            None => pool.push((k.clone(), *n, *t)),
+        }
+    }
+}
+
+fn level_list(levels: &[String]) -> String {
+    const SHOWN: usize = 8;
+    let mut s = levels
+        .iter()
+        .take(SHOWN)
+        .map(|l| format!("`{l}`"))
+        .collect::<Vec<_>>()
+        .join(", ");
+    if levels.len() > SHOWN {
+        s.push_str(&format!(" and {} more", levels.len() - SHOWN));
+    }
+    s
+}
+
+/// Codes a categorical covariate from the levels pass (`rows`: its levels per segment, ordered
+/// by level). upshot's rule ([`MIN_LEVEL_ROWS`]): a level with enough rows in each arm of every
+/// segment gets an indicator; the others are pooled into one indicator `column=(rare levels)`
+/// when the pool has enough rows, or else counted with the reference level (the most frequent
+/// level with enough rows). Either way a note names the levels. Refused when no two groups are
+/// left: the covariate could not adjust anything.
+pub(crate) fn code_levels(
+    spec: &Spec,
+    c: &str,
+    rows: &[LevelRow],
+) -> Result<(Coded, Option<String>), MethodError> {
+    let mut levels: Vec<(String, PerSegment)> = Vec::new();
+    let mut segments: Vec<Vec<String>> = Vec::new();
+    for l in rows {
+        if !segments.contains(&l.by) {
+            segments.push(l.by.clone());
+        }
+        if levels.last().is_none_or(|(name, _)| name != &l.level) {
+            levels.push((l.level.clone(), Vec::new()));
+        }
+        if let Some(last) = levels.last_mut() {
+            last.1.push((l.by.clone(), l.n, l.treated));
+        }
+    }
+    // A segment lacking an arm is refused by the method with its own message; the rule looks
+    // only at the segments that can be estimated.
+    segments.retain(|s| {
+        let (mut n, mut t) = (0.0, Some(0.0));
+        for l in rows.iter().filter(|l| &l.by == s) {
+            n += l.n;
+            t = t.zip(l.treated).map(|(a, b)| a + b);
+        }
+        t.is_none_or(|t| t > 0.0 && t < n)
+    });
+    if levels.len() < 2 {
+        return Err(MethodError::Input(format!(
+            "covariate `{c}` has a single level{} in the rows used; it cannot adjust anything — drop it from the adjustment set",
+            levels.first().map(|l| format!(" ({})", l.0)).unwrap_or_default()
+        )));
+    }
+    let total = |counts: &PerSegment| counts.iter().map(|x| x.1).sum::<f64>();
+    let rows_all: f64 = levels.iter().map(|l| total(&l.1)).sum();
+    let (kept, rare): (Vec<_>, Vec<_>) = levels
+        .iter()
+        .partition(|(_, counts)| enough(counts, &segments));
+    let arms = rows.first().is_some_and(|l| l.treated.is_some());
+    let where_ = match (arms, spec.segments.is_empty()) {
+        (true, true) => " in each treatment arm",
+        (true, false) => " in each treatment arm of every segment",
+        (false, true) => "",
+        (false, false) => " in every segment",
+    };
+    let rule = format!("a level needs {MIN_LEVEL_ROWS} rows{where_} for an indicator of its own");
+    let Some(reference) = kept
+        .iter()
+        .enumerate()
+        .max_by(|a, b| {
+            total(&a.1 .1)
+                .total_cmp(&total(&b.1 .1))
+                .then(b.0.cmp(&a.0))
+        })
+        .map(|x| x.1 .0.clone())
+    else {
+        return Err(MethodError::Input(format!(
+            "covariate `{c}`: none of its {} levels has enough rows to adjust for ({rule}); coarsen it in a source query (group its levels into fewer, larger ones), or estimate with fewer segments",
+            levels.len()
+        )));
+    };
+    let mut indicators: Vec<Group> = kept
+        .iter()
+        .filter(|(l, _)| *l != reference)
+        .map(|(l, counts)| Group {
+            name: format!("{c}={l}"),
+            levels: vec![l.clone()],
+            rows: total(counts),
+        })
+        .collect();
+    let mut note = None;
+    if !rare.is_empty() {
+        let names: Vec<String> = rare.iter().map(|(l, _)| l.clone()).collect();
+        let mut pool = PerSegment::new();
+        for (_, counts) in &rare {
+            add_counts(&mut pool, counts);
+        }
+        let n = total(&pool);
+        if enough(&pool, &segments) {
+            note = Some(format!(
+                "covariate `{c}`: {} ({}) share one indicator `{c}=(rare levels)` ({rule})",
+                level_list(&names),
+                row_count(n)
+            ));
+            indicators.push(Group {
+                name: format!("{c}=(rare levels)"),
+                levels: names,
+                rows: n,
+            });
+        } else {
+            note = Some(format!(
+                "covariate `{c}`: {} ({}) {} counted with its reference level `{reference}` ({rule}; even pooled they fall short), so the estimate does not adjust for the difference between them and `{reference}`; coarsen `{c}` in a source query to choose the grouping yourself",
+                level_list(&names),
+                row_count(n),
+                if names.len() == 1 { "is" } else { "are" }
+            ));
+        }
+    }
+    if indicators.is_empty() {
+        return Err(MethodError::Input(format!(
+            "covariate `{c}`: only its level `{reference}` has enough rows to adjust for ({rule}); coarsen it in a source query (group its levels into fewer, larger ones), or estimate with fewer segments"
+        )));
+    }
+    Ok((
+        Coded {
+            column: c.to_string(),
+            indicators,
+            rows: rows_all,
+        },
+        note,
+    ))
+}
+
 /// The covariate terms: numeric columns centred and scaled; categorical columns one-hot
-/// (every level but the most frequent, which is the reference); then the basis expansion.
+/// (an indicator per coded group but the reference, see [`code_levels`]); then the basis
+/// expansion.
 pub(crate) fn covariate_terms(
     spec: &Spec,
     profiled: &[Profiled],
-    levels_of: &[(String, Vec<(String, f64)>)],
+    coded: &[Coded],
 ) -> Result<(Vec<DesignTerm>, Vec<String>), MethodError> {
     let mut terms = Vec::new();
     let mut names = Vec::new();
     let mut numeric_base = Vec::new();
     for c in &modelled(spec) {
-        if let Some((_, lv)) = levels_of.iter().find(|(n, _)| n == c) {
-            if lv.len() < 2 {
-                return Err(MethodError::Input(format!(
-                    "covariate `{c}` has a single level{} in the rows used; it cannot adjust anything — drop it from the adjustment set",
-                    lv.first().map(|l| format!(" ({})", l.0)).unwrap_or_default()
-                )));
-            }
-            let total: f64 = lv.iter().map(|l| l.1).sum();
-            let reference = lv
-                .iter()
-                .enumerate()
-                .max_by(|a, b| a.1 .1.total_cmp(&b.1 .1).then(b.0.cmp(&a.0)))
-                .map(|x| x.0)
-                .expect("two levels");
-            for (i, (level, n)) in lv.iter().enumerate() {
-                if i == reference {
-                    continue;
-                }
-                let share = n / total;
+        if let Some(code) = coded.iter().find(|k| &k.column == c) {
+            for g in &code.indicators {
+                let share = g.rows / code.rows;
                 terms.push(DesignTerm::Level {
                     column: c.clone(),
-                    level: level.clone(),
+                    levels: g.levels.clone(),
                     centre: share,
                     scale: (share * (1.0 - share)).sqrt(),
                 });
-                names.push(format!("{c}={level}"));
+                names.push(g.name.clone());
             }
         } else {
             let p = profiled.iter().find(|p| &p.name == c).expect("profiled");
@@ -712,20 +896,22 @@ pub(crate) fn placeholder<'a>(spec: &'a Spec) -> Result<Setup<'a>, MethodError> 
             not01: 0.0,
         })
         .collect();
-    let levels_of: Vec<(String, Vec<(String, f64)>)> = categorical_covariates(spec)
+    let coded: Vec<Coded> = categorical_covariates(spec)
         .into_iter()
-        .map(|c| {
-            let lv = vec![
-                (format!("<{c} level 1>"), 1.0),
-                (format!("<{c} level 2>"), 1.0),
-            ];
-            (c, lv)
+        .map(|c| Coded {
+            indicators: vec![Group {
+                name: format!("{c}=<level 2>"),
+                levels: vec![format!("<{c} level 2>")],
+                rows: 1.0,
+            }],
+            column: c,
+            rows: 2.0,
         })
         .collect();
     let (terms, term_names) = if spec.method == Method::Stratify {
         (vec![], vec![])
     } else {
-        covariate_terms(spec, &profiled, &levels_of)?
+        covariate_terms(spec, &profiled, &coded)?
     };
     Ok(Setup {
         spec,

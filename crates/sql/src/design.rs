@@ -144,12 +144,13 @@ pub enum DesignTerm {
         /// Scale (positive).
         scale: f64,
     },
-    /// `(1[x = level] - centre) / scale`: one-hot for one level of a categorical column.
+    /// `(1[x ∈ levels] - centre) / scale`: one-hot for one level of a categorical column, or
+    /// for a pool of its rare levels.
     Level {
         /// Column.
         column: String,
-        /// The level, compared as a string literal.
-        level: String,
+        /// The level (or the pooled levels), compared as string literals.
+        levels: Vec<String>,
         /// Centre (the level's share).
         centre: f64,
         /// Scale (positive).
@@ -336,10 +337,20 @@ pub fn term_sql(t: &mut PassText, term: &DesignTerm) -> Result<String, SqlError>
     template::number(centre, &format!("the centre of `{}`", term.column()))?;
     let raw = match term {
         DesignTerm::Numeric { column, .. } => t.float_column(column),
-        DesignTerm::Level { column, level, .. } => {
+        DesignTerm::Level { column, levels, .. } => {
             let c = t.bind(Bind::Column(column.clone()));
-            let l = t.bind(Bind::Text(level.clone()));
-            format!("CASE WHEN CAST({c} AS {text}) = {l} THEN 1.0 ELSE 0.0 END")
+            let l: Vec<String> = levels
+                .iter()
+                .map(|l| t.bind(Bind::Text(l.clone())))
+                .collect();
+            if let [one] = l.as_slice() {
+                format!("CASE WHEN CAST({c} AS {text}) = {one} THEN 1.0 ELSE 0.0 END")
+            } else {
+                format!(
+                    "CASE WHEN CAST({c} AS {text}) IN ({}) THEN 1.0 ELSE 0.0 END",
+                    l.join(", ")
+                )
+            }
         }
         DesignTerm::Product { factors, .. } => {
             let parts = factors

@@ -200,18 +200,51 @@ impl CellsLayout {
 
 /// The layout of a levels pass: one row per column and level.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub struct LevelsLayout;
+pub struct LevelsLayout {
+    /// How many `by` columns the counts are grouped by.
+    pub by: usize,
+    /// Whether arm 1's rows are counted.
+    pub arm: bool,
+}
+
+/// One row of the levels pass: a level of a column, within one combination of the `by` values.
+#[derive(Clone, Debug, PartialEq)]
+pub struct LevelRow {
+    /// The column's index.
+    pub which: usize,
+    /// The level, as text.
+    pub level: String,
+    /// The `by` values, as text.
+    pub by: Vec<String>,
+    /// Rows.
+    pub n: f64,
+    /// Rows in arm 1 (when counted).
+    pub treated: Option<f64>,
+}
 
 impl LevelsLayout {
-    /// `(column index, level as text, rows)`.
-    pub fn level(&self, a: &Aggregates, row: usize) -> Result<(usize, String, f64), ResultError> {
-        let which = a.number(row, "which")? as usize;
-        let level = match a.cell(row, "level")? {
-            Cell::Text(s) => s.clone(),
-            Cell::Number(x) => format!("{x}"),
-            Cell::Null => "NULL".into(),
+    /// Row `row`.
+    pub fn level(&self, a: &Aggregates, row: usize) -> Result<LevelRow, ResultError> {
+        let text = |name: &str| -> Result<String, ResultError> {
+            Ok(match a.cell(row, name)? {
+                Cell::Text(s) => s.clone(),
+                Cell::Number(x) => format!("{x}"),
+                Cell::Null => "NULL".into(),
+            })
         };
-        Ok((which, level, a.number(row, "n")?))
+        Ok(LevelRow {
+            which: a.number(row, "which")? as usize,
+            level: text("level")?,
+            by: (0..self.by)
+                .map(|j| text(&format!("b{j}")))
+                .collect::<Result<_, _>>()?,
+            n: a.number(row, "n")?,
+            treated: if self.arm {
+                Some(a.number_or(row, "n1", 0.0)?)
+            } else {
+                None
+            },
+        })
     }
 }
 

@@ -43,8 +43,9 @@ pub use dialect::{
 pub use error::SqlError;
 pub use filter::FUNCTIONS as FILTER_FUNCTIONS;
 pub use layout::{
-    group_keys, Built, CellsLayout, GramLayout, LevelsLayout, LogisticLayout, LogisticRow,
-    NonFinite, NonFiniteLayout, ProfileColumn, ProfileLayout, ProfiledColumn, ResidualLayout,
+    group_keys, Built, CellsLayout, GramLayout, LevelRow, LevelsLayout, LogisticLayout,
+    LogisticRow, NonFinite, NonFiniteLayout, ProfileColumn, ProfileLayout, ProfiledColumn,
+    ResidualLayout,
 };
 pub use passes::{
     cells, gram, levels, logistic_fits, nonfinite, profile, residuals, schema_probe, Variants,

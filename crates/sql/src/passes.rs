@@ -431,38 +431,79 @@ pub fn residuals(
     })
 }
 
-/// Levels of categorical columns: `which` (the column's index), `level` (as text) and `n`,
-/// ordered; rows with NULL in any of `complete` are excluded so the levels match the rows
-/// every later pass reads.
+/// The levels of categorical `columns` with their row counts, per combination of the `by`
+/// columns (segments), and with the rows of arm 1 of `arm` (a 0/1 treatment) counted too.
+/// Only rows with no NULL in `complete` count. Output: `which` (the column's index), `level`,
+/// `b{j}` (the `by` values, as text), `n`, and `n1` with an arm.
 pub fn levels(
     flavor: &Flavor,
     source: &Source,
     filter: Option<&Expr>,
     columns: &[String],
     complete: &[String],
+    by: &[String],
+    arm: Option<&str>,
 ) -> Result<Built<LevelsLayout>, SqlError> {
     let mut t = PassText::new(flavor);
     let d = flavor.dialect;
+    let text = d.text_type();
     let mut branches = Vec::new();
     for (i, c) in columns.iter().enumerate() {
         let p = t.column(c);
         let w = not_null(&mut t, complete);
+        let mut items = vec![
+            format!("{i} AS which"),
+            format!("CAST({p} AS {text}) AS level"),
+        ];
+        let mut groups = vec![p.clone()];
+        for (j, b) in by.iter().enumerate() {
+            let q = t.column(b);
+            items.push(format!("CAST({q} AS {text}) AS b{j}"));
+            groups.push(q);
+        }
+        items.push("COUNT(*) AS n".into());
+        if let Some(a) = arm {
+            let x = t.float_column(a);
+            items.push(format!("SUM(CASE WHEN {x} = 1 THEN 1 ELSE 0 END) AS n1"));
+        }
         branches.push(format!(
-            "SELECT {i} AS which, CAST({p} AS {text}) AS level, COUNT(*) AS n FROM __src AS src WHERE {w} GROUP BY {p}",
-            text = d.text_type()
+            "SELECT {} FROM __src AS src WHERE {w} GROUP BY {}",
+            items.join(", "),
+            groups.join(", ")
         ));
     }
+    let mut outer = vec!["which".to_string(), "level".to_string()];
+    outer.extend((0..by.len()).map(|j| format!("b{j}")));
+    let order = outer.join(", ");
+    outer.push("n".into());
+    if arm.is_some() {
+        outer.push("n1".into());
+    }
     t.sql = format!(
-        "SELECT which, level, n FROM ({}) AS levels_ ORDER BY which, level",
+        "SELECT {} FROM ({}) AS levels_ ORDER BY {order}",
+        outer.join(", "),
         branches.join(" UNION ALL ")
     );
     Ok(Built {
         pass: Pass {
             name: "levels".into(),
-            purpose: format!("the levels of {} and their row counts", columns.join(", ")),
+            purpose: format!(
+                "the levels of {} and their row counts{}{}",
+                columns.join(", "),
+                if by.is_empty() {
+                    String::new()
+                } else {
+                    format!(" per {}", by.join(" × "))
+                },
+                arm.map(|a| format!(", with the rows where {a} = 1"))
+                    .unwrap_or_default()
+            ),
             query: t.query(source, filter)?,
         },
-        layout: LevelsLayout,
+        layout: LevelsLayout {
+            by: by.len(),
+            arm: arm.is_some(),
+        },
     })
 }
 

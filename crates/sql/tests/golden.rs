@@ -79,7 +79,7 @@ fn passes(f: &Flavor) -> Vec<Pass> {
                     },
                     DesignTerm::Level {
                         column: "zone".into(),
-                        level: "Old Town".into(),
+                        levels: vec!["Old Town".into()],
                         centre: 0.17,
                         scale: 0.375,
                     },
@@ -108,7 +108,7 @@ fn passes(f: &Flavor) -> Vec<Pass> {
                     },
                     DesignTerm::Level {
                         column: "zone".into(),
-                        level: "Old Town".into(),
+                        levels: vec!["Old Town".into()],
                         centre: 0.17,
                         scale: 0.375,
                     },
@@ -140,14 +140,21 @@ fn passes(f: &Flavor) -> Vec<Pass> {
     ]
 }
 
-/// Category levels.
+/// Category levels, per segment, with the treated rows counted.
 fn levels_pass(f: &Flavor) -> Pass {
     levels(
         f,
         &Source::table("customers").unwrap(),
         None,
         &["zone".into(), "mail wave".into()],
-        &["zone".into(), "mail wave".into(), "voucher".into()],
+        &[
+            "zone".into(),
+            "mail wave".into(),
+            "voucher".into(),
+            "tenure_band".into(),
+        ],
+        &["tenure_band".into()],
+        Some("voucher"),
     )
     .unwrap()
     .pass
