@@ -26,10 +26,12 @@
 //!
 //! Usage: `upshot-bench [--rows 1000000,10000000] [--p 8,32] [--segments off,on]
 //! [--methods stratify,regress,...] [--python PY] [--repeat N] [--data DIR] [--out DIR]
-//! [--agree TOL]`. For trying other formulations of a pass by hand, `upshot-bench --measure
+//! [--agree TOL]`; `upshot-bench --diagrams` times `upshot check` on large generated diagrams
+//! (`diagrams.rs`) instead. For trying other formulations of a pass by hand, `upshot-bench --measure
 //! sql:FILE --db DB --methods regress` times the query in FILE three times on DB.
 
 mod data;
+mod diagrams;
 mod memfit;
 mod scan;
 mod work;
@@ -83,6 +85,10 @@ struct Args {
     /// relative amount (the smoke run in scripts/test uses 1e-6).
     #[arg(long)]
     agree: Option<f64>,
+    /// Time the identification report (`upshot check`) on large generated diagrams instead,
+    /// against the 2 s target for 1,000 variables; exit 1 when a target is missed.
+    #[arg(long)]
+    diagrams: bool,
     /// Internal: measure one approach in this process and print JSON.
     #[arg(long, hide = true)]
     measure: Option<String>,
@@ -117,6 +123,14 @@ fn main() {
             Err(e) => fail(format!("{approach} {}: {e}", w.label())),
         }
         return;
+    }
+    if args.diagrams {
+        let dir = args.out.join("diagrams");
+        match diagrams::run(&dir, args.repeat.max(3)) {
+            Ok(true) => return,
+            Ok(false) => std::process::exit(1),
+            Err(e) => fail(e),
+        }
     }
     run(&args);
 }

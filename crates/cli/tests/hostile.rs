@@ -7,7 +7,8 @@
 //! A case: `name`, `args` (with `{db}`, `{dir}`, `{sample}` replaced), `code`, `says`, optional
 //! `files` (written into `{dir}` first), `writes` (a successful `--into`), `prints` (a fragment
 //! of standard output, for cases that succeed). Cases whose name
-//! starts with `output full` run with standard output on `/dev/full`.
+//! starts with `output full` run with standard output on `/dev/full`. `UPSHOT_HOSTILE_BIN`
+//! names another `upshot` binary to run the catalogue against.
 
 use serde_json::Value;
 use std::path::{Path, PathBuf};
@@ -78,6 +79,11 @@ fn every_hostile_case_gets_its_answer_and_changes_nothing() {
     let text = std::fs::read_to_string(repo().join("tests/hostile/cases.json")).unwrap();
     let cases: Vec<Value> = serde_json::from_str(&text).unwrap();
     assert!(cases.len() >= 150, "{} cases", cases.len());
+    // UPSHOT_HOSTILE_BIN runs the catalogue against another build (to count an older
+    // version's verdicts); by default, this build's binary.
+    let binary = std::env::var_os("UPSHOT_HOSTILE_BIN")
+        .map(PathBuf::from)
+        .unwrap_or_else(|| PathBuf::from(env!("CARGO_BIN_EXE_upshot")));
     let mut before = fingerprint(&db);
     let mut failures = Vec::new();
     for c in &cases {
@@ -98,7 +104,7 @@ fn every_hostile_case_gets_its_answer_and_changes_nothing() {
             .iter()
             .map(|a| fill(a.as_str().unwrap()))
             .collect();
-        let mut cmd = Command::new(env!("CARGO_BIN_EXE_upshot"));
+        let mut cmd = Command::new(&binary);
         cmd.args(&args).current_dir(&dir).stdin(Stdio::null());
         if name.starts_with("output full") {
             cmd.stdout(

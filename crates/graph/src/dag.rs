@@ -375,8 +375,9 @@ impl Dag {
     /// The moral graph of the subgraph induced by `keep`: parents of a common child married,
     /// directions dropped. Returned as sorted adjacency lists (nodes outside `keep` isolated).
     pub fn moral_graph(&self, keep: &NodeSet) -> Vec<Vec<usize>> {
-        let n = self.len();
-        let mut adj = vec![NodeSet::new(n); n];
+        // Lists, not one bit set per vertex: that took n² bits per call, and the implied
+        // independences of a 30,000-variable diagram build thousands of moral graphs.
+        let mut adj = vec![Vec::new(); self.len()];
         for v in keep.iter() {
             let ps: Vec<usize> = self.parents[v]
                 .iter()
@@ -384,15 +385,19 @@ impl Dag {
                 .filter(|p| keep.contains(*p))
                 .collect();
             for (i, &p) in ps.iter().enumerate() {
-                adj[p].insert(v);
-                adj[v].insert(p);
+                adj[p].push(v);
+                adj[v].push(p);
                 for &q in &ps[i + 1..] {
-                    adj[p].insert(q);
-                    adj[q].insert(p);
+                    adj[p].push(q);
+                    adj[q].push(p);
                 }
             }
         }
-        adj.into_iter().map(|s| s.to_vec()).collect()
+        for a in &mut adj {
+            a.sort_unstable();
+            a.dedup();
+        }
+        adj
     }
 }
 

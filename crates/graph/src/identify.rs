@@ -236,7 +236,7 @@ pub fn minimal_adjustment_sets(
 ) -> (Vec<NodeSet>, bool) {
     let (adj, allowed) = adjustment_separator_problem(d, x, y, allowed);
     let (mut sets, complete) = minimal_separators(&adj, x, y, &allowed, limit);
-    sets.sort_by_cached_key(|s| (s.len(), d.sorted_names(s)));
+    sets.sort_by_cached_key(d.set_order());
     (sets, complete)
 }
 
@@ -447,6 +447,7 @@ pub fn find_instruments(d: &Diagram, x: &NodeSet, y: &NodeSet) -> Vec<(usize, No
     // Candidate sets left to test in the whole search: a bound on the time a diagram of
     // thousands of variables takes; diagrams a person draws never reach it.
     let checks = std::cell::Cell::new(INSTRUMENT_SEARCH_CHECKS);
+    let order = d.set_order();
     for z in obs.difference(&dex).difference(y).iter() {
         if checks.get() == 0 {
             break;
@@ -473,13 +474,17 @@ pub fn find_instruments(d: &Diagram, x: &NodeSet, y: &NodeSet) -> Vec<(usize, No
             .difference(y);
         let an = ux.ancestors(&zs.union(y));
         let adj = ux.moral_graph(&an);
-        let (mut seps, _) = minimal_separators(&adj, &zs, y, &allowed.intersection(&an), 256);
+        // Every separator listed counts against the search's budget too: on a dense diagram
+        // listing them costs more than testing them.
+        let limit = checks.get().min(256);
+        let (mut seps, _) = minimal_separators(&adj, &zs, y, &allowed.intersection(&an), limit);
+        checks.set(checks.get() - seps.len());
         if seps.is_empty() {
             // No allowed set separates z from y (the part of a separator inside An(z, y) would
             // itself be one), so exclusion fails for every conditioning set.
             continue;
         }
-        seps.sort_by_cached_key(|s| (s.len(), d.sorted_names(s)));
+        seps.sort_by_cached_key(&order);
         let mut hit = seps.iter().find(|w| ok(w)).cloned();
         if hit.is_none() {
             let mut grown: Vec<NodeSet> = Vec::new();
@@ -490,7 +495,9 @@ pub fn find_instruments(d: &Diagram, x: &NodeSet, y: &NodeSet) -> Vec<(usize, No
                     grown.push(w);
                 }
             }
-            grown.sort_by_cached_key(|s| (s.len(), d.sorted_names(s)));
+            grown.sort_by_cached_key(&order);
+            // The same set grows from several separators; test it once.
+            grown.dedup();
             hit = grown.into_iter().take(INSTRUMENT_BUDGET).find(|w| ok(w));
         }
         if hit.is_none() {

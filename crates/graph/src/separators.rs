@@ -15,22 +15,38 @@ use crate::set::NodeSet;
 /// Closes `region` under neighbours that are not allowed in a separator. Returns false if it
 /// reaches a vertex of `target` (then no separator exists).
 fn close(adj: &[Vec<usize>], region: &mut NodeSet, target: &NodeSet, allowed: &NodeSet) -> bool {
-    let mut stack = region.to_vec();
+    let start = region.to_vec();
+    close_from(adj, region, start, target, allowed).is_some()
+}
+
+/// [`close`] for a region that was closed before the vertices of `fresh` joined it: only their
+/// neighbourhoods need a look. Returns the vertices that joined (`fresh` and those absorbed),
+/// or `None` when a vertex of `target` was reached.
+fn close_from(
+    adj: &[Vec<usize>],
+    region: &mut NodeSet,
+    fresh: Vec<usize>,
+    target: &NodeSet,
+    allowed: &NodeSet,
+) -> Option<Vec<usize>> {
+    let mut joined = fresh.clone();
+    let mut stack = fresh;
     while let Some(v) = stack.pop() {
         for &w in &adj[v] {
             if region.contains(w) {
                 continue;
             }
             if target.contains(w) {
-                return false;
+                return None;
             }
             if !allowed.contains(w) {
                 region.insert(w);
                 stack.push(w);
+                joined.push(w);
             }
         }
     }
-    true
+    Some(joined)
 }
 
 fn border(adj: &[Vec<usize>], region: &NodeSet) -> NodeSet {
@@ -90,16 +106,35 @@ pub fn minimal_separators(
     // Depth-first over (region, forced) pairs with an explicit stack: a recursion here went as
     // deep as the diagram is large and overflowed the stack on 30,000 nodes. The `grown` branch
     // is explored before the `forced` one, as the recursion did, so the order is unchanged.
-    let mut stack = vec![(source.clone(), NodeSet::new(source.capacity()))];
-    while let Some((mut region, forced)) = stack.pop() {
+    // Each entry carries the vertices that joined its region since the region was last closed
+    // (all of it at the start) and the border it had then, so closing and the new border look
+    // only at the newcomers' neighbourhoods.
+    let cap = source.capacity();
+    let mut stack = vec![(
+        source.clone(),
+        NodeSet::new(cap),
+        source.to_vec(),
+        NodeSet::new(cap),
+    )];
+    while let Some((mut region, forced, fresh, mut n)) = stack.pop() {
         if out.len() >= limit {
             complete = false;
             break;
         }
-        if !close(adj, &mut region, target, allowed) {
+        let Some(joined) = close_from(adj, &mut region, fresh, target, allowed) else {
             continue;
+        };
+        for &v in &joined {
+            n.remove(v);
         }
-        let n = border(adj, &region);
+        for &v in &joined {
+            for &w in &adj[v] {
+                if !region.contains(w) {
+                    n.insert(w);
+                }
+            }
+        }
+        debug_assert_eq!(n, border(adj, &region));
         let d = component(adj, target, &region.union(&n));
         if !forced.is_subset(&border(adj, &d)) {
             continue;
@@ -111,8 +146,8 @@ pub fn minimal_separators(
                 grown.insert(v);
                 let mut more = forced.clone();
                 more.insert(v);
-                stack.push((region, more));
-                stack.push((grown, forced));
+                stack.push((region, more, Vec::new(), n.clone()));
+                stack.push((grown, forced, vec![v], n));
             }
         }
     }
