@@ -5,7 +5,7 @@ use crate::ENGINES;
 use std::io::Read;
 use std::path::{Path, PathBuf};
 use upshot_core::identify::{self, route_word, set, CheckReport};
-use upshot_core::{Access, Study};
+use upshot_core::{Access, DiagramInput, Request};
 use upshot_graph::Role;
 use upshot_study::QuestionInput;
 
@@ -55,65 +55,43 @@ pub struct Args {
     offline: bool,
 }
 
-pub(crate) fn clean(v: Vec<String>) -> Vec<String> {
-    v.into_iter()
-        .map(|s| s.trim().to_string())
-        .filter(|s| !s.is_empty())
-        .collect()
-}
+pub(crate) use upshot_core::request::names as clean;
 
-pub(crate) fn read_graph(value: &str) -> Result<(String, String), Failure> {
+/// The diagram of `--graph`: standard input for `-`, else a file path or diagram text.
+pub(crate) fn read_graph(value: &str) -> Result<DiagramInput, Failure> {
     if value == "-" {
         let mut s = String::new();
         std::io::stdin()
             .read_to_string(&mut s)
             .map_err(|e| Failure::input(format!("--graph -: cannot read standard input: {e}")))?;
-        return Ok((s, "--graph (standard input)".into()));
+        return Ok(DiagramInput::Text {
+            text: s,
+            label: "--graph (standard input)".into(),
+        });
     }
-    let p = Path::new(value);
-    if p.is_file() {
-        let s = std::fs::read_to_string(p)
-            .map_err(|e| Failure::input(format!("--graph: cannot read {value}: {e}")))?;
-        if !upshot_study::looks_like_diagram(&s) {
-            return Err(Failure::input(format!(
-                "--graph: {value} holds no diagram (no edge such as `a -> b` in it); check the path"
-            )));
-        }
-        return Ok((s, value.to_string()));
-    }
-    if value.contains("->")
-        || value.contains("<-")
-        || value.trim_start().starts_with("digraph")
-        || value.contains(';')
-    {
-        return Ok((value.to_string(), "--graph".into()));
-    }
-    Err(Failure::input(format!(
-        "--graph: no file `{value}`; give a path to a diagram file, `-` for standard input, or edges such as \"t -> y\""
-    )))
+    Ok(upshot_core::diagram_argument(value, "--graph")?)
 }
 
-/// Loads a study file, or builds one from --graph and the question flags; flags override.
-pub(crate) fn load_study(
+/// The request of a study file or `--graph` and the question flags (flags override).
+pub(crate) fn request(
     study: Option<&Path>,
     graph: Option<&str>,
-    overrides: QuestionInput,
-    verb: &str,
-) -> Result<Study, Failure> {
-    Ok(match (study, graph) {
+    question: QuestionInput,
+) -> Result<Request, Failure> {
+    let diagram = match (study, graph) {
         (Some(_), Some(_)) => {
-            return Err(Failure::input("give either a study file or --graph, not both"));
+            return Err(Failure::input(
+                "give either a study file or --graph, not both",
+            ));
         }
-        (Some(path), None) => Study::load(path)?.with_overrides(&overrides)?,
-        (None, Some(g)) => {
-            let (text, label) = read_graph(g)?;
-            Study::from_parts(&text, &label, overrides)?
-        }
-        (None, None) => {
-            return Err(Failure::input(format!(
-                "nothing to {verb}: give a study file (upshot {verb} demo-data/voucher-backdoor.toml) or --graph with --treatment and --outcome"
-            )))
-        }
+        (Some(path), None) => Some(DiagramInput::Study(path.to_path_buf())),
+        (None, Some(g)) => Some(read_graph(g)?),
+        (None, None) => None,
+    };
+    Ok(Request {
+        diagram,
+        question,
+        ..Request::default()
     })
 }
 
@@ -139,7 +117,7 @@ pub fn run(a: Args) -> Result<i32, Failure> {
         instruments: a.instruments.map(clean),
         instrument_given: clean(a.instrument_given),
     };
-    let study = load_study(a.study.as_deref(), a.graph.as_deref(), overrides, "check")?;
+    let study = request(a.study.as_deref(), a.graph.as_deref(), overrides)?.study("check")?;
     if !a.offline && upshot_core::has_columns_to_check(&study) {
         let engine = upshot_core::connect(
             ENGINES,

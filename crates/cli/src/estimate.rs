@@ -1,15 +1,15 @@
 //! `upshot plan` and `upshot run`: flags turned into a study and settings, then the core
 //! library's resolve, plan and run; rendering and exit codes here.
 
-use crate::check::{clean, load_study};
+use crate::check::{clean, request};
 use crate::exit::{emit, Failure, OK};
 use crate::render;
 use crate::ENGINES;
 use std::io::{IsTerminal, Write as _};
 use std::path::PathBuf;
-use upshot_core::{Access, Basis, Flavor, NullPolicy, Settings, Study};
+use upshot_core::{Access, Flavor, Request};
 use upshot_sql::{dialect_by_name, Dialect, DIALECTS};
-use upshot_study::{QuestionInput, Rows};
+use upshot_study::QuestionInput;
 
 /// Flags of `upshot plan` and `upshot run`.
 #[derive(clap::Args)]
@@ -99,64 +99,20 @@ fn overrides(a: &Args) -> QuestionInput {
     }
 }
 
-/// The study the flags describe: a study file or `--graph` with question flags, and the
-/// source flags in place of the study's (`--db` and `--source` paths as given, relative to
-/// the current folder; `--unit` replaces every question's).
-fn study_of(a: &Args, verb: &str) -> Result<Study, Failure> {
-    let mut study = load_study(a.study.as_deref(), a.graph.as_deref(), overrides(a), verb)?;
-    if let Some(db) = &a.db {
-        study.source.database = Some(db.clone());
-    }
-    if let Some(s) = &a.source {
-        study.source.rows = Some(upshot_core::classify_source(s));
-    }
-    if let Some(f) = &a.filter {
-        study.source.filter = Some(f.clone());
-    }
-    if let Some(u) = &a.unit {
-        if study.diagram.index_of(u).is_some() {
-            return Err(Failure::input(format!(
-                "--unit: `{u}` is a variable of the diagram; the unit key must identify rows (for example customer_id)"
-            )));
-        }
-        study.source.unit = Some(u.clone());
-        for q in &mut study.questions {
-            q.unit = None;
-        }
-    }
-    if let Some(Rows::Table(t)) = &study.source.rows {
-        if t.trim().is_empty() {
-            return Err(Failure::input("--source: empty"));
-        }
-    }
-    Ok(study)
-}
-
-fn settings(a: &Args) -> Result<Settings, Failure> {
-    let on_null = match a.on_null.as_str() {
-        "exclude" => NullPolicy::Exclude,
-        "error" => NullPolicy::Error,
-        other => {
-            return Err(Failure::input(format!(
-                "--on-null: unknown policy `{other}`; expected exclude or error"
-            )))
-        }
-    };
-    let folds = u32::try_from(a.folds).map_err(|_| {
-        Failure::input(format!(
-            "--folds: {} folds; use 1 (no cross-fitting) to {}",
-            a.folds,
-            upshot_core::MAX_FOLDS
-        ))
-    })?;
-    Ok(Settings {
-        folds,
+/// The request the flags describe: a study file or `--graph` with question flags, and the
+/// source and estimation flags in place of the study's.
+fn request_of(a: &Args) -> Result<Request, Failure> {
+    Ok(Request {
+        db: a.db.clone(),
+        source: a.source.clone(),
+        filter: a.filter.clone(),
+        unit: a.unit.clone(),
+        folds: a.folds,
         clip: a.clip,
-        on_null,
-        basis: Basis {
-            squares: a.squares,
-            interactions: a.interactions,
-        },
+        on_null: a.on_null.clone(),
+        squares: a.squares,
+        interactions: a.interactions,
+        ..request(a.study.as_deref(), a.graph.as_deref(), overrides(a))?
     })
 }
 
@@ -200,8 +156,10 @@ pub fn run_plan(a: Args) -> Result<i32, Failure> {
             )))
         }
     };
-    let study = study_of(&a, "plan")?;
-    let resolved = upshot_core::resolve(&study, a.question.as_deref(), &settings(&a)?, flavor)?;
+    let request = request_of(&a)?;
+    let study = request.study("plan")?;
+    let resolved =
+        upshot_core::resolve(&study, a.question.as_deref(), &request.settings()?, flavor)?;
     let plans = resolved
         .iter()
         .map(upshot_core::plan)
@@ -266,8 +224,9 @@ pub fn run_run(a: Args) -> Result<i32, Failure> {
             "--run-key needs --into TABLE (it names a run in the results table)",
         ));
     }
-    let study = study_of(&a, "run")?;
-    let settings = settings(&a)?;
+    let request = request_of(&a)?;
+    let study = request.study("run")?;
+    let settings = request.settings()?;
     // The engine's dialect parses user SQL; nothing is opened before every question resolves.
     let locator = upshot_core::database_of(&study);
     let connector = upshot_core::connector(ENGINES, &locator)

@@ -22,10 +22,12 @@
 #![deny(missing_docs)]
 
 pub mod identify;
+pub mod request;
 mod resolve;
 mod results;
 mod source;
 
+pub use request::{diagram_argument, DiagramInput, Request, Spelling};
 pub use resolve::{plan, resolve, QuestionPlan, Resolved, Settings};
 pub use results::{check_results_table, results_rows, run, write_results, Answer, QuestionSummary};
 pub use source::{

@@ -1,0 +1,221 @@
+//! What a surface was asked, before it becomes a study and settings: the CLI's flags and the
+//! SQL extension's arguments bind into one [`Request`], so both surfaces turn the same input
+//! into the same study, with the same checks and the same messages.
+
+use crate::resolve::Settings;
+use crate::CoreError;
+use std::path::{Path, PathBuf};
+use upshot_methods::{Basis, NullPolicy, MAX_FOLDS};
+use upshot_study::{looks_like_diagram, QuestionInput, Rows, Study};
+
+/// How a surface spells its arguments in messages.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Spelling {
+    /// Command-line flags: `--folds`.
+    Flags,
+    /// Named SQL parameters: `folds :=`.
+    Sql,
+}
+
+impl Spelling {
+    /// The argument `name` (flag spelling, without dashes) as this surface spells it.
+    pub fn arg(self, name: &str) -> String {
+        match self {
+            Spelling::Flags => format!("--{name}"),
+            Spelling::Sql => format!("{} :=", name.replace('-', "_")),
+        }
+    }
+}
+
+/// Where the diagram comes from.
+#[derive(Clone, Debug, PartialEq)]
+pub enum DiagramInput {
+    /// A study file (TOML).
+    Study(PathBuf),
+    /// Diagram text and the label errors show for it (`--graph`, a file path, ...).
+    Text {
+        /// The diagram.
+        text: String,
+        /// Where it came from.
+        label: String,
+    },
+}
+
+/// One request: a study file or a diagram with question arguments, and the source and
+/// estimation settings that override the study's.
+#[derive(Clone, Debug)]
+pub struct Request {
+    /// How messages name the arguments.
+    pub spelling: Spelling,
+    /// The study file or the diagram.
+    pub diagram: Option<DiagramInput>,
+    /// The question arguments (override a study's questions).
+    pub question: QuestionInput,
+    /// The database locator.
+    pub db: Option<String>,
+    /// The rows: a table, a file, or one SELECT.
+    pub source: Option<String>,
+    /// A row filter.
+    pub filter: Option<String>,
+    /// The unit key (replaces every question's).
+    pub unit: Option<String>,
+    /// Cross-fitting folds, as given (checked by [`Request::settings`]).
+    pub folds: i64,
+    /// Propensity clipping.
+    pub clip: f64,
+    /// `exclude` or `error`.
+    pub on_null: String,
+    /// Squares of numeric covariates.
+    pub squares: bool,
+    /// Pairwise interactions.
+    pub interactions: bool,
+}
+
+impl Default for Request {
+    fn default() -> Self {
+        Request {
+            spelling: Spelling::Flags,
+            diagram: None,
+            question: QuestionInput::default(),
+            db: None,
+            source: None,
+            filter: None,
+            unit: None,
+            folds: 5,
+            clip: 0.01,
+            on_null: "exclude".into(),
+            squares: false,
+            interactions: false,
+        }
+    }
+}
+
+/// Trims names and drops empty ones (`"a, b,"` → `a`, `b`).
+pub fn names(v: Vec<String>) -> Vec<String> {
+    v.into_iter()
+        .map(|s| s.trim().to_string())
+        .filter(|s| !s.is_empty())
+        .collect()
+}
+
+/// A diagram argument (`what` names it in messages, e.g. `--graph`): a path to a diagram
+/// file, or diagram text. A file that holds no diagram is refused without quoting it.
+pub fn diagram_argument(value: &str, what: &str) -> Result<DiagramInput, CoreError> {
+    let p = Path::new(value);
+    if p.is_file() {
+        let text = std::fs::read_to_string(p)
+            .map_err(|e| CoreError::Input(format!("{what}: cannot read {value}: {e}")))?;
+        if !looks_like_diagram(&text) {
+            return Err(CoreError::Input(format!(
+                "{what}: {value} holds no diagram (no edge such as `a -> b` in it); check the path"
+            )));
+        }
+        return Ok(DiagramInput::Text {
+            text,
+            label: value.to_string(),
+        });
+    }
+    if value.contains("->")
+        || value.contains("<-")
+        || value.trim_start().starts_with("digraph")
+        || value.contains(';')
+    {
+        return Ok(DiagramInput::Text {
+            text: value.to_string(),
+            label: what.to_string(),
+        });
+    }
+    Err(CoreError::Input(format!(
+        "{what}: no file `{value}`; give a path to a diagram file, or edges such as \"t -> y\""
+    )))
+}
+
+impl Request {
+    /// The study: the study file with the question arguments applied, or one built from the
+    /// diagram and the question arguments; then the source arguments in place of the study's
+    /// (`db` and `source` paths as given; `unit` replaces every question's). `verb` names the
+    /// command in the message for a missing diagram.
+    pub fn study(&self, verb: &str) -> Result<Study, CoreError> {
+        let input = |e: upshot_study::StudyError| CoreError::Input(e.to_string());
+        let mut study = match &self.diagram {
+            Some(DiagramInput::Study(path)) => Study::load(path)
+                .and_then(|s| s.with_overrides(&self.question))
+                .map_err(input)?,
+            Some(DiagramInput::Text { text, label }) => {
+                Study::from_parts(text, label, self.question.clone()).map_err(input)?
+            }
+            None => {
+                return Err(CoreError::Input(format!(
+                    "nothing to {verb}: give a study file (upshot {verb} demo-data/voucher-backdoor.toml) or {} with a treatment and an outcome",
+                    self.spelling.arg("graph")
+                )))
+            }
+        };
+        if let Some(db) = &self.db {
+            study.source.database = Some(db.clone());
+        }
+        if let Some(s) = &self.source {
+            if s.trim().is_empty() {
+                return Err(CoreError::Input(format!(
+                    "{}: empty; name a table, a CSV or Parquet file, or give one SELECT",
+                    self.spelling.arg("source")
+                )));
+            }
+            study.source.rows = Some(crate::classify_source(s));
+        }
+        if let Some(f) = &self.filter {
+            study.source.filter = Some(f.clone());
+        }
+        if let Some(u) = &self.unit {
+            if study.diagram.index_of(u).is_some() {
+                return Err(CoreError::Input(format!(
+                    "{}: `{u}` is a variable of the diagram; the unit key must identify rows (for example customer_id)",
+                    self.spelling.arg("unit")
+                )));
+            }
+            study.source.unit = Some(u.clone());
+            for q in &mut study.questions {
+                q.unit = None;
+            }
+        }
+        if let Some(Rows::Table(t)) = &study.source.rows {
+            if t.trim().is_empty() {
+                return Err(CoreError::Input(format!(
+                    "{}: empty",
+                    self.spelling.arg("source")
+                )));
+            }
+        }
+        Ok(study)
+    }
+
+    /// The estimation settings, checked.
+    pub fn settings(&self) -> Result<Settings, CoreError> {
+        let on_null = match self.on_null.as_str() {
+            "exclude" => NullPolicy::Exclude,
+            "error" => NullPolicy::Error,
+            other => {
+                return Err(CoreError::Input(format!(
+                    "{}: unknown policy `{other}`; expected exclude or error",
+                    self.spelling.arg("on-null")
+                )))
+            }
+        };
+        let folds = u32::try_from(self.folds).map_err(|_| {
+            CoreError::Input(format!(
+                "{}: {} folds; use 1 (no cross-fitting) to {MAX_FOLDS}",
+                self.spelling.arg("folds"),
+                self.folds
+            ))
+        })?;
+        Ok(Settings {
+            folds,
+            clip: self.clip,
+            on_null,
+            basis: Basis {
+                squares: self.squares,
+                interactions: self.interactions,
+            },
+        })
+    }
+}
