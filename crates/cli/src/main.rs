@@ -46,17 +46,7 @@ fn main() {
         Ok(code) => std::process::exit(code),
         Err(f) => {
             use std::io::Write as _;
-            // Control characters from user text (ESC, NUL, ...) are shown escaped, never sent to
-            // the terminal; line breaks and tabs of multi-line messages stay.
-            let shown: String = f
-                .message
-                .chars()
-                .map(|c| match c {
-                    '\n' | '\t' => c.to_string(),
-                    c if c.is_control() => c.escape_unicode().to_string(),
-                    c => c.to_string(),
-                })
-                .collect();
+            let shown = upshot_core::printable(&f.message);
             let _ = writeln!(std::io::stderr(), "upshot: error: {shown}");
             std::process::exit(f.code);
         }

@@ -441,3 +441,144 @@ pub fn check(study: &Study, only: Option<&str>) -> Result<CheckReport, CoreError
 fn is_zero(n: &usize) -> bool {
     *n == 0
 }
+
+/// One route of one question as a row (the SQL surface's `upshot_identify` rows).
+#[derive(Serialize, Clone, Debug, PartialEq)]
+pub struct RouteRow {
+    /// Question name.
+    pub question: String,
+    /// `adjustment (minimal)`, `adjustment (optimal)`, `adjustment (declared)`, `front-door`,
+    /// `front-door (declared)`, `instrument`, `instrument (declared)`, or `not identified`.
+    pub kind: String,
+    /// The adjustment set, mediators or instrument.
+    pub variables: Vec<String>,
+    /// An instrument's conditioning set.
+    pub given: Vec<String>,
+    /// Whether the set works for its route.
+    pub valid: bool,
+    /// Whether upshot would use this route and set.
+    pub chosen: bool,
+    /// Why not (problems, or the open path), when it does not work.
+    pub why_not: Option<String>,
+    /// What an estimate by this route rests on (the chosen row's; empty on the others).
+    pub assumptions: Vec<String>,
+}
+
+/// The routes of every question as rows: each minimal and the optimal adjustment set, each
+/// front-door set, each instrument, each declared set with its verdict, and a
+/// `not identified` row (with the open path) for a question nothing identifies.
+pub fn route_rows(report: &CheckReport) -> Vec<RouteRow> {
+    let mut rows = Vec::new();
+    for q in &report.questions {
+        let id = &q.identification;
+        let chosen = |route: Route, set: &[String]| {
+            q.chosen
+                .as_ref()
+                .is_some_and(|c| c.route == route && c.set == set)
+        };
+        let mut row = |kind: &str,
+                       route: Option<Route>,
+                       set: &[String],
+                       given: &[String],
+                       valid: bool,
+                       why: Option<String>| {
+            let is_chosen = valid && route.is_some_and(|r| chosen(r, set));
+            rows.push(RouteRow {
+                question: q.name.clone(),
+                kind: kind.to_string(),
+                variables: set.to_vec(),
+                given: given.to_vec(),
+                valid,
+                chosen: is_chosen,
+                why_not: why,
+                assumptions: if is_chosen {
+                    q.assumptions.clone()
+                } else {
+                    vec![]
+                },
+            });
+        };
+        for s in &id.adjustment.minimal_sets {
+            row(
+                "adjustment (minimal)",
+                Some(Route::Adjustment),
+                s,
+                &[],
+                true,
+                None,
+            );
+        }
+        if let Some(s) = &id.adjustment.optimal_set {
+            row(
+                "adjustment (optimal)",
+                Some(Route::Adjustment),
+                s,
+                &[],
+                true,
+                None,
+            );
+        }
+        if let Some(d) = &id.adjustment.declared {
+            let why = (!d.valid).then(|| d.problems.join("; "));
+            row(
+                "adjustment (declared)",
+                Some(Route::Adjustment),
+                &d.set,
+                &[],
+                d.valid,
+                why,
+            );
+        }
+        for s in &id.front_door.sets {
+            row("front-door", Some(Route::FrontDoor), s, &[], true, None);
+        }
+        if let Some(d) = &id.front_door.declared {
+            let why = (!d.valid).then(|| d.problems.join("; "));
+            row(
+                "front-door (declared)",
+                Some(Route::FrontDoor),
+                &d.set,
+                &[],
+                d.valid,
+                why,
+            );
+        }
+        for i in &id.instrument.found {
+            let set = [i.instrument.clone()];
+            row(
+                "instrument",
+                Some(Route::Instrument),
+                &set,
+                &i.given,
+                true,
+                None,
+            );
+        }
+        for d in &id.instrument.declared {
+            let why = (!d.valid).then(|| d.problems.join("; "));
+            row(
+                "instrument (declared)",
+                Some(Route::Instrument),
+                &d.set,
+                &[],
+                d.valid,
+                why,
+            );
+        }
+        if !q.identified {
+            let mut why: Vec<String> = q.problems.clone();
+            if let Some(p) = &id.adjustment.open_path {
+                why.push(format!("open path: {p}"));
+            }
+            row(
+                "not identified",
+                None,
+                &[],
+                &[],
+                false,
+                Some(why.join("; ")),
+            );
+        }
+    }
+    rows
+}

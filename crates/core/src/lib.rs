@@ -32,12 +32,25 @@ pub use resolve::{plan, resolve, QuestionPlan, Resolved, Settings};
 pub use results::{check_results_table, results_rows, run, write_results, Answer, QuestionSummary};
 pub use source::{
     check_columns, classify_source, database_of, files_of, has_columns_to_check, source_of,
-    ResolvedRows, DEFAULT_DATABASE,
+    ResolvedRows, CALLER_DATABASE, DEFAULT_DATABASE,
 };
 pub use upshot_engine::{connect, connector, Access, Connector, Engine, EngineError};
 pub use upshot_methods::{Basis, Diagnostics, Estimate, NullPolicy, PlannedPass, Spec, MAX_FOLDS};
 pub use upshot_sql::Flavor;
 pub use upshot_study::{Estimand, Method, Route, Study};
+
+/// A message as a surface shows it: control characters from user text (ESC, NUL, ...) escaped
+/// (`\u{1b}`), never sent to a terminal or a SQL client raw; line breaks and tabs stay.
+pub fn printable(message: &str) -> String {
+    message
+        .chars()
+        .map(|c| match c {
+            '\n' | '\t' => c.to_string(),
+            c if c.is_control() => c.escape_unicode().to_string(),
+            c => c.to_string(),
+        })
+        .collect()
+}
 
 /// Why a step could not be done. Surfaces map the kinds to exit codes (README).
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]

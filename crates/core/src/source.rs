@@ -99,6 +99,10 @@ fn file(p: &Path) -> Result<(Source, String), CoreError> {
     Ok((Source::file(&shown), shown))
 }
 
+/// The database locator a SQL surface gives: the rows are in the database that runs the
+/// query calling upshot (a table or a SELECT there), not in one upshot opens by name.
+pub const CALLER_DATABASE: &str = "(the calling database)";
+
 /// The locator of the database a study's rows are in ([`DEFAULT_DATABASE`] when it names none).
 pub fn database_of(study: &Study) -> String {
     study
