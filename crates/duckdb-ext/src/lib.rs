@@ -49,16 +49,36 @@ pub enum ExtError {
     Connection(#[from] duckdb::Error),
 }
 
-/// A DuckDB database opened by upshot, with upshot's functions registered and one connection.
+/// A DuckDB database opened by upshot (or its host's, see [`Host`]), with upshot's functions
+/// registered and one connection.
 ///
-/// Invariant: the connection is dropped before the database is closed.
+/// Invariant: the connection is dropped before the database is closed; a host's database is
+/// never closed by us.
 pub struct Database {
     conn: Option<duckdb::Connection>,
     raw: ffi::duckdb_database,
+    owned: bool,
 }
 
-// SAFETY: a DuckDB database handle may be used and closed from any thread; the handle is only
-// closed in `Drop`, after the connection on it.
+/// Registers upshot's functions in `raw` through a short-lived connection of its own.
+///
+/// # Safety
+/// `raw` must be an open database.
+unsafe fn register(raw: ffi::duckdb_database) -> Result<(), ExtError> {
+    // SAFETY: per the contract; the connection is closed on every path.
+    unsafe {
+        let mut con: ffi::duckdb_connection = ptr::null_mut();
+        if ffi::duckdb_connect(raw, &mut con) != ffi::DuckDBSuccess {
+            return Err(ExtError::Register(MOMENTS));
+        }
+        let done = moments::register(con).and_then(|()| linear::register(con));
+        ffi::duckdb_disconnect(&mut con);
+        done
+    }
+}
+
+// SAFETY: a DuckDB database handle and a connection may be used (and the handle closed) from
+// any thread, one thread at a time; the handle is only closed in `Drop`, after the connection.
 unsafe impl Send for Database {}
 
 impl Database {
@@ -104,21 +124,28 @@ impl Database {
                 return Err(ExtError::Open(message));
             }
         }
-        let mut db = Database { conn: None, raw };
-        // SAFETY: `raw` is an open database; registration uses its own short-lived connection
-        // (functions go to the database's system catalog, seen by every connection).
-        unsafe {
-            let mut con: ffi::duckdb_connection = ptr::null_mut();
-            if ffi::duckdb_connect(db.raw, &mut con) != ffi::DuckDBSuccess {
-                return Err(ExtError::Register(MOMENTS));
-            }
-            let done = moments::register(con).and_then(|()| linear::register(con));
-            ffi::duckdb_disconnect(&mut con);
-            done?;
-        }
+        let mut db = Database {
+            conn: None,
+            raw,
+            owned: true,
+        };
+        // SAFETY: `raw` is an open database.
+        unsafe { register(db.raw)? };
         // SAFETY: `raw` stays open until `Drop`, which drops this connection first.
         db.conn = Some(unsafe { duckdb::Connection::open_from_raw(db.raw) }?);
         Ok(db)
+    }
+
+    /// A connection to the database of the DuckDB process that loaded upshot as an extension
+    /// (made by [`extension_init`]; upshot's functions are registered there). It is a
+    /// connection of its own: it sees committed tables, not the calling connection's TEMP
+    /// tables or uncommitted rows. The database is the host's and is never closed by us.
+    pub fn attach(conn: duckdb::Connection) -> Database {
+        Database {
+            conn: Some(conn),
+            raw: ptr::null_mut(),
+            owned: false,
+        }
     }
 
     /// The connection.
@@ -127,11 +154,66 @@ impl Database {
     }
 }
 
+/// The body of a loadable extension's entry point (`<name>_init_c_api`): initialises the C
+/// API function table (DuckDB v1.2.0's C API or later), registers upshot's functions in the
+/// host's database, and hands `setup` two connections to it: one to register table functions
+/// on, and one to keep for running passes. The database handle DuckDB passes is valid only
+/// during the load, so every connection upshot needs later is made here. A failure is
+/// reported to DuckDB (the `LOAD` fails with the message) and returns false.
+///
+/// # Safety
+/// `info` and `access` must be what DuckDB passed to the entry point.
+#[cfg(feature = "loadable")]
+pub unsafe fn extension_init(
+    info: ffi::duckdb_extension_info,
+    access: *const ffi::duckdb_extension_access,
+    setup: impl FnOnce(&duckdb::Connection, duckdb::Connection) -> Result<(), String>,
+) -> bool {
+    // SAFETY: per the contract, `access` is DuckDB's access table for this load, and the
+    // database it gives is open for the duration of this call.
+    let result = unsafe {
+        (|| -> Result<bool, String> {
+            if !ffi::duckdb_rs_extension_api_init(info, access, "v1.2.0")
+                .map_err(|e| e.to_string())?
+            {
+                return Ok(false);
+            }
+            let get_database = (*access)
+                .get_database
+                .ok_or("DuckDB gave the extension no database")?;
+            let db = get_database(info);
+            if db.is_null() {
+                return Ok(false);
+            }
+            register(*db).map_err(|e| e.to_string())?;
+            let con = duckdb::Connection::open_from_raw(*db).map_err(|e| e.to_string())?;
+            let kept = duckdb::Connection::open_from_raw(*db).map_err(|e| e.to_string())?;
+            setup(&con, kept)?;
+            Ok(true)
+        })()
+    };
+    match result {
+        Ok(loaded) => loaded,
+        Err(message) => {
+            // SAFETY: as above; the message outlives the call.
+            unsafe {
+                if let Some(set_error) = (*access).set_error {
+                    let c = CString::new(message.replace('\0', " ")).unwrap_or_default();
+                    set_error(info, c.as_ptr());
+                }
+            }
+            false
+        }
+    }
+}
+
 impl Drop for Database {
     fn drop(&mut self) {
         self.conn = None;
-        // SAFETY: the only connection of ours on it is gone; the handle was opened by us.
-        unsafe { ffi::duckdb_close(&mut self.raw) };
+        if self.owned {
+            // SAFETY: the only connection of ours on it is gone; the handle was opened by us.
+            unsafe { ffi::duckdb_close(&mut self.raw) };
+        }
     }
 }
 

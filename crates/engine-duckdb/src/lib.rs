@@ -7,7 +7,8 @@
 //! ([`DuckDbEngine::open_confined`]: no extension auto-install or auto-load, no file but the
 //! study's file sources, no network, configuration locked). [`DuckDbEngine::open`] opens one
 //! unconfined, for tests and the benchmark that set up their own tables. This crate builds no SQL from strings and knows nothing of diagrams
-//! or estimators; it is the one crate that links the bundled DuckDB build.
+//! or estimators. With feature `bundled` (default) DuckDB is compiled in; with `loadable` it runs
+//! inside a DuckDB that loaded upshot's extension ([`DuckDbEngine::attach`]).
 #![deny(missing_docs)]
 
 use duckdb::arrow::array::{Array, AsArray};
@@ -112,6 +113,17 @@ impl DuckDbEngine {
                 message: format!("cannot confine the database: {err}"),
             })?;
         Ok(e)
+    }
+
+    /// The engine over a connection to the database of the DuckDB process that loaded upshot
+    /// as an extension (the SQL surface; see `upshot_duckdb_ext::extension_init`). It sees
+    /// committed tables, not the calling connection's TEMP tables or uncommitted rows; it is
+    /// not confined (the caller's own settings apply).
+    pub fn attach(conn: Connection) -> Self {
+        DuckDbEngine {
+            db: Database::attach(conn),
+            memory: false,
+        }
     }
 
     fn conn(&self) -> &Connection {

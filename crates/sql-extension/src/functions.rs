@@ -3,14 +3,23 @@
 
 use crate::rows::{Args, Function, Rows, Type, Value};
 use duckdb::Connection;
+use std::sync::{Mutex, OnceLock};
 use upshot_core::identify::{self, route_rows};
-use upshot_core::{diagram_argument, Flavor, Request, Spelling};
+use upshot_core::{diagram_argument, Engine, Flavor, Request, Spelling};
+use upshot_engine_duckdb::DuckDbEngine;
 use upshot_study::QuestionInput;
 
-/// Registers every function.
-pub fn register(con: &Connection) -> duckdb::Result<()> {
+/// The engine over upshot's own connection to the database that loaded the extension (made
+/// at load; estimates take turns on it).
+static ENGINE: OnceLock<Mutex<DuckDbEngine>> = OnceLock::new();
+
+/// Registers every function; `kept` becomes the engine's connection.
+pub fn register(con: &Connection, kept: Connection) -> duckdb::Result<()> {
+    let _ = ENGINE.set(Mutex::new(DuckDbEngine::attach(kept)));
     con.register_table_function::<Function<Identify>>("upshot_identify")?;
     con.register_table_function::<Function<Plan>>("upshot_plan")?;
+    con.register_table_function::<Function<EstimateRows>>("upshot_estimate")?;
+    con.register_table_function::<Function<StudyRows>>("upshot_study")?;
     Ok(())
 }
 
@@ -208,5 +217,130 @@ impl Rows for Plan {
             }
         }
         Ok(rows)
+    }
+}
+
+/// The columns of an estimate row (the CLI's JSON estimate rows, docs/run-output.md).
+fn estimate_columns() -> Vec<(&'static str, Type)> {
+    vec![
+        ("question", Type::Text),
+        ("segment", Type::Text),
+        ("estimand", Type::Text),
+        ("method", Type::Text),
+        ("estimate", Type::Double),
+        ("std_error", Type::Double),
+        ("ci_low", Type::Double),
+        ("ci_high", Type::Double),
+        ("n_treated", Type::Double),
+        ("n_control", Type::Double),
+        ("n_used", Type::Double),
+        ("adjustment_set", Type::TextList),
+        ("warnings", Type::TextList),
+    ]
+}
+
+/// Runs the request's questions (all, or `only`) on a second connection to the calling
+/// database and returns the estimate rows.
+fn estimate(r: &Request, only: Option<&str>, verb: &str) -> Result<Vec<Vec<Value>>, String> {
+    let study = r.study(verb).map_err(|e| e.to_string())?;
+    let settings = r.settings().map_err(|e| e.to_string())?;
+    let engine = ENGINE
+        .get()
+        .ok_or("upshot is not loaded")?
+        .lock()
+        .map_err(|_| "an earlier upshot call failed inside DuckDB; reload the extension")?;
+    let engine = &*engine;
+    let resolved = upshot_core::resolve(&study, only, &settings, Flavor::plain(engine.dialect()))
+        .map_err(|e| e.to_string())?;
+    let answers = upshot_core::run(engine, resolved, &mut |_, _| {}).map_err(|e| {
+        let m = e.to_string();
+        if m.contains("does not exist") {
+            format!("{m} (upshot reads through its own connection to this database: it sees committed tables, not TEMP tables or rows of an open transaction; commit first, or use a regular table)")
+        } else {
+            m
+        }
+    })?;
+    let number = |x: f64| {
+        if x.is_finite() {
+            Value::Double(x)
+        } else {
+            Value::Null
+        }
+    };
+    let mut rows = Vec::new();
+    for a in &answers {
+        for e in &a.estimates {
+            rows.push(vec![
+                Value::Text(e.question.clone()),
+                Value::Text(e.segment.clone()),
+                Value::Text(e.estimand.as_str().to_string()),
+                Value::Text(e.method.as_str().to_string()),
+                number(e.estimate),
+                number(e.std_error),
+                number(e.ci_low),
+                number(e.ci_high),
+                e.n_treated.map_or(Value::Null, number),
+                e.n_control.map_or(Value::Null, number),
+                number(e.n_used),
+                texts(&e.adjustment_set),
+                texts(&a.summary.diagnostics.warnings),
+            ]);
+        }
+    }
+    Ok(rows)
+}
+
+/// `upshot_estimate(source, diagram, treatment, outcome)`: one row per segment.
+pub struct EstimateRows;
+
+impl Rows for EstimateRows {
+    fn columns() -> Vec<(&'static str, Type)> {
+        estimate_columns()
+    }
+    fn positional() -> Vec<Type> {
+        vec![Type::Text; 4]
+    }
+    fn named() -> Vec<(&'static str, Type)> {
+        let mut v = QUESTION.to_vec();
+        v.extend(ESTIMATION);
+        v
+    }
+    fn table(args: &Args) -> Result<Vec<Vec<Value>>, String> {
+        let mut r = estimation(request(args, 1)?, args)?;
+        r.source = Some(required(args, 0, "source")?.to_string());
+        r.db = Some(upshot_core::CALLER_DATABASE.to_string());
+        estimate(&r, None, "run")
+    }
+}
+
+/// `upshot_study(path)`: every question of a study file (or `question :=` one), run on the
+/// calling database.
+pub struct StudyRows;
+
+impl Rows for StudyRows {
+    fn columns() -> Vec<(&'static str, Type)> {
+        estimate_columns()
+    }
+    fn positional() -> Vec<Type> {
+        vec![Type::Text]
+    }
+    fn named() -> Vec<(&'static str, Type)> {
+        let mut v = vec![("question", Type::Text)];
+        v.extend(ESTIMATION);
+        v
+    }
+    fn table(args: &Args) -> Result<Vec<Vec<Value>>, String> {
+        let path = required(args, 0, "path")?;
+        let mut r = estimation(
+            Request {
+                spelling: Spelling::Sql,
+                diagram: Some(upshot_core::DiagramInput::Study(path.into())),
+                ..Request::default()
+            },
+            args,
+        )?;
+        // The study's questions run on the calling database, whatever database it names.
+        r.db = Some(upshot_core::CALLER_DATABASE.to_string());
+        estimate(&r, args.named("question"), "run")
     }
 }
