@@ -1,25 +1,28 @@
 //! The table functions: SQL arguments bound into a [`Request`], the core's typed results
 //! turned into rows.
 
-use crate::rows::{Args, Function, Rows, Type, Value};
+use crate::rows::{Args, Engine, Function, Rows, Type, Value};
 use duckdb::Connection;
-use std::sync::{Mutex, OnceLock};
+use std::sync::{Arc, Mutex};
 use upshot_core::identify::{self, route_rows};
-use upshot_core::{diagram_argument, Engine, Flavor, Request, Spelling};
+use upshot_core::{diagram_argument, Engine as _, Flavor, Request, Spelling};
 use upshot_engine_duckdb::DuckDbEngine;
 use upshot_study::QuestionInput;
 
-/// The engine over upshot's own connection to the database that loaded the extension (made
-/// at load; estimates take turns on it).
-static ENGINE: OnceLock<Mutex<DuckDbEngine>> = OnceLock::new();
-
-/// Registers every function; `kept` becomes the engine's connection.
+/// Registers every function in the database that loads the extension; `kept` becomes the
+/// engine of that database's calls.
 pub fn register(con: &Connection, kept: Connection) -> duckdb::Result<()> {
-    let _ = ENGINE.set(Mutex::new(DuckDbEngine::attach(kept)));
-    con.register_table_function::<Function<Identify>>("upshot_identify")?;
-    con.register_table_function::<Function<Plan>>("upshot_plan")?;
-    con.register_table_function::<Function<EstimateRows>>("upshot_estimate")?;
-    con.register_table_function::<Function<StudyRows>>("upshot_study")?;
+    let engine: Engine = Arc::new(Mutex::new(DuckDbEngine::attach(kept)));
+    con.register_table_function_with_extra_info::<Function<Identify>, _>(
+        "upshot_identify",
+        &engine,
+    )?;
+    con.register_table_function_with_extra_info::<Function<Plan>, _>("upshot_plan", &engine)?;
+    con.register_table_function_with_extra_info::<Function<EstimateRows>, _>(
+        "upshot_estimate",
+        &engine,
+    )?;
+    con.register_table_function_with_extra_info::<Function<StudyRows>, _>("upshot_study", &engine)?;
     Ok(())
 }
 
@@ -105,7 +108,7 @@ impl Rows for Identify {
         ]);
         v
     }
-    fn table(args: &Args) -> Result<Vec<Vec<Value>>, String> {
+    fn table(args: &Args, _: &Engine) -> Result<Vec<Vec<Value>>, String> {
         let study = request(args, 0)?
             .study("check")
             .map_err(|e| e.to_string())?;
@@ -188,7 +191,7 @@ impl Rows for Plan {
         v.push(("portable", Type::Bool));
         v
     }
-    fn table(args: &Args) -> Result<Vec<Vec<Value>>, String> {
+    fn table(args: &Args, _: &Engine) -> Result<Vec<Vec<Value>>, String> {
         let mut r = estimation(request(args, 1)?, args)?;
         r.source = Some(required(args, 0, "source")?.to_string());
         r.db = Some(upshot_core::CALLER_DATABASE.to_string());
@@ -241,12 +244,15 @@ fn estimate_columns() -> Vec<(&'static str, Type)> {
 
 /// Runs the request's questions (all, or `only`) on a second connection to the calling
 /// database and returns the estimate rows.
-fn estimate(r: &Request, only: Option<&str>, verb: &str) -> Result<Vec<Vec<Value>>, String> {
+fn estimate(
+    r: &Request,
+    only: Option<&str>,
+    verb: &str,
+    engine: &Engine,
+) -> Result<Vec<Vec<Value>>, String> {
     let study = r.study(verb).map_err(|e| e.to_string())?;
     let settings = r.settings().map_err(|e| e.to_string())?;
-    let engine = ENGINE
-        .get()
-        .ok_or("upshot is not loaded")?
+    let engine = engine
         .lock()
         .map_err(|_| "an earlier upshot call failed inside DuckDB; reload the extension")?;
     let engine = &*engine;
@@ -305,11 +311,11 @@ impl Rows for EstimateRows {
         v.extend(ESTIMATION);
         v
     }
-    fn table(args: &Args) -> Result<Vec<Vec<Value>>, String> {
+    fn table(args: &Args, engine: &Engine) -> Result<Vec<Vec<Value>>, String> {
         let mut r = estimation(request(args, 1)?, args)?;
         r.source = Some(required(args, 0, "source")?.to_string());
         r.db = Some(upshot_core::CALLER_DATABASE.to_string());
-        estimate(&r, None, "run")
+        estimate(&r, None, "run", engine)
     }
 }
 
@@ -329,7 +335,7 @@ impl Rows for StudyRows {
         v.extend(ESTIMATION);
         v
     }
-    fn table(args: &Args) -> Result<Vec<Vec<Value>>, String> {
+    fn table(args: &Args, engine: &Engine) -> Result<Vec<Vec<Value>>, String> {
         let path = required(args, 0, "path")?;
         let mut r = estimation(
             Request {
@@ -341,6 +347,6 @@ impl Rows for StudyRows {
         )?;
         // The study's questions run on the calling database, whatever database it names.
         r.db = Some(upshot_core::CALLER_DATABASE.to_string());
-        estimate(&r, args.named("question"), "run")
+        estimate(&r, args.named("question"), "run", engine)
     }
 }

@@ -55,9 +55,15 @@ pub trait Rows {
     fn positional() -> Vec<Type>;
     /// Named parameters.
     fn named() -> Vec<(&'static str, Type)>;
-    /// The rows for the arguments `args`.
-    fn table(args: &Args) -> Result<Vec<Vec<Value>>, String>;
+    /// The rows for the arguments `args`; `engine` is upshot's connection to the calling
+    /// database.
+    fn table(args: &Args, engine: &Engine) -> Result<Vec<Vec<Value>>, String>;
 }
+
+/// upshot's engine over its own connection to one database that loaded the extension (made
+/// at load; calls take turns on it). Registered as every function's extra info, so a process
+/// with several databases runs each call on the caller's.
+pub type Engine = std::sync::Arc<std::sync::Mutex<upshot_engine_duckdb::DuckDbEngine>>;
 
 /// The arguments of one call, as text (lists joined by commas), by position and by name.
 pub struct Args {
@@ -108,7 +114,11 @@ impl<R: Rows> VTab for Function<R> {
             .into_iter()
             .map(|(n, _)| (n, bind.get_named_parameter(n).and_then(text_of)))
             .collect();
-        let rows = R::table(&Args { positional, named }).map_err(|e| upshot_core::printable(&e))?;
+        // SAFETY: every function is registered with an `Engine` as its extra info
+        // (`functions::register`), which DuckDB keeps for the function's life.
+        let engine: &Engine = unsafe { &*bind.get_extra_info::<Engine>() };
+        let rows = R::table(&Args { positional, named }, engine)
+            .map_err(|e| upshot_core::printable(&e))?;
         Ok(Bound {
             table: Table { columns, rows },
         })
