@@ -103,6 +103,11 @@ for study in sorted(f for f in os.listdir("demo-data") if f.endswith(".toml")):
 
 # Flag combinations through upshot_estimate.
 COMBOS = [
+    # The demo study's questions (demo-data/voucher-backdoor.toml), asked through the arguments.
+    ("voucher", "spend_30d", {"estimand": "ATE", "segments": "tenure_band", "unit": "customer_id"}),
+    ("voucher", "spend_30d", {"estimand": "ATT", "unit": "customer_id"}),
+    ("voucher", "reordered_30d", {"estimand": "ATE", "method": "doubly-robust", "unit": "customer_id"}),
+    # Every method, estimand and option.
     ("voucher", "spend_30d", {"method": "regress"}),
     ("voucher", "spend_30d", {"method": "stratify", "adjust": "prior_orders, zone"}),
     ("voucher", "spend_30d", {"method": "weight", "estimand": "ATT"}),
