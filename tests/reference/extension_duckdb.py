@@ -17,8 +17,8 @@ Usage: extension_duckdb.py PATH/TO/upshot.duckdb_extension PATH/TO/upshot REPO_R
 """
 
 import json
-import math
 import os
+import re
 import subprocess
 import sys
 import tempfile
@@ -29,6 +29,7 @@ EXT, UPSHOT, ROOT = sys.argv[1:4]
 os.chdir(ROOT)
 CSV = "demo-data/sample/customers.csv"
 GRAPH = "demo-data/voucher.graph"
+SQL_NAME = {"graph": "diagram", "segment-by": "segments"}
 failures = []
 checks = 0
 
@@ -227,7 +228,8 @@ for what, (src, graph, t, y), extra, flags in BAD:
         code, out, err = cli(["run", "--db", ref, "--source", src, "--graph", graph, "--treatment", t,
                               "--outcome", y] + (flags or []))
         # The SQL surface names its arguments as SQL does (`diagram`, not `--graph`).
-        expected = err.split("\n")[0].replace("--graph", "diagram")
+        expected = re.sub(r"--([a-z-]+)", lambda m: SQL_NAME.get(m.group(1), m.group(1).replace("-", "_")),
+                          err.split("\n")[0])
         if code != 2:
             fail(f"{what}: the CLI gave exit {code}")
     if expected not in message:

@@ -116,6 +116,7 @@ pub fn run(a: Args) -> Result<i32, Failure> {
         mediators: a.mediators.map(clean),
         instruments: a.instruments.map(clean),
         instrument_given: clean(a.instrument_given),
+        spelling: Default::default(),
     };
     let study = request(a.study.as_deref(), a.graph.as_deref(), overrides)?.study("check")?;
     if !a.offline && upshot_core::has_columns_to_check(&study) {

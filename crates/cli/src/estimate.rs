@@ -96,6 +96,7 @@ fn overrides(a: &Args) -> QuestionInput {
         mediators: None,
         instruments: None,
         instrument_given: vec![],
+        spelling: Default::default(),
     }
 }
 

@@ -6,26 +6,8 @@ use crate::resolve::Settings;
 use crate::CoreError;
 use std::path::{Path, PathBuf};
 use upshot_methods::{Basis, NullPolicy, MAX_FOLDS};
+pub use upshot_study::Spelling;
 use upshot_study::{looks_like_diagram, QuestionInput, Rows, Study};
-
-/// How a surface spells its arguments in messages.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub enum Spelling {
-    /// Command-line flags: `--folds`.
-    Flags,
-    /// Named SQL parameters: `folds :=`.
-    Sql,
-}
-
-impl Spelling {
-    /// The argument `name` (flag spelling, without dashes) as this surface spells it.
-    pub fn arg(self, name: &str) -> String {
-        match self {
-            Spelling::Flags => format!("--{name}"),
-            Spelling::Sql => format!("{} :=", name.replace('-', "_")),
-        }
-    }
-}
 
 /// Where the diagram comes from.
 #[derive(Clone, Debug, PartialEq)]
@@ -137,12 +119,16 @@ impl Request {
     /// command in the message for a missing diagram.
     pub fn study(&self, verb: &str) -> Result<Study, CoreError> {
         let input = |e: upshot_study::StudyError| CoreError::Input(e.to_string());
+        let question = QuestionInput {
+            spelling: self.spelling,
+            ..self.question.clone()
+        };
         let mut study = match &self.diagram {
             Some(DiagramInput::Study(path)) => Study::load(path)
-                .and_then(|s| s.with_overrides(&self.question))
+                .and_then(|s| s.with_overrides(&question))
                 .map_err(input)?,
             Some(DiagramInput::Text { text, label }) => {
-                Study::from_parts(text, label, self.question.clone()).map_err(input)?
+                Study::from_parts(text, label, question).map_err(input)?
             }
             None => {
                 return Err(CoreError::Input(format!(

@@ -63,6 +63,7 @@ fn request(args: &Args, at: usize) -> Result<Request, String> {
         mediators: args.named("mediators").map(|m| list(Some(m))),
         instruments: args.named("instruments").map(|m| list(Some(m))),
         instrument_given: list(args.named("instrument_given")),
+        spelling: Spelling::Sql,
     };
     Ok(Request {
         spelling: Spelling::Sql,

@@ -21,5 +21,5 @@ mod raw;
 pub use error::{Location, StudyError};
 pub use model::{
     looks_like_diagram, Estimand, Method, Question, QuestionInput, Route, Rows, SourceSection,
-    Study,
+    Spelling, Study,
 };

@@ -195,9 +195,35 @@ pub struct Question {
     pub unit: Option<String>,
 }
 
+/// How a surface spells its arguments in messages.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+pub enum Spelling {
+    /// Command-line flags: `--segment-by`.
+    #[default]
+    Flags,
+    /// SQL arguments by name: `diagram`, `segments`, `on_null`.
+    Sql,
+}
+
+impl Spelling {
+    /// The argument whose flag is `--{flag}`, as this surface spells it.
+    pub fn arg(self, flag: &str) -> String {
+        match self {
+            Spelling::Flags => format!("--{flag}"),
+            Spelling::Sql => match flag {
+                "graph" => "diagram".into(),
+                "segment-by" => "segments".into(),
+                other => other.replace('-', "_"),
+            },
+        }
+    }
+}
+
 /// Question pieces as given on the command line (names unchecked).
 #[derive(Clone, Debug, Default)]
 pub struct QuestionInput {
+    /// How messages name these arguments.
+    pub spelling: Spelling,
     /// `--treatment`.
     pub treatment: Vec<String>,
     /// `--outcome`.
@@ -238,7 +264,7 @@ pub struct Study {
 /// How to report an error about one value: a span in the file, or a flag.
 enum At<'a> {
     File(&'a Lines<'a>, usize),
-    Flag(&'a str),
+    Flag(String),
 }
 
 impl At<'_> {
@@ -246,7 +272,7 @@ impl At<'_> {
         match self {
             At::File(lines, off) => lines.error(*off, Some(key.to_string()), message),
             At::Flag(f) => StudyError {
-                location: Location::Flag(f.to_string()),
+                location: Location::Flag(f.clone()),
                 key: None,
                 message,
             },
@@ -481,38 +507,50 @@ impl Study {
         check_diagram_names(&diagram, graph_label)?;
         let estimand = match &q.estimand {
             None => Estimand::Ate,
-            Some(e) => parse_estimand(e, &At::Flag("--estimand"), "estimand")?,
+            Some(e) => parse_estimand(e, &At::Flag(q.spelling.arg("estimand")), "estimand")?,
         };
         let method = match &q.method {
             None => Method::Auto,
-            Some(m) => parse_method(m, &At::Flag("--method"), "method")?,
+            Some(m) => parse_method(m, &At::Flag(q.spelling.arg("method")), "method")?,
         };
+        let spelling = q.spelling;
         let need = |v: &Vec<String>, flag: &str| -> Result<(), StudyError> {
             if v.is_empty() {
+                let flag = spelling.arg(flag);
                 Err(StudyError {
-                    location: Location::Flag(flag.into()),
+                    location: Location::Flag(flag.clone()),
                     key: None,
-                    message: format!("{flag} is required with --graph (or give a study file)"),
+                    message: format!(
+                        "{flag} is required with {} (or give a study file)",
+                        spelling.arg("graph")
+                    ),
                 })
             } else {
                 Ok(())
             }
         };
-        need(&q.treatment, "--treatment")?;
-        need(&q.outcome, "--outcome")?;
+        need(&q.treatment, "treatment")?;
+        need(&q.outcome, "outcome")?;
         let question = build_question(
             &diagram,
             QuestionParts {
                 name: format!("{}->{}", q.treatment.join("+"), q.outcome.join("+")),
-                treatment: (q.treatment, At::Flag("--treatment")),
-                outcome: (q.outcome, At::Flag("--outcome")),
+                treatment: (q.treatment, At::Flag(q.spelling.arg("treatment"))),
+                outcome: (q.outcome, At::Flag(q.spelling.arg("outcome"))),
                 estimand,
-                segments: (q.segments, At::Flag("--segment-by")),
-                method: (method, At::Flag("--method")),
-                adjust: q.adjust.map(|a| (a, At::Flag("--adjust"))),
-                mediators: q.mediators.map(|a| (a, At::Flag("--mediators"))),
-                instruments: q.instruments.map(|a| (a, At::Flag("--instruments"))),
-                instrument_given: (q.instrument_given, At::Flag("--instrument-given")),
+                segments: (q.segments, At::Flag(q.spelling.arg("segment-by"))),
+                method: (method, At::Flag(q.spelling.arg("method"))),
+                adjust: q.adjust.map(|a| (a, At::Flag(q.spelling.arg("adjust")))),
+                mediators: q
+                    .mediators
+                    .map(|a| (a, At::Flag(q.spelling.arg("mediators")))),
+                instruments: q
+                    .instruments
+                    .map(|a| (a, At::Flag(q.spelling.arg("instruments")))),
+                instrument_given: (
+                    q.instrument_given,
+                    At::Flag(q.spelling.arg("instrument-given")),
+                ),
                 unit: None,
             },
         )?;
@@ -546,42 +584,54 @@ impl Study {
                 }
             };
             let estimand = match &o.estimand {
-                Some(e) => parse_estimand(e, &At::Flag("--estimand"), "estimand")?,
+                Some(e) => parse_estimand(e, &At::Flag(o.spelling.arg("estimand")), "estimand")?,
                 None => q.estimand,
             };
             let method = match &o.method {
-                Some(m) => parse_method(m, &At::Flag("--method"), "method")?,
+                Some(m) => parse_method(m, &At::Flag(o.spelling.arg("method")), "method")?,
                 None => q.method,
             };
             out.push(build_question(
                 &self.diagram,
                 QuestionParts {
                     name: q.name.clone(),
-                    treatment: (pick(&o.treatment, &q.treatment), At::Flag("--treatment")),
-                    outcome: (pick(&o.outcome, &q.outcome), At::Flag("--outcome")),
+                    treatment: (
+                        pick(&o.treatment, &q.treatment),
+                        At::Flag(o.spelling.arg("treatment")),
+                    ),
+                    outcome: (
+                        pick(&o.outcome, &q.outcome),
+                        At::Flag(o.spelling.arg("outcome")),
+                    ),
                     estimand,
-                    segments: (pick(&o.segments, &q.segments), At::Flag("--segment-by")),
-                    method: (method, At::Flag("--method")),
+                    segments: (
+                        pick(&o.segments, &q.segments),
+                        At::Flag(o.spelling.arg("segment-by")),
+                    ),
+                    method: (method, At::Flag(o.spelling.arg("method"))),
                     adjust: o
                         .adjust
                         .clone()
                         .or_else(|| q.adjust.clone())
-                        .map(|a| (a, At::Flag("--adjust"))),
+                        .map(|a| (a, At::Flag(o.spelling.arg("adjust")))),
                     mediators: o
                         .mediators
                         .clone()
                         .or_else(|| q.mediators.clone())
-                        .map(|a| (a, At::Flag("--mediators"))),
+                        .map(|a| (a, At::Flag(o.spelling.arg("mediators")))),
                     instruments: o
                         .instruments
                         .clone()
                         .or_else(|| q.instruments.clone())
-                        .map(|a| (a, At::Flag("--instruments"))),
+                        .map(|a| (a, At::Flag(o.spelling.arg("instruments")))),
                     instrument_given: (
                         pick(&o.instrument_given, &q.instrument_given),
-                        At::Flag("--instrument-given"),
+                        At::Flag(o.spelling.arg("instrument-given")),
                     ),
-                    unit: q.unit.clone().map(|u| (u, At::Flag("--unit"))),
+                    unit: q
+                        .unit
+                        .clone()
+                        .map(|u| (u, At::Flag(o.spelling.arg("unit")))),
                 },
             )?);
         }
