@@ -173,6 +173,17 @@ for t, y, extra, flags in [
             fail(f"upshot_identify{flags}: declared {declared} != CLI {d}")
     checks += 1
 
+# Nothing identifies the effect: the `not identified` row carries the CLI's open path.
+code, out, err = cli(["check", "--graph", "t -> y; t <-> y", "--treatment", "t", "--outcome", "y", "--format",
+                      "json", "--offline"])
+q = json.loads(out)["questions"][0]
+got = rows(con, "SELECT * FROM upshot_identify('t -> y; t <-> y', 't', 'y')")
+last = got[-1] if got else {}
+if q["identified"] or last.get("kind") != "not identified" or \
+        q["identification"]["adjustment"]["open_path"] not in (last.get("why_not") or ""):
+    fail(f"upshot_identify(not identified): {got} against the CLI's {q['identification']['adjustment']}")
+checks += 1
+
 # Plans against `upshot plan`.
 for method in ["stratify", "regress", "weight", "doubly-robust", "partial-out"]:
     code, out, err = cli(["plan", "--source", CSV, "--graph", GRAPH, "--treatment", "voucher", "--outcome",
@@ -237,6 +248,21 @@ for what, (src, graph, t, y), extra, flags in BAD:
     if fingerprint() != before:
         fail(f"{what}: the database changed")
     checks += 1
+
+# Composing with SQL: CREATE TABLE ... AS, WHERE, joins; the caller's uncommitted rows unseen.
+con.execute("CREATE TABLE effects AS SELECT * FROM upshot_estimate('customers', ?, 'voucher', 'spend_30d', "
+            "segments := 'tenure_band')", [GRAPH])
+joined = rows(con, "SELECT e.segment, COUNT(*) AS n FROM effects e JOIN customers c "
+                   "ON e.segment = 'tenure_band=' || c.tenure_band WHERE e.estimate > 0 GROUP BY ALL")
+if sum(r["n"] for r in joined) != rows(con, "SELECT COUNT(*) AS n FROM customers")[0]["n"]:
+    fail(f"CREATE TABLE AS / join: {joined}")
+con.execute("BEGIN")
+con.execute("INSERT INTO customers SELECT * FROM customers LIMIT 10")
+n_used = rows(con, "SELECT n_used FROM upshot_estimate('customers', ?, 'voucher', 'spend_30d')", [GRAPH])[0]["n_used"]
+con.execute("ROLLBACK")
+if n_used != 5000:
+    fail(f"an open transaction's rows were seen: n_used {n_used}")
+checks += 2
 
 print(f"extension in stock DuckDB {duckdb.__version__}: {checks} checks, {len(failures)} failed")
 sys.exit(1 if failures else 0)
