@@ -49,8 +49,9 @@ pub enum ExtError {
     Connection(#[from] duckdb::Error),
 }
 
-/// A DuckDB database opened by upshot (or its host's, see [`Host`]), with upshot's functions
-/// registered and one connection.
+/// A DuckDB database opened by upshot, with upshot's functions registered and one connection;
+/// or, in the loadable extension, a connection of upshot's to its host's database
+/// ([`Database::attach`]).
 ///
 /// Invariant: the connection is dropped before the database is closed; a host's database is
 /// never closed by us.

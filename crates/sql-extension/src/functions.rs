@@ -253,9 +253,8 @@ fn estimate(
 ) -> Result<Vec<Vec<Value>>, String> {
     let study = r.study(verb).map_err(|e| e.to_string())?;
     let settings = r.settings().map_err(|e| e.to_string())?;
-    let engine = engine
-        .lock()
-        .map_err(|_| "an earlier upshot call failed inside DuckDB; reload the extension")?;
+    // A call that failed inside leaves the connection usable: take the lock regardless.
+    let engine = engine.lock().unwrap_or_else(|p| p.into_inner());
     let engine = &*engine;
     let resolved = upshot_core::resolve(&study, only, &settings, Flavor::plain(engine.dialect()))
         .map_err(|e| e.to_string())?;

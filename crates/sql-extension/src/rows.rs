@@ -117,8 +117,22 @@ impl<R: Rows> VTab for Function<R> {
         // SAFETY: every function is registered with an `Engine` as its extra info
         // (`functions::register`), which DuckDB keeps for the function's life.
         let engine: &Engine = unsafe { &*bind.get_extra_info::<Engine>() };
-        let rows = R::table(&Args { positional, named }, engine)
-            .map_err(|e| upshot_core::printable(&e))?;
+        // A panic must not cross into DuckDB (it would end the caller's process): it becomes
+        // an error of the query.
+        let args = Args { positional, named };
+        let rows =
+            std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| R::table(&args, engine)))
+                .unwrap_or_else(|p| {
+                    let what = p
+                        .downcast_ref::<&str>()
+                        .map(|s| s.to_string())
+                        .or_else(|| p.downcast_ref::<String>().cloned())
+                        .unwrap_or_default();
+                    Err(format!(
+                        "upshot failed inside (a bug; please report it with the query): {what}"
+                    ))
+                })
+                .map_err(|e| upshot_core::printable(&e))?;
         Ok(Bound {
             table: Table { columns, rows },
         })
