@@ -5,7 +5,7 @@
 use crate::CoreError;
 use serde::Serialize;
 use upshot_graph::report::{
-    self, Declared, Identification, NamedIndependence, NamedMarkovStatement,
+    self, CheckedSet, Declared, Identification, NamedIndependence, NamedMarkovStatement,
 };
 use upshot_graph::{Kind, Role};
 use upshot_study::{Method, Question, Route, Study};
@@ -464,6 +464,16 @@ pub struct RouteRow {
     pub assumptions: Vec<String>,
 }
 
+/// A route before it is a row: kind, route (none for `not identified`), set, conditioning set,
+/// and the verdict of a declared set.
+type RouteEntry<'a> = (
+    &'a str,
+    Option<Route>,
+    Vec<String>,
+    Vec<String>,
+    Option<&'a CheckedSet>,
+);
+
 /// The routes of every question as rows: each minimal and the optimal adjustment set, each
 /// front-door set, each instrument, each declared set with its verdict, and a
 /// `not identified` row (with the open path) for a question nothing identifies.
@@ -471,113 +481,98 @@ pub fn route_rows(report: &CheckReport) -> Vec<RouteRow> {
     let mut rows = Vec::new();
     for q in &report.questions {
         let id = &q.identification;
-        let chosen = |route: Route, set: &[String]| {
-            q.chosen
-                .as_ref()
-                .is_some_and(|c| c.route == route && c.set == set)
-        };
-        let mut row = |kind: &str,
-                       route: Option<Route>,
-                       set: &[String],
-                       given: &[String],
-                       valid: bool,
-                       why: Option<String>| {
-            let is_chosen = valid && route.is_some_and(|r| chosen(r, set));
+        let mut routes: Vec<RouteEntry> = Vec::new();
+        let adjustment = Some(Route::Adjustment);
+        for s in &id.adjustment.minimal_sets {
+            routes.push(("adjustment (minimal)", adjustment, s.clone(), vec![], None));
+        }
+        if let Some(s) = &id.adjustment.optimal_set {
+            routes.push(("adjustment (optimal)", adjustment, s.clone(), vec![], None));
+        }
+        if let Some(d) = &id.adjustment.declared {
+            routes.push((
+                "adjustment (declared)",
+                adjustment,
+                d.set.clone(),
+                vec![],
+                Some(d),
+            ));
+        }
+        for s in &id.front_door.sets {
+            routes.push((
+                "front-door",
+                Some(Route::FrontDoor),
+                s.clone(),
+                vec![],
+                None,
+            ));
+        }
+        if let Some(d) = &id.front_door.declared {
+            routes.push((
+                "front-door (declared)",
+                Some(Route::FrontDoor),
+                d.set.clone(),
+                vec![],
+                Some(d),
+            ));
+        }
+        for i in &id.instrument.found {
+            let set = vec![i.instrument.clone()];
+            routes.push((
+                "instrument",
+                Some(Route::Instrument),
+                set,
+                i.given.clone(),
+                None,
+            ));
+        }
+        for d in &id.instrument.declared {
+            routes.push((
+                "instrument (declared)",
+                Some(Route::Instrument),
+                d.set.clone(),
+                vec![],
+                Some(d),
+            ));
+        }
+        if !q.identified {
+            routes.push(("not identified", None, vec![], vec![], None));
+        }
+        // The chosen route and set is marked once, on the first row that shows it.
+        let mut chosen_shown = false;
+        for (kind, route, variables, given, declared) in routes {
+            let valid = route.is_some() && declared.is_none_or(|d| d.valid);
+            let chosen = valid
+                && !chosen_shown
+                && q.chosen
+                    .as_ref()
+                    .is_some_and(|c| Some(c.route) == route && c.set == variables);
+            chosen_shown |= chosen;
+            let why_not = match (route, declared) {
+                (None, _) => {
+                    let mut why = q.problems.clone();
+                    if let Some(p) = &id.adjustment.open_path {
+                        why.push(format!("open path: {p}"));
+                    }
+                    Some(why.join("; "))
+                }
+                (_, Some(d)) if !d.valid => Some(d.problems.join("; ")),
+                _ => None,
+            };
             rows.push(RouteRow {
                 question: q.name.clone(),
                 kind: kind.to_string(),
-                variables: set.to_vec(),
-                given: given.to_vec(),
+                variables,
+                given,
                 valid,
-                chosen: is_chosen,
-                why_not: why,
-                assumptions: if is_chosen {
+                chosen,
+                why_not,
+                assumptions: if chosen {
                     q.assumptions.clone()
                 } else {
                     vec![]
                 },
             });
-        };
-        for s in &id.adjustment.minimal_sets {
-            row(
-                "adjustment (minimal)",
-                Some(Route::Adjustment),
-                s,
-                &[],
-                true,
-                None,
-            );
-        }
-        if let Some(s) = &id.adjustment.optimal_set {
-            row(
-                "adjustment (optimal)",
-                Some(Route::Adjustment),
-                s,
-                &[],
-                true,
-                None,
-            );
-        }
-        if let Some(d) = &id.adjustment.declared {
-            let why = (!d.valid).then(|| d.problems.join("; "));
-            row(
-                "adjustment (declared)",
-                Some(Route::Adjustment),
-                &d.set,
-                &[],
-                d.valid,
-                why,
-            );
-        }
-        for s in &id.front_door.sets {
-            row("front-door", Some(Route::FrontDoor), s, &[], true, None);
-        }
-        if let Some(d) = &id.front_door.declared {
-            let why = (!d.valid).then(|| d.problems.join("; "));
-            row(
-                "front-door (declared)",
-                Some(Route::FrontDoor),
-                &d.set,
-                &[],
-                d.valid,
-                why,
-            );
-        }
-        for i in &id.instrument.found {
-            let set = [i.instrument.clone()];
-            row(
-                "instrument",
-                Some(Route::Instrument),
-                &set,
-                &i.given,
-                true,
-                None,
-            );
-        }
-        for d in &id.instrument.declared {
-            let why = (!d.valid).then(|| d.problems.join("; "));
-            row(
-                "instrument (declared)",
-                Some(Route::Instrument),
-                &d.set,
-                &[],
-                d.valid,
-                why,
-            );
-        }
-        if !q.identified {
-            let mut why: Vec<String> = q.problems.clone();
-            if let Some(p) = &id.adjustment.open_path {
-                why.push(format!("open path: {p}"));
-            }
-            row(
-                "not identified",
-                None,
-                &[],
-                &[],
-                false,
-                Some(why.join("; ")),
-            );
         }
     }
     rows

@@ -168,6 +168,14 @@ fn estimation(mut r: Request, args: &Args) -> Result<Request, String> {
     Ok(r)
 }
 
+/// The request of `(source, diagram, treatment, outcome, ...)`: rows in the calling database.
+fn source_request(args: &Args) -> Result<Request, String> {
+    let mut r = estimation(request(args, 1)?, args)?;
+    r.source = Some(required(args, 0, "source")?.to_string());
+    r.db = Some(upshot_core::CALLER_DATABASE.to_string());
+    Ok(r)
+}
+
 /// `upshot_plan(source, diagram, treatment, outcome)`: the passes as rows.
 pub struct Plan;
 
@@ -193,9 +201,7 @@ impl Rows for Plan {
         v
     }
     fn table(args: &Args, _: &Engine) -> Result<Vec<Vec<Value>>, String> {
-        let mut r = estimation(request(args, 1)?, args)?;
-        r.source = Some(required(args, 0, "source")?.to_string());
-        r.db = Some(upshot_core::CALLER_DATABASE.to_string());
+        let r = source_request(args)?;
         let study = r.study("plan").map_err(|e| e.to_string())?;
         let flavor = if args.named("portable") == Some("true") {
             Flavor::plain(&upshot_sql::DuckDb)
@@ -312,10 +318,7 @@ impl Rows for EstimateRows {
         v
     }
     fn table(args: &Args, engine: &Engine) -> Result<Vec<Vec<Value>>, String> {
-        let mut r = estimation(request(args, 1)?, args)?;
-        r.source = Some(required(args, 0, "source")?.to_string());
-        r.db = Some(upshot_core::CALLER_DATABASE.to_string());
-        estimate(&r, None, "run", engine)
+        estimate(&source_request(args)?, None, "run", engine)
     }
 }
 
