@@ -13,7 +13,10 @@ use clap::{Parser, Subcommand};
 use exit::Failure;
 
 /// The engines this binary links: the one place an engine is registered with the CLI.
-pub(crate) static ENGINES: &[&dyn upshot_core::Connector] = &[&upshot_engine_duckdb::DUCKDB];
+pub(crate) static ENGINES: &[&dyn upshot_core::Connector] = &[
+    &upshot_engine_duckdb::DUCKDB,
+    &upshot_engine_postgres::POSTGRES,
+];
 
 #[derive(Parser)]
 #[command(name = "upshot", version, about = "Causal effects computed inside the database", long_about = None)]
