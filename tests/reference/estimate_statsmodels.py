@@ -26,7 +26,12 @@ References (named beside each check):
   covariates is known not to recover the experiment exactly on these data, but it must remove
   most of the selection bias.
 
-Usage: estimate_statsmodels.py PATH/TO/upshot DEMO_CSV
+With `--db postgresql://...` every upshot run reads its rows from PostgreSQL instead: each CSV is
+loaded once into a table there (psql's \\copy; columns typed from pandas: BIGINT, DOUBLE
+PRECISION, TEXT) and upshot runs with `--db ... --source TABLE`; the references stay computed
+here from the CSV, so the same agreement is required through that engine.
+
+Usage: estimate_statsmodels.py PATH/TO/upshot DEMO_CSV [--db postgresql://...]
 """
 import json
 import math
@@ -210,8 +215,28 @@ def ref_partial_out(df, t, y, covs, cat, folds, unit):
     return float(theta), se
 
 
+DB = None
+LOADED = {}
+
+
+def pg_table(csv):
+    """The PostgreSQL table holding `csv`'s rows (loaded on first use)."""
+    if csv not in LOADED:
+        name = f"ref_{len(LOADED)}"
+        df = pd.read_csv(csv, nrows=1000)
+        types = {"int64": "BIGINT", "float64": "DOUBLE PRECISION", "bool": "BOOLEAN"}
+        cols = ", ".join(f'"{c}" {types.get(str(df[c].dtype), "TEXT")}' for c in df.columns)
+        for sql in (f"DROP TABLE IF EXISTS {name}", f"CREATE TABLE {name} ({cols})",
+                    f"\\copy {name} FROM '{csv}' WITH (FORMAT csv, HEADER true)"):
+            subprocess.run(["psql", DB, "-q", "-v", "ON_ERROR_STOP=1", "-c", sql], check=True,
+                           capture_output=True)
+        LOADED[csv] = name
+    return LOADED[csv]
+
+
 def upshot(binary, csv, graph, t, y, method, estimand="ATE", folds=5, extra=()):
-    args = [binary, "run", "--graph", graph, "--source", csv, "--treatment", t, "--outcome", y,
+    source = ["--db", DB, "--source", pg_table(csv)] if DB else ["--source", csv]
+    args = [binary, "run", "--graph", graph, *source, "--treatment", t, "--outcome", y,
             "--method", method, "--estimand", estimand, "--folds", str(folds), "--format", "json"]
     args += list(extra)
     r = subprocess.run(args, capture_output=True, text=True)
@@ -344,7 +369,11 @@ def jtrain_checks(binary, tmp):
 
 
 def main():
+    global DB
     binary, csv = sys.argv[1], sys.argv[2]
+    if len(sys.argv) > 4 and sys.argv[3] == "--db":
+        DB = sys.argv[4]
+        print(f"every upshot run reads its rows from PostgreSQL ({DB})")
     demo_checks(binary, csv)
     with tempfile.TemporaryDirectory() as tmp:
         # A second size: 20,000 rows from the demo generator (`upshot demo`), another seed.

@@ -166,6 +166,7 @@ fn main() {
             .into_iter()
             .map(|c| ColumnType {
                 name: c.name,
+                type_name: c.type_name,
                 numeric: c.numeric,
                 integer: c.integer,
                 boolean: c.boolean,

@@ -199,6 +199,7 @@ fn measure(approach: &str, db: &Path, w: &Work) -> Result<Value, String> {
                 .into_iter()
                 .map(|c| ColumnType {
                     name: c.name,
+                    type_name: c.type_name,
                     numeric: c.numeric,
                     integer: c.integer,
                     boolean: c.boolean,

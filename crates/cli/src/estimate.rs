@@ -76,7 +76,11 @@ pub struct Args {
     /// `run --into`: a key for this run; rerunning with the same key replaces its rows.
     #[arg(long = "run-key")]
     run_key: Option<String>,
-    /// `plan`: SQL dialect to render (duckdb, postgres).
+    /// `run`: cancel any pass that runs longer than this many seconds (the database cancels
+    /// it; nothing is written).
+    #[arg(long)]
+    timeout: Option<u64>,
+    /// `plan`: SQL dialect to render (duckdb, postgres, spark).
     #[arg(long)]
     dialect: Option<String>,
     /// `plan`: render for a database without upshot's functions (`upshot_moments`,
@@ -146,6 +150,11 @@ pub fn run_plan(a: Args) -> Result<i32, Failure> {
     if a.into.is_some() || a.run_key.is_some() {
         return Err(Failure::input(
             "--into and --run-key belong to `upshot run`; `plan` writes nothing",
+        ));
+    }
+    if a.timeout.is_some() {
+        return Err(Failure::input(
+            "--timeout belongs to `upshot run`; `plan` runs nothing",
         ));
     }
     let json = match a.format.as_str() {
@@ -220,6 +229,11 @@ pub fn run_run(a: Args) -> Result<i32, Failure> {
             "--run-key: empty; name the run (for example daily-2026-12-03), or leave the flag out",
         ));
     }
+    if a.timeout == Some(0) {
+        return Err(Failure::input(
+            "--timeout: 0 seconds; give the most seconds a pass may take (for example 600), or leave the flag out",
+        ));
+    }
     if a.run_key.is_some() && a.into.is_none() {
         return Err(Failure::input(
             "--run-key needs --into TABLE (it names a run in the results table)",
@@ -246,6 +260,11 @@ pub fn run_run(a: Args) -> Result<i32, Failure> {
     let engine = connector
         .connect(&locator, access, &upshot_core::files_of(&study))
         .map_err(crate::exit::opening)?;
+    if let Some(seconds) = a.timeout {
+        engine
+            .limit_time(std::time::Duration::from_secs(seconds))
+            .map_err(crate::exit::opening)?;
+    }
     if let Some(table) = &a.into {
         upshot_core::check_results_table(engine.as_ref(), table)?;
     }

@@ -16,6 +16,7 @@ use exit::Failure;
 pub(crate) static ENGINES: &[&dyn upshot_core::Connector] = &[
     &upshot_engine_duckdb::DUCKDB,
     &upshot_engine_postgres::POSTGRES,
+    &upshot_engine_spark::SPARK,
 ];
 
 #[derive(Parser)]

@@ -75,6 +75,7 @@ pub fn run(
             cols.into_iter()
                 .map(|c| ColumnType {
                     name: c.name,
+                    type_name: c.type_name,
                     numeric: c.numeric,
                     integer: c.integer,
                     boolean: c.boolean,
@@ -210,9 +211,9 @@ pub fn write_results(
         sql: sql.create,
         rows: vec![],
     }];
-    if let Some(k) = run_key {
+    if let (Some(k), Some(delete)) = (run_key, sql.delete) {
         statements.push(Write {
-            sql: sql.delete,
+            sql: delete,
             rows: vec![vec![Param::Text(k.to_string())]],
         });
     }
@@ -226,6 +227,9 @@ pub fn write_results(
             upshot_engine::EngineError::Aborted(why) => CoreError::Engine(format!(
                 "{why}; --into {table}: nothing was written (the transaction was rolled back)"
             )),
+            upshot_engine::EngineError::Written(why) => {
+                CoreError::Engine(format!("--into {table}: {why}"))
+            }
             e => CoreError::Engine(format!(
                 "--into {table}: nothing was written (the transaction was rolled back): {e}"
             )),

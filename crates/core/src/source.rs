@@ -143,7 +143,7 @@ pub fn source_of(study: &Study, dialect: &dyn Dialect) -> Result<ResolvedRows, C
     };
     if matches!(source, Source::Table(_) | Source::Query(_)) && database.is_none() {
         return Err(CoreError::Input(format!(
-            "source {label} is read from a database: give --db (a DuckDB file) or [source].database in the study"
+            "source {label} is read from a database: give --db (a DuckDB file, postgresql://... or sc://...) or [source].database in the study"
         )));
     }
     Ok(ResolvedRows {

@@ -27,6 +27,7 @@ use upshot_sql::{Dialect, DuckDb, Functions, Pass, Source};
 pub struct DuckDbEngine {
     db: Database,
     memory: bool,
+    limit: std::cell::Cell<Option<std::time::Duration>>,
 }
 
 /// The location string of a fresh in-memory database.
@@ -61,6 +62,7 @@ impl DuckDbEngine {
         Ok(DuckDbEngine {
             db,
             memory: path.is_none(),
+            limit: std::cell::Cell::new(None),
         })
     }
 
@@ -123,6 +125,7 @@ impl DuckDbEngine {
         DuckDbEngine {
             db: Database::attach(conn),
             memory: false,
+            limit: std::cell::Cell::new(None),
         }
     }
 
@@ -209,9 +212,38 @@ impl DuckDbEngine {
             pass: name.to_string(),
             message: explained(e),
         };
-        let mut stmt = self.conn().prepare(sql).map_err(err)?;
-        let batches: Vec<RecordBatch> = stmt.query_arrow([]).map_err(err)?.collect();
-        Ok(batches)
+        let Some(limit) = self.limit.get() else {
+            let mut stmt = self.conn().prepare(sql).map_err(err)?;
+            return Ok(stmt.query_arrow([]).map_err(err)?.collect());
+        };
+        // A watchdog interrupts the connection when the limit passes first.
+        let handle = self.conn().interrupt_handle();
+        let (done, wait) = std::sync::mpsc::channel::<()>();
+        let watchdog = std::thread::spawn(move || {
+            let fired = matches!(
+                wait.recv_timeout(limit),
+                Err(std::sync::mpsc::RecvTimeoutError::Timeout)
+            );
+            if fired {
+                handle.interrupt();
+            }
+            fired
+        });
+        let result = (|| {
+            let mut stmt = self.conn().prepare(sql).map_err(err)?;
+            let batches: Vec<RecordBatch> = stmt.query_arrow([]).map_err(err)?.collect();
+            Ok(batches)
+        })();
+        let _ = done.send(());
+        let fired = watchdog.join().unwrap_or(false);
+        // An interrupted stream may end early without an error: a fired watchdog fails the pass.
+        if fired {
+            return Err(EngineError::TimedOut {
+                pass: name.to_string(),
+                seconds: limit.as_secs(),
+            });
+        }
+        result
     }
 }
 
@@ -296,6 +328,11 @@ impl Engine for DuckDbEngine {
             reads_files: true,
             durable: !self.memory,
         }
+    }
+
+    fn limit_time(&self, limit: std::time::Duration) -> Result<(), EngineError> {
+        self.limit.set(Some(limit));
+        Ok(())
     }
 
     fn write(

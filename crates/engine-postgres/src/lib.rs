@@ -20,20 +20,26 @@ use postgres::types::Type;
 use postgres::{Client, NoTls, SimpleQueryMessage};
 use std::cell::RefCell;
 use upshot_engine::{
-    redacted, Access, Aggregates, Capabilities, Cell, Column, Connector, Engine, EngineError,
-    Write,
+    redacted, Access, Aggregates, Capabilities, Cell, Column, Connector, Engine, EngineError, Write,
 };
 use upshot_sql::{Dialect, Functions, Pass, Postgres, Source};
 
 /// A connection to a PostgreSQL server.
 pub struct PostgresEngine {
     client: RefCell<Client>,
+    limit: std::cell::Cell<Option<u64>>,
 }
 
 fn numeric(t: &Type) -> bool {
     matches!(
         *t,
-        Type::INT2 | Type::INT4 | Type::INT8 | Type::FLOAT4 | Type::FLOAT8 | Type::NUMERIC | Type::OID
+        Type::INT2
+            | Type::INT4
+            | Type::INT8
+            | Type::FLOAT4
+            | Type::FLOAT8
+            | Type::NUMERIC
+            | Type::OID
     )
 }
 
@@ -46,6 +52,11 @@ fn query_error(pass: &str, e: postgres::Error) -> EngineError {
         pass: pass.to_string(),
         message: message(&e),
     }
+}
+
+/// SQLSTATE 57014: the statement was cancelled (by `statement_timeout`).
+fn cancelled(e: &postgres::Error) -> bool {
+    e.code() == Some(&postgres::error::SqlState::QUERY_CANCELED)
 }
 
 /// The server's message (with its detail and hint) or the client's.
@@ -61,7 +72,17 @@ fn message(e: &postgres::Error) -> String {
             }
             m
         }
-        None => e.to_string(),
+        None => {
+            // The client's error names the step ("error connecting to server"); its source says
+            // why ("Connection refused").
+            let mut m = e.to_string();
+            let mut source = std::error::Error::source(e);
+            while let Some(s) = source {
+                m.push_str(&format!(": {s}"));
+                source = s.source();
+            }
+            m
+        }
     }
 }
 
@@ -79,9 +100,11 @@ impl PostgresEngine {
                 "the locator holds a password; remove it and set PGPASSWORD in the environment (passwords never go on the command line or in a study file)".into(),
             ));
         }
-        let mut config: postgres::Config = locator
-            .parse()
-            .map_err(|e: postgres::Error| open(format!("not a PostgreSQL URL ({e}); expected postgresql://user@host:port/dbname")))?;
+        let mut config: postgres::Config = locator.parse().map_err(|e: postgres::Error| {
+            open(format!(
+                "not a PostgreSQL URL ({e}); expected postgresql://user@host:port/dbname"
+            ))
+        })?;
         if let Ok(p) = std::env::var("PGPASSWORD") {
             config.password(p);
         }
@@ -94,6 +117,7 @@ impl PostgresEngine {
         }
         Ok(PostgresEngine {
             client: RefCell::new(client),
+            limit: std::cell::Cell::new(None),
         })
     }
 
@@ -105,14 +129,26 @@ impl PostgresEngine {
             .map_err(|e| query_error("setup", e))
     }
 
+    /// Runs a query of upshot's own (tests, set-up) and returns its rows; never user text.
+    pub fn select(&self, sql: &str) -> Result<Aggregates, EngineError> {
+        self.query("setup", sql)
+    }
+
     fn query(&self, pass: &str, sql: &str) -> Result<Aggregates, EngineError> {
+        let failed = |e: postgres::Error| match self.limit.get() {
+            Some(seconds) if cancelled(&e) => EngineError::TimedOut {
+                pass: pass.to_string(),
+                seconds,
+            },
+            _ => query_error(pass, e),
+        };
         let mut client = self.client.borrow_mut();
-        let statement = client.prepare(sql).map_err(|e| query_error(pass, e))?;
+        let statement = client.prepare(sql).map_err(failed)?;
         let columns = statement.columns();
         let names: Vec<String> = columns.iter().map(|c| c.name().to_string()).collect();
         let is_number: Vec<bool> = columns.iter().map(|c| numeric(c.type_())).collect();
         let mut rows = Vec::new();
-        for m in client.simple_query(sql).map_err(|e| query_error(pass, e))? {
+        for m in client.simple_query(sql).map_err(failed)? {
             if let SimpleQueryMessage::Row(r) = m {
                 let mut row = Vec::with_capacity(names.len());
                 for (i, number) in is_number.iter().enumerate() {
@@ -125,7 +161,10 @@ impl PostgresEngine {
                             v => v.parse::<f64>().map(Cell::Number).map_err(|_| {
                                 EngineError::Query {
                                     pass: pass.to_string(),
-                                    message: format!("column {} holds `{v}`, not a number", names[i]),
+                                    message: format!(
+                                        "column {} holds `{v}`, not a number",
+                                        names[i]
+                                    ),
                                 }
                             })?,
                         },
@@ -160,13 +199,20 @@ impl Engine for PostgresEngine {
         self.query(&pass.name, &pass.query.to_string())
     }
 
+    fn limit_time(&self, limit: std::time::Duration) -> Result<(), EngineError> {
+        // The server cancels the statement (its own `statement_timeout`, in milliseconds).
+        let ms = limit.as_millis().max(1);
+        self.execute_batch(&format!("SET statement_timeout = {ms}"))?;
+        self.limit.set(Some(limit.as_secs()));
+        Ok(())
+    }
+
     fn columns(&self, source: &Source) -> Result<Vec<Column>, EngineError> {
-        let probe = upshot_sql::schema_probe(&self.flavor(), source).map_err(|e| {
-            EngineError::Query {
+        let probe =
+            upshot_sql::schema_probe(&self.flavor(), source).map_err(|e| EngineError::Query {
                 pass: "schema".into(),
                 message: e.to_string(),
-            }
-        })?;
+            })?;
         let sql = probe.query.to_string();
         let statement = self
             .client
@@ -192,9 +238,7 @@ impl Engine for PostgresEngine {
         before_commit: &mut dyn FnMut() -> Result<(), String>,
     ) -> Result<(), EngineError> {
         let mut client = self.client.borrow_mut();
-        let mut tx = client
-            .transaction()
-            .map_err(|e| query_error("write", e))?;
+        let mut tx = client.transaction().map_err(|e| query_error("write", e))?;
         for w in statements {
             let statement = tx.prepare(&w.sql).map_err(|e| query_error("write", e))?;
             let types = statement.params().to_vec();
@@ -203,11 +247,8 @@ impl Engine for PostgresEngine {
                     .map_err(|e| query_error("write", e))?;
             }
             for row in &w.rows {
-                let values: Vec<Box<dyn postgres::types::ToSql + Sync>> = row
-                    .iter()
-                    .zip(&types)
-                    .map(|(p, t)| param(p, t))
-                    .collect();
+                let values: Vec<Box<dyn postgres::types::ToSql + Sync>> =
+                    row.iter().zip(&types).map(|(p, t)| param(p, t)).collect();
                 let refs: Vec<&(dyn postgres::types::ToSql + Sync)> =
                     values.iter().map(|b| b.as_ref()).collect();
                 tx.execute(&statement, &refs)
@@ -220,10 +261,7 @@ impl Engine for PostgresEngine {
 }
 
 /// A parameter as the server's inferred type wants it.
-fn param(
-    p: &upshot_engine::Param,
-    t: &Type,
-) -> Box<dyn postgres::types::ToSql + Sync> {
+fn param(p: &upshot_engine::Param, t: &Type) -> Box<dyn postgres::types::ToSql + Sync> {
     use upshot_engine::Param;
     match (p, t) {
         (Param::Null, t) if numeric(t) => Box::new(None::<f64>),

@@ -55,6 +55,18 @@ pub enum EngineError {
         /// The database's message.
         message: String,
     },
+    /// A query ran past the time limit and was cancelled.
+    #[error("the {pass} pass was cancelled after {seconds} s (--timeout {seconds}); nothing was written. Raise --timeout, or narrow the rows with --filter")]
+    TimedOut {
+        /// Pass name.
+        pass: String,
+        /// The limit, in seconds.
+        seconds: u64,
+    },
+    /// The surface's step after a write failed, and the write could not be rolled back (an
+    /// engine without transactions): the message says what stays written.
+    #[error("{0}")]
+    Written(String),
     /// A write was rolled back because the step before its commit failed (the message).
     #[error("{0}")]
     Aborted(String),
@@ -132,10 +144,16 @@ pub trait Engine {
     fn run(&self, pass: &Pass) -> Result<Aggregates, EngineError>;
     /// The columns of a source (reads no rows).
     fn columns(&self, source: &Source) -> Result<Vec<Column>, EngineError>;
+    /// Cancels every later query of this engine that runs longer than `limit` (`--timeout`),
+    /// by the database's own means where it has them; the cancelled pass fails with
+    /// [`EngineError::TimedOut`].
+    fn limit_time(&self, limit: std::time::Duration) -> Result<(), EngineError>;
     /// Runs statements of upshot's own in one transaction: each statement once per row of
     /// parameters (once without parameters when it has no rows), then `before_commit` (a
     /// surface writes its output there), then commits. Either every statement takes effect or
-    /// none does: a failing statement or a failing `before_commit` rolls all back.
+    /// none does: a failing statement or a failing `before_commit` rolls all back. An engine
+    /// without transactions (Spark) says so in its documentation, runs `before_commit` last,
+    /// and reports its failure as [`EngineError::Written`].
     fn write(
         &self,
         statements: &[Write],
@@ -163,12 +181,27 @@ pub trait Connector: Sync {
     ) -> Result<Box<dyn Engine>, EngineError>;
 }
 
-/// A locator as it may be shown: a password in a URL's user part (`user:secret@host`) is
-/// replaced by `***` (passwords belong in the environment, and never in messages).
+/// A locator as it may be shown: a password in a URL's user part (`user:secret@host`) and a
+/// `token=` parameter (`sc://host/;token=secret`) are replaced by `***` (secrets belong in the
+/// environment, and never in messages).
 pub fn redacted(locator: &str) -> String {
     let Some((scheme, rest)) = locator.split_once("://") else {
         return locator.to_string();
     };
+    if let Some((head, params)) = rest.split_once("/;") {
+        let params: Vec<String> = params
+            .split(';')
+            .map(|p| match p.split_once('=') {
+                Some((k, _)) if k.eq_ignore_ascii_case("token") => format!("{k}=***"),
+                _ => p.to_string(),
+            })
+            .collect();
+        return format!(
+            "{}/;{}",
+            redacted(&format!("{scheme}://{head}")),
+            params.join(";")
+        );
+    }
     let (authority, path) = match rest.find('/') {
         Some(i) => rest.split_at(i),
         None => (rest, ""),
@@ -229,6 +262,10 @@ mod tests {
             "postgresql://ana@db.example/sales"
         );
         assert_eq!(redacted("sc://host:15002"), "sc://host:15002");
+        assert_eq!(
+            redacted("sc://host:15002/;user_id=ana;token=s3cret"),
+            "sc://host:15002/;user_id=ana;token=***"
+        );
         assert_eq!(redacted("data/w.duckdb"), "data/w.duckdb");
     }
 }

@@ -3,16 +3,17 @@
 
 use upshot_sql::{
     Design, DesignTerm, DuckDb, Flavor, Fold, Key, KeyValue, Model, Models, Pass, Postgres,
-    Selector,
+    Selector, Spark,
 };
 
 /// The renderings with golden files: DuckDB as upshot opens it (with its functions), DuckDB
-/// without them, PostgreSQL.
-pub(crate) fn flavors() -> [(&'static str, Flavor); 3] {
+/// without them, PostgreSQL, Spark SQL.
+pub(crate) fn flavors() -> [(&'static str, Flavor); 4] {
     [
         ("duckdb", Flavor::duckdb()),
         ("duckdb-plain", Flavor::plain(&DuckDb)),
         ("postgres", Flavor::plain(&Postgres)),
+        ("spark", Flavor::plain(&Spark)),
     ]
 }
 

@@ -133,6 +133,8 @@ pub enum NullPolicy {
 pub struct ColumnType {
     /// Name.
     pub name: String,
+    /// The engine's name of its type (for messages).
+    pub type_name: String,
     /// Numeric (or boolean) type.
     pub numeric: bool,
     /// Integer type (a unit key for folds must be one).

@@ -184,14 +184,16 @@ fn check_schema(spec: &Spec) -> Result<(), MethodError> {
     let col = |n: &str| columns.iter().find(|c| c.name == n).expect("checked");
     if !col(&spec.outcome).numeric {
         return Err(MethodError::Input(format!(
-            "outcome `{}` is not numeric; choose a numeric outcome, or convert it in a source query (for example CAST(... AS DOUBLE), or a 0/1 CASE expression)",
-            spec.outcome
+            "outcome `{}` is not numeric (its type is {}); choose a numeric outcome, or convert it in a source query (for example CAST(... AS DOUBLE), or a 0/1 CASE expression)",
+            spec.outcome,
+            col(&spec.outcome).type_name
         )));
     }
     if !col(&spec.treatment).numeric {
         return Err(MethodError::Input(format!(
-            "treatment `{}` is not numeric; code it as 0/1 (untreated/treated){}",
+            "treatment `{}` is not numeric (its type is {}); code it as 0/1 (untreated/treated){}",
             spec.treatment,
+            col(&spec.treatment).type_name,
             if spec.method.needs_binary_treatment() {
                 ""
             } else {

@@ -26,6 +26,7 @@ fn every_method_agrees_with_and_without_upshots_functions() {
         .into_iter()
         .map(|c| ColumnType {
             name: c.name,
+            type_name: c.type_name,
             numeric: c.numeric,
             integer: c.integer,
             boolean: c.boolean,

@@ -37,7 +37,7 @@ pub use design::{
     FOLD_PRIME,
 };
 pub use dialect::{
-    dialect_by_name, Dialect, DuckDb, FileKind, Flavor, Functions, Postgres, DIALECTS,
+    dialect_by_name, Dialect, DuckDb, FileKind, Flavor, Functions, Postgres, Spark, DIALECTS,
     DUCKDB_LINEAR, DUCKDB_MOMENTS,
 };
 pub use error::SqlError;

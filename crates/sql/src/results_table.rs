@@ -76,9 +76,12 @@ pub const RESULT_COLUMNS: [(&str, &str, &str); 24] = [
 pub struct ResultsSql {
     /// `CREATE TABLE IF NOT EXISTS`.
     pub create: String,
-    /// `DELETE ... WHERE run_key = $1` (replaces a rerun's rows).
-    pub delete: String,
-    /// `INSERT ... VALUES ($1, $2, CURRENT_TIMESTAMP, ...)`, one numbered parameter per column but `run_at`.
+    /// `DELETE ... WHERE run_key = $1` (replaces a rerun's rows); `None` where the insert
+    /// itself replaces the run's rows ([`Dialect::replaces_run_by_partition`]).
+    pub delete: Option<String>,
+    /// `INSERT ... VALUES ($1, $2, CURRENT_TIMESTAMP, ...)`, one numbered parameter per column
+    /// but `run_at` (`INSERT OVERWRITE` of the run's partition where the dialect replaces by
+    /// partition).
     pub insert: String,
 }
 
@@ -138,19 +141,37 @@ pub fn results_sql(d: &dyn Dialect, table: &str) -> Result<ResultsSql, SqlError>
         })
         .collect();
     let names: Vec<&str> = RESULT_COLUMNS.iter().map(|c| c.0).collect();
+    let by_partition = d.replaces_run_by_partition();
     Ok(ResultsSql {
         create: checked(
             d,
-            format!("CREATE TABLE IF NOT EXISTS {name} ({})", cols.join(", ")),
+            format!(
+                "CREATE TABLE IF NOT EXISTS {name} ({}){}",
+                cols.join(", "),
+                if by_partition {
+                    " PARTITIONED BY (run_id)"
+                } else {
+                    ""
+                }
+            ),
         )?,
-        delete: checked(
-            d,
-            format!("DELETE FROM {name} WHERE run_key = {}", d.parameter(1)),
-        )?,
+        delete: if by_partition {
+            None
+        } else {
+            Some(checked(
+                d,
+                format!("DELETE FROM {name} WHERE run_key = {}", d.parameter(1)),
+            )?)
+        },
         insert: checked(
             d,
             format!(
-                "INSERT INTO {name} ({}) VALUES ({})",
+                "INSERT {} {name} ({}) VALUES ({})",
+                if by_partition {
+                    "OVERWRITE TABLE"
+                } else {
+                    "INTO"
+                },
                 names.join(", "),
                 values.join(", ")
             ),

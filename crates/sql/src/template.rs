@@ -4,7 +4,8 @@ use crate::dialect::Dialect;
 use crate::error::SqlError;
 use crate::source::Source;
 use sqlparser::ast::{
-    visit_expressions_mut, Expr, Ident, Query, SetExpr, Statement, TableFactor, Value,
+    visit_expressions_mut, Expr, Ident, LimitClause, Offset, OffsetRows, Query, SetExpr, Statement,
+    TableFactor, Value,
 };
 use sqlparser::dialect::GenericDialect;
 use sqlparser::parser::Parser;
@@ -39,7 +40,13 @@ pub(crate) fn number(x: f64, what: &str) -> Result<Expr, SqlError> {
 fn bind_expr(d: &dyn Dialect, b: &Bind) -> Result<Expr, SqlError> {
     Ok(match b {
         Bind::Column(c) => Expr::Identifier(Ident::with_quote(d.quote(), c.clone())),
-        Bind::Number(x) => number(*x, "a pass")?,
+        Bind::Number(x) => match number(*x, "a pass")? {
+            Expr::Value(v) => match v.value {
+                Value::Number(s, l) => Expr::value(Value::Number(d.float_literal(s), l)),
+                other => Expr::value(other),
+            },
+            e => e,
+        },
         Bind::Integer(i) => Expr::value(Value::Number(i.to_string(), false)),
         Bind::Text(t) => Expr::value(Value::SingleQuotedString(t.clone())),
     })
@@ -122,7 +129,19 @@ fn place_in_body(body: &mut SetExpr, source: &Source, d: &dyn Dialect) -> Result
                         let alias = alias.take();
                         twj.relation = source.relation(d, alias)?;
                     }
-                    TableFactor::Derived { subquery, .. } => place_source(subquery, source, d)?,
+                    TableFactor::Derived { subquery, .. } => {
+                        if d.fences_subqueries() && subquery.limit_clause.is_none() {
+                            subquery.limit_clause = Some(LimitClause::LimitOffset {
+                                limit: None,
+                                offset: Some(Offset {
+                                    value: Expr::value(Value::Number("0".into(), false)),
+                                    rows: OffsetRows::None,
+                                }),
+                                limit_by: vec![],
+                            });
+                        }
+                        place_source(subquery, source, d)?
+                    }
                     _ => {}
                 }
             }

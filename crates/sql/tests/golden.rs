@@ -11,16 +11,18 @@ use sqlparser::parser::Parser;
 use std::path::PathBuf;
 use upshot_sql::{
     cells, gram, levels, logistic_fits, parse_filter, profile, residuals, Design, DesignTerm,
-    DuckDb, Flavor, Models, Pass, Postgres, ProfileColumn, Source, SqlError, Variants, DIALECTS,
+    DuckDb, Flavor, Models, Pass, Postgres, ProfileColumn, Source, Spark, SqlError, Variants,
+    DIALECTS,
 };
 
 /// The renderings with golden files: DuckDB as upshot opens it (with its functions), DuckDB
-/// without them, PostgreSQL.
-fn flavors() -> [(&'static str, Flavor); 3] {
+/// without them, PostgreSQL, Spark SQL.
+fn flavors() -> [(&'static str, Flavor); 4] {
     [
         ("duckdb", Flavor::duckdb()),
         ("duckdb-plain", Flavor::plain(&DuckDb)),
         ("postgres", Flavor::plain(&Postgres)),
+        ("spark", Flavor::plain(&Spark)),
     ]
 }
 
@@ -258,7 +260,7 @@ fn user_sql_must_be_one_select_or_one_expression() {
     .is_ok());
     // Data-modifying statements are refused anywhere in a source query, before any engine
     // sees it: in a WITH clause, in a derived table, in a subquery.
-    for p in [&DuckDb as &dyn upshot_sql::Dialect, &Postgres] {
+    for p in [&DuckDb as &dyn upshot_sql::Dialect, &Postgres, &Spark] {
         for sql in [
             "WITH gone AS (DELETE FROM customers RETURNING *) SELECT * FROM gone",
             "WITH a AS (SELECT 1 AS v), b AS (UPDATE customers SET voucher = 1 RETURNING *) SELECT * FROM a",
@@ -351,8 +353,10 @@ fn results_schema_file_is_current_and_statements_quote_the_name() {
         let parsed = Parser::parse_sql(d.parser().as_ref(), &want).unwrap();
         assert_eq!(parsed.len(), 1);
         let s = upshot_sql::results_sql(d, "analytics.effect results").unwrap();
+        let q = d.quote();
         assert!(
-            s.create.contains("\"analytics\".\"effect results\""),
+            s.create
+                .contains(&format!("{q}analytics{q}.{q}effect results{q}")),
             "{}",
             s.create
         );
