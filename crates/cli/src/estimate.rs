@@ -123,8 +123,34 @@ fn request_of(a: &Args) -> Result<Request, Failure> {
 
 /// `upshot plan`.
 pub fn run_plan(a: Args) -> Result<i32, Failure> {
+    if a.into.is_some() || a.run_key.is_some() {
+        return Err(Failure::input(
+            "--into and --run-key belong to `upshot run`; `plan` writes nothing",
+        ));
+    }
+    if a.timeout.is_some() {
+        return Err(Failure::input(
+            "--timeout belongs to `upshot run`; `plan` runs nothing",
+        ));
+    }
+    let json = match a.format.as_str() {
+        "text" => false,
+        "json" => true,
+        f => {
+            return Err(Failure::input(format!(
+                "--format: unknown format `{f}` for plan; expected text or json"
+            )))
+        }
+    };
+    let request = request_of(&a)?;
+    let study = request.study("plan")?;
     let d: &'static dyn Dialect = match a.dialect.as_deref() {
-        None => &upshot_sql::DuckDb,
+        // Without --dialect: the dialect of the engine `run` would open (--db, or the study's).
+        None => {
+            upshot_core::connector(ENGINES, &upshot_core::database_of(&study))
+                .map_err(|e| Failure::input(format!("--db: {e}")))?
+                .dialect()
+        }
         Some("duckdb-plain") => {
             return Err(Failure::input(
                 "--dialect: `duckdb-plain` is now `--dialect duckdb --portable` (upshot's functions are a fact about the database, not a dialect)",
@@ -147,27 +173,6 @@ pub fn run_plan(a: Args) -> Result<i32, Failure> {
     } else {
         Flavor::plain(d)
     };
-    if a.into.is_some() || a.run_key.is_some() {
-        return Err(Failure::input(
-            "--into and --run-key belong to `upshot run`; `plan` writes nothing",
-        ));
-    }
-    if a.timeout.is_some() {
-        return Err(Failure::input(
-            "--timeout belongs to `upshot run`; `plan` runs nothing",
-        ));
-    }
-    let json = match a.format.as_str() {
-        "text" => false,
-        "json" => true,
-        f => {
-            return Err(Failure::input(format!(
-                "--format: unknown format `{f}` for plan; expected text or json"
-            )))
-        }
-    };
-    let request = request_of(&a)?;
-    let study = request.study("plan")?;
     let resolved =
         upshot_core::resolve(&study, a.question.as_deref(), &request.settings()?, flavor)?;
     let plans = resolved

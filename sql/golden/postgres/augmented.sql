@@ -109,10 +109,10 @@ FROM
                 FROM
                   "customers" AS src
                 WHERE
-                  true AND "tenure_band" IS NOT NULL AND "prior orders" IS NOT NULL AND "voucher" IS NOT NULL AND "spend_30d" IS NOT NULL AND "customer_id" IS NOT NULL
-              ) AS rows_
-          ) AS linear_
-      ) AS nuisance_
+                  true AND "tenure_band" IS NOT NULL AND "prior orders" IS NOT NULL AND "voucher" IS NOT NULL AND "spend_30d" IS NOT NULL AND "customer_id" IS NOT NULL OFFSET 0
+              ) AS rows_ OFFSET 0
+          ) AS linear_ OFFSET 0
+      ) AS nuisance_ OFFSET 0
   ) AS scores_
 GROUP BY
   k0 ORDER BY k0

@@ -20,7 +20,7 @@ FROM
     FROM
       "main"."order lines" AS src
     WHERE
-      ("zone" <> 'Old Town' AND prior_orders >= 0) AND "voucher" IS NOT NULL AND "prior_orders" IS NOT NULL AND "zone" IS NOT NULL AND "say ""hi""" IS NOT NULL
+      ("zone" <> 'Old Town' AND prior_orders >= 0) AND "voucher" IS NOT NULL AND "prior_orders" IS NOT NULL AND "zone" IS NOT NULL AND "say ""hi""" IS NOT NULL OFFSET 0
   ) AS rows_
 GROUP BY
   k0 ORDER BY k0

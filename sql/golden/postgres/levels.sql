@@ -30,5 +30,5 @@ FROM
     WHERE
       true AND "zone" IS NOT NULL AND "mail wave" IS NOT NULL AND "voucher" IS NOT NULL AND "tenure_band" IS NOT NULL
     GROUP BY
-      "mail wave", "tenure_band"
+      "mail wave", "tenure_band" OFFSET 0
   ) AS levels_ ORDER BY which, level, b0

@@ -70,9 +70,9 @@ FROM
             FROM
               "customers" AS src
             WHERE
-              true AND "tenure_band" IS NOT NULL AND "prior orders" IS NOT NULL AND "voucher" IS NOT NULL AND "spend_30d" IS NOT NULL AND "customer_id" IS NOT NULL
-          ) AS rows_
-      ) AS linear_
+              true AND "tenure_band" IS NOT NULL AND "prior orders" IS NOT NULL AND "voucher" IS NOT NULL AND "spend_30d" IS NOT NULL AND "customer_id" IS NOT NULL OFFSET 0
+          ) AS rows_ OFFSET 0
+      ) AS linear_ OFFSET 0
   ) AS fitted_
 GROUP BY
   k0, f ORDER BY k0, f

@@ -36,7 +36,7 @@ FROM
             FROM
               "main"."order lines" AS src
             WHERE
-              true AND "prior_orders" IS NOT NULL AND "zone" IS NOT NULL AND "voucher" IS NOT NULL
-          ) AS rows_
-      ) AS linear_
+              true AND "prior_orders" IS NOT NULL AND "zone" IS NOT NULL AND "voucher" IS NOT NULL OFFSET 0
+          ) AS rows_ OFFSET 0
+      ) AS linear_ OFFSET 0
   ) AS fitted_

@@ -24,8 +24,8 @@ FROM
         FROM
           "customers" AS src
         WHERE
-          true AND "tenure_band" IS NOT NULL AND "prior orders" IS NOT NULL AND "voucher" IS NOT NULL AND "spend_30d" IS NOT NULL AND "customer_id" IS NOT NULL
-      ) AS rows_
+          true AND "tenure_band" IS NOT NULL AND "prior orders" IS NOT NULL AND "voucher" IS NOT NULL AND "spend_30d" IS NOT NULL AND "customer_id" IS NOT NULL OFFSET 0
+      ) AS rows_ OFFSET 0
   ) AS residuals_
 GROUP BY
   k0 ORDER BY k0

@@ -18,8 +18,8 @@ FROM
         FROM
           "main"."order lines" AS src
         WHERE
-          true AND "tenure_band" IS NOT NULL AND "app_sessions" IS NOT NULL AND "spend_30d" IS NOT NULL
-      ) AS rows_
+          true AND "tenure_band" IS NOT NULL AND "app_sessions" IS NOT NULL AND "spend_30d" IS NOT NULL OFFSET 0
+      ) AS rows_ OFFSET 0
   ) AS residuals_
 GROUP BY
   k0 ORDER BY k0
