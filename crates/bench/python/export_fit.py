@@ -7,12 +7,17 @@ peak resident memory and the overall estimate. The formulas are upshot's (docs/m
 the same folds (the arithmetic hash of upshot_sql::fold_of), propensity clip 0.01, and segment
 combination, so the estimate is comparable with upshot's.
 
-Usage: export_fit.py --db FILE --methods METHOD --p 8|32 --segments off|on
+With `--postgres LOCATOR --table T` the rows come out of PostgreSQL instead, the way users do it
+today: `COPY (SELECT ...) TO STDOUT` through psql, read by pandas.
+
+Usage: export_fit.py (--db FILE | --postgres LOCATOR --table T) --methods METHOD --p 8|32 --segments off|on
 """
 
 import argparse
+import io
 import json
 import resource
+import subprocess
 import time
 
 import duckdb
@@ -124,7 +129,9 @@ def partial_out_residuals(g, numeric):
 
 def main():
     ap = argparse.ArgumentParser()
-    ap.add_argument("--db", required=True)
+    ap.add_argument("--db")
+    ap.add_argument("--postgres")
+    ap.add_argument("--table", default="customers")
     ap.add_argument("--methods", required=True)
     ap.add_argument("--p", type=int, default=8)
     ap.add_argument("--segments", default="off")
@@ -133,10 +140,15 @@ def main():
     numeric = ["household_size", "prior_orders", "mail_wave"]
     if a.p > 8:
         numeric += ["x%02d" % (k + 1) for k in range(24)]
-    con = duckdb.connect(a.db, read_only=True)
-    df = con.execute(
-        "SELECT customer_id, region, zone, voucher, spend_30d, " + ", ".join(numeric) + " FROM customers"
-    ).df()
+    query = "SELECT customer_id, region, zone, voucher, spend_30d, " + ", ".join(numeric) + " FROM " + a.table
+    if a.postgres:
+        out = subprocess.run(["psql", a.postgres, "-q", "-v", "ON_ERROR_STOP=1", "-c",
+                              f"\\copy ({query}) TO STDOUT WITH (FORMAT csv, HEADER true)"],
+                             check=True, capture_output=True).stdout
+        df = pd.read_csv(io.BytesIO(out))
+    else:
+        con = duckdb.connect(a.db, read_only=True)
+        df = con.execute(query).df()
     df["fold"] = fold_of(df["customer_id"].to_numpy().astype(np.int64))
     groups = [g for _, g in df.groupby("region")] if a.segments == "on" else [df]
     m = a.methods

@@ -32,6 +32,7 @@
 
 mod data;
 mod diagrams;
+mod engines;
 mod memfit;
 mod scan;
 mod work;
@@ -89,6 +90,11 @@ struct Args {
     /// against the 2 s target for 1,000 variables; exit 1 when a target is missed.
     #[arg(long)]
     diagrams: bool,
+    /// Measure on a PostgreSQL (`postgresql://...`) or Spark Connect (`sc://...`) server instead
+    /// of embedded DuckDB: the scan limit and upshot per method there (and, on PostgreSQL with
+    /// --python, exporting with COPY ... TO STDOUT and fitting in Python).
+    #[arg(long)]
+    engine: Option<String>,
     /// Internal: measure one approach in this process and print JSON.
     #[arg(long, hide = true)]
     measure: Option<String>,
@@ -131,6 +137,22 @@ fn main() {
             Ok(false) => std::process::exit(1),
             Err(e) => fail(e),
         }
+    }
+    if let Some(locator) = &args.engine {
+        let works = works(&args);
+        let data = args.data.clone().unwrap_or_else(|| args.out.join("data"));
+        if let Err(e) = engines::run(
+            locator,
+            &args.rows,
+            &works,
+            args.repeat,
+            &data,
+            args.python.as_deref(),
+            &args.out,
+        ) {
+            fail(format!("--engine: {e}"));
+        }
+        return;
     }
     run(&args);
 }
@@ -385,7 +407,8 @@ fn scan_target(m: Method) -> f64 {
     }
 }
 
-fn run(args: &Args) {
+/// The measurements asked for: method × width × segmentation (stratify has one width).
+fn works(args: &Args) -> Vec<Work> {
     let methods: Vec<Method> = if args.methods.is_empty() {
         work::METHODS.to_vec()
     } else {
@@ -413,22 +436,6 @@ fn run(args: &Args) {
             o => fail(format!("--segments {o}: off or on")),
         }
     }
-    if let Some(py) = &args.python {
-        let ok = Command::new(py)
-            .args(["-c", "import duckdb, pandas, statsmodels"])
-            .output()
-            .map(|o| o.status.success())
-            .unwrap_or(false);
-        if !ok {
-            fail(format!("--python {}: needs the duckdb, pandas and statsmodels packages (tests/reference/requirements.txt)", py.display()));
-        }
-    }
-    let data_dir = args.data.clone().unwrap_or_else(|| {
-        let home = std::env::var_os("HOME")
-            .map(PathBuf::from)
-            .unwrap_or_else(std::env::temp_dir);
-        home.join(".cache/upshot-bench")
-    });
     let mut works: Vec<Work> = Vec::new();
     for &method in &methods {
         for &segments in &segs {
@@ -449,6 +456,27 @@ fn run(args: &Args) {
             }
         }
     }
+    works
+}
+
+fn run(args: &Args) {
+    let works = works(args);
+    if let Some(py) = &args.python {
+        let ok = Command::new(py)
+            .args(["-c", "import duckdb, pandas, statsmodels"])
+            .output()
+            .map(|o| o.status.success())
+            .unwrap_or(false);
+        if !ok {
+            fail(format!("--python {}: needs the duckdb, pandas and statsmodels packages (tests/reference/requirements.txt)", py.display()));
+        }
+    }
+    let data_dir = args.data.clone().unwrap_or_else(|| {
+        let home = std::env::var_os("HOME")
+            .map(PathBuf::from)
+            .unwrap_or_else(std::env::temp_dir);
+        home.join(".cache/upshot-bench")
+    });
     let started = Instant::now();
     let mut rows_out: Vec<Row> = Vec::new();
     for &n in &args.rows {

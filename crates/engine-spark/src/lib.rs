@@ -319,6 +319,12 @@ impl SparkEngine {
         self.execute(sql, args).map_err(|f| f.into_engine("setup"))
     }
 
+    /// Runs a query of upshot's own (tests, the benchmark) and returns its rows; never user
+    /// text.
+    pub fn select(&self, sql: &str) -> Result<Aggregates, EngineError> {
+        self.query("setup", sql)
+    }
+
     fn query(&self, pass: &str, sql: &str) -> Result<Aggregates, EngineError> {
         let failed = |message: String| EngineError::Query {
             pass: pass.to_string(),
