@@ -1299,3 +1299,43 @@ fn weak_spots_get_specific_answers() {
     );
     drop(held);
 }
+
+#[test]
+fn a_pass_past_the_timeout_is_cancelled_and_nothing_is_written() {
+    // A source whose rows multiply (5,000 × 4,000) makes every pass slow; DuckDB's query is
+    // interrupted after one second, the run fails with exit 1 and --into writes nothing.
+    let db = scratch("timeout");
+    let db = db.to_str().unwrap();
+    let slow = "SELECT c.* FROM customers AS c CROSS JOIN (SELECT 1 AS one FROM customers LIMIT 4000) AS r";
+    let started = std::time::Instant::now();
+    let out = upshot(&[
+        "run",
+        "demo-data/voucher-backdoor.toml",
+        "--question",
+        "spend",
+        "--db",
+        db,
+        "--source",
+        slow,
+        "--timeout",
+        "1",
+        "--into",
+        "timed_out",
+    ]);
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(1), "{err}");
+    assert!(err.contains("cancelled after 1 s (--timeout 1)"), "{err}");
+    assert!(out.stdout.is_empty());
+    assert!(started.elapsed().as_secs() < 60, "{:?}", started.elapsed());
+    let e = DuckDbEngine::open(db, false).unwrap();
+    assert_eq!(
+        e.query_number(
+            "SELECT COUNT(*) FROM information_schema.tables WHERE table_name = 'timed_out'"
+        )
+        .unwrap(),
+        0.0
+    );
+    let zero = upshot(&["run", "demo-data/voucher-backdoor.toml", "--timeout", "0"]);
+    assert_eq!(zero.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&zero.stderr).contains("--timeout"));
+}
