@@ -16,7 +16,10 @@ upshot_sql and run by DuckDB on a CSV file, then finished by upshot_fit).
    coefficients to a relative 1e-8, standard errors (inverse information) to 1e-6,
    log-likelihood to 1e-10. Perfectly separated data must be refused, naming the column.
 
-Usage: fit_statsmodels.py PATH/TO/fit-cases
+With `--postgres LOCATOR`, the in-database checks run a third time with every pass in PostgreSQL
+(fit-cases loads the CSV's columns into a table there: UPSHOT_FIT_DB).
+
+Usage: fit_statsmodels.py PATH/TO/fit-cases [--postgres postgresql://...]
 """
 import json
 import math
@@ -55,6 +58,8 @@ def check(ok, what):
 
 MODES = [[], ["--in-db"]]
 MODE = []
+POSTGRES = None  # with --postgres LOCATOR: a third pass, the in-database path on PostgreSQL
+ENV = None
 
 
 def run(binary, frame, outcome, covariates, logistic=False):
@@ -63,7 +68,8 @@ def run(binary, frame, outcome, covariates, logistic=False):
         path = f.name
     try:
         flags = MODE + (["--logit"] if logistic else [])
-        out = subprocess.run([binary, *flags, path, outcome, *covariates], check=True, capture_output=True, text=True)
+        out = subprocess.run([binary, *flags, path, outcome, *covariates], check=True, capture_output=True, text=True,
+                             env=ENV)
     finally:
         os.unlink(path)
     return json.loads(out.stdout)
@@ -89,9 +95,14 @@ def compare_statsmodels(binary, frame, outcome, covariates, label):
 
 
 def main(binary):
-    global MODE
-    for MODE in MODES:
-        print("== " + ("in-database path (DuckDB)" if MODE else "finisher on in-memory sums"))
+    global MODE, ENV
+    plain = {k: v for k, v in os.environ.items() if k != "UPSHOT_FIT_DB"}
+    runs = [(m, plain, "in-database path (DuckDB)" if m else "finisher on in-memory sums") for m in MODES]
+    if POSTGRES:
+        runs.append((["--in-db"], {**plain, "UPSHOT_FIT_DB": POSTGRES},
+                     "in-database path (PostgreSQL: the CSV's columns loaded into a table there)"))
+    for MODE, ENV, label in runs:
+        print("== " + label)
         checks(binary)
     print(f"{passed} passed, {failed} failed")
     return 1 if failed else 0
@@ -135,4 +146,6 @@ def checks(binary):
 
 
 if __name__ == "__main__":
+    if len(sys.argv) > 3 and sys.argv[2] == "--postgres":
+        POSTGRES = sys.argv[3]
     sys.exit(main(sys.argv[1]))

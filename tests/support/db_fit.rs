@@ -1,11 +1,13 @@
 //! The in-database path of the reference checks: profile, Gram, residual and logistic passes
-//! built by `upshot_sql`, run by DuckDB on a CSV source, finished by `upshot_fit`. Only the
-//! aggregates leave the database.
+//! built by `upshot_sql`, run by DuckDB on a CSV source — or, with `UPSHOT_FIT_DB` set to a
+//! `postgresql://` locator, by PostgreSQL on a table loaded from the CSV's columns —, finished by
+//! `upshot_fit`. Only the aggregates leave the database.
 
 use nalgebra::{DMatrix, DVector};
 use serde_json::{json, Value};
-use upshot_engine::Engine;
+use upshot_engine::{Access, Engine};
 use upshot_engine_duckdb::{DuckDbEngine, MEMORY};
+use upshot_engine_postgres::PostgresEngine;
 use upshot_fit::{logit, ols, LogitSums, Moments, NewtonOptions};
 use upshot_sql::{
     gram, logistic_fits, profile, residuals, Design, DesignTerm, Models, ProfileColumn, Source,
@@ -19,12 +21,79 @@ fn fail(msg: String) -> ! {
 
 /// Least squares (`logistic = false`) or logistic regression of `outcome` on `covariates`.
 pub fn fit(path: &str, outcome: &str, covariates: &[String], logistic: bool) -> Value {
-    let e = DuckDbEngine::open(MEMORY, false).unwrap_or_else(|e| fail(e.to_string()));
-    let d = e.flavor();
-    let d = &d;
-    let src = Source::Csv(path.to_string());
     let mut cols: Vec<String> = covariates.to_vec();
     cols.push(outcome.to_string());
+    match std::env::var("UPSHOT_FIT_DB") {
+        Ok(locator) => {
+            let pg = PostgresEngine::connect(&locator, Access::ReadWrite)
+                .unwrap_or_else(|e| fail(e.to_string()));
+            let table = format!("fit_case_{}", std::process::id());
+            load(&pg, path, &cols, &table);
+            let src = Source::table(&table).unwrap_or_else(|e| fail(e.to_string()));
+            let v = fit_on(&pg, &src, outcome, covariates, &cols, logistic);
+            let _ = pg.execute_batch(&format!("DROP TABLE {table}"));
+            v
+        }
+        Err(_) => {
+            let e = DuckDbEngine::open(MEMORY, false).unwrap_or_else(|e| fail(e.to_string()));
+            let src = Source::Csv(path.to_string());
+            fit_on(&e, &src, outcome, covariates, &cols, logistic)
+        }
+    }
+}
+
+/// Loads the columns `cols` of the CSV at `path` (numbers, written with 17 significant digits)
+/// into a new PostgreSQL table of DOUBLE PRECISION columns; the statements are the test's own.
+fn load(pg: &PostgresEngine, path: &str, cols: &[String], table: &str) {
+    let text = std::fs::read_to_string(path).unwrap_or_else(|e| fail(format!("{path}: {e}")));
+    let mut lines = text.lines();
+    let header: Vec<&str> = lines.next().unwrap_or_default().split(',').collect();
+    let idx: Vec<usize> = cols
+        .iter()
+        .map(|c| {
+            header
+                .iter()
+                .position(|h| h == c)
+                .unwrap_or_else(|| fail(format!("no column `{c}`")))
+        })
+        .collect();
+    let mut values = Vec::new();
+    for line in lines.filter(|l| !l.trim().is_empty()) {
+        let fields: Vec<&str> = line.split(',').collect();
+        let row: Vec<String> = idx
+            .iter()
+            .map(|&i| {
+                let x: f64 = fields[i]
+                    .parse()
+                    .unwrap_or_else(|_| fail(format!("not a number: {}", fields[i])));
+                format!("{x:?}::float8")
+            })
+            .collect();
+        values.push(format!("({})", row.join(", ")));
+    }
+    let defs: Vec<String> = cols
+        .iter()
+        .map(|c| format!("\"{}\" DOUBLE PRECISION", c.replace('"', "\"\"")))
+        .collect();
+    pg.execute_batch(&format!(
+        "DROP TABLE IF EXISTS {table}; CREATE TABLE {table} ({}); INSERT INTO {table} VALUES {}",
+        defs.join(", "),
+        values.join(", ")
+    ))
+    .unwrap_or_else(|e| fail(e.to_string()));
+}
+
+fn fit_on(
+    e: &dyn Engine,
+    src: &Source,
+    outcome: &str,
+    covariates: &[String],
+    cols: &[String],
+    logistic: bool,
+) -> Value {
+    let d = e.flavor();
+    let d = &d;
+    let src = src.clone();
     let k = cols.len();
     let pc: Vec<ProfileColumn> = cols
         .iter()
@@ -130,7 +199,7 @@ pub fn fit(path: &str, outcome: &str, covariates: &[String], logistic: bool) -> 
             upper.push(num(&g, &format!("g{i}_{j}")));
         }
     }
-    let m = Moments::from_upper(cols.clone(), num(&g, "n"), centre, scale, sum, &upper)
+    let m = Moments::from_upper(cols.to_vec(), num(&g, "n"), centre, scale, sum, &upper)
         .unwrap_or_else(|e| fail(e.to_string()));
     let x: Vec<usize> = (0..k - 1).collect();
     match ols(&m, k - 1, &x) {
