@@ -262,13 +262,18 @@ pub fn run_run(a: Args) -> Result<i32, Failure> {
     } else {
         Access::ReadOnly
     };
+    let whence = if a.db.is_some() {
+        "--db"
+    } else {
+        "[source] database"
+    };
     let engine = connector
         .connect(&locator, access, &upshot_core::files_of(&study))
-        .map_err(crate::exit::opening)?;
+        .map_err(|e| crate::exit::opening(whence, e))?;
     if let Some(seconds) = a.timeout {
         engine
             .limit_time(std::time::Duration::from_secs(seconds))
-            .map_err(crate::exit::opening)?;
+            .map_err(|e| crate::exit::opening(whence, e))?;
     }
     if let Some(table) = &a.into {
         upshot_core::check_results_table(engine.as_ref(), table)?;

@@ -70,11 +70,12 @@ pub fn emit(text: &str) -> Result<(), Failure> {
         .map_err(|e| Failure::internal(format!("cannot write the output: {e}")))
 }
 
-/// A failure to open the database: busy (a lock held by another process) is a retryable
-/// failure (exit 1), anything else bad input (exit 2).
-pub fn opening(e: upshot_core::EngineError) -> Failure {
+/// A failure to open the database named by `whence` (`--db`, or the study's `[source]
+/// database`): busy (a lock held by another process) is a retryable failure (exit 1),
+/// anything else bad input (exit 2).
+pub fn opening(whence: &str, e: upshot_core::EngineError) -> Failure {
     match e {
-        upshot_core::EngineError::Busy { .. } => Failure::internal(format!("--db: {e}")),
-        other => Failure::input(format!("--db: {other}")),
+        upshot_core::EngineError::Busy { .. } => Failure::internal(format!("{whence}: {e}")),
+        other => Failure::input(format!("{whence}: {other}")),
     }
 }
