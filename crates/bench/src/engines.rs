@@ -16,14 +16,14 @@
 //! result. Writes `engine-<kind>.json` under `--out`.
 
 use crate::scan;
-use crate::work::{self, Work};
+use crate::work::Work;
 use serde_json::{json, Value};
 use std::path::Path;
 use std::time::Instant;
 use upshot_engine::{Access, Engine};
 use upshot_engine_postgres::PostgresEngine;
 use upshot_engine_spark::SparkEngine;
-use upshot_methods::{estimate, Basis, ColumnType, Estimand, NullPolicy, Spec};
+use upshot_methods::estimate;
 
 /// A server the benchmark runs on.
 enum Server {
@@ -161,41 +161,7 @@ fn upshot_once(server: &Server, w: &Work, table: &str) -> Result<(f64, usize, f6
     let engine = server.engine();
     let start = Instant::now();
     let source = upshot_sql::Source::table(table).map_err(|e| e.to_string())?;
-    let columns: Vec<ColumnType> = engine
-        .columns(&source)
-        .map_err(|e| e.to_string())?
-        .into_iter()
-        .map(|c| ColumnType {
-            name: c.name,
-            type_name: c.type_name,
-            numeric: c.numeric,
-            integer: c.integer,
-            boolean: c.boolean,
-        })
-        .collect();
-    let spec = Spec {
-        flavor: engine.flavor(),
-        question: "bench".into(),
-        source,
-        filter: None,
-        treatment: "voucher".into(),
-        outcome: "spend_30d".into(),
-        adjust: w.adjust(),
-        segments: if w.segments {
-            vec!["region".into()]
-        } else {
-            vec![]
-        },
-        estimand: Estimand::Ate,
-        method: w.method,
-        folds: w.folds(),
-        unit: Some("customer_id".into()),
-        on_null: NullPolicy::Exclude,
-        clip: work::CLIP,
-        categorical: vec!["zone".into(), "region".into()],
-        basis: Basis::default(),
-        columns: Some(columns),
-    };
+    let spec = w.spec(engine, engine.flavor(), source)?;
     let mut runner = |p: &upshot_sql::Pass| engine.run(p).map_err(|e| e.to_string());
     let out = estimate(&spec, &mut runner).map_err(|e| e.to_string())?;
     let all = out

@@ -45,7 +45,7 @@ use std::process::Command;
 use std::time::Instant;
 use upshot_engine::Engine;
 use upshot_engine_duckdb::DuckDbEngine;
-use upshot_methods::{estimate, Basis, ColumnType, Estimand, Method, NullPolicy, Spec};
+use upshot_methods::{estimate, Method};
 use work::Work;
 
 #[derive(Parser, Debug)]
@@ -215,46 +215,12 @@ fn measure(approach: &str, db: &Path, w: &Work) -> Result<Value, String> {
             let location = db.to_str().ok_or("database path is not UTF-8")?;
             let engine = DuckDbEngine::open(location, false).map_err(|e| e.to_string())?;
             let source = upshot_sql::Source::table("customers").map_err(|e| e.to_string())?;
-            let columns: Vec<ColumnType> = engine
-                .columns(&source)
-                .map_err(|e| e.to_string())?
-                .into_iter()
-                .map(|c| ColumnType {
-                    name: c.name,
-                    type_name: c.type_name,
-                    numeric: c.numeric,
-                    integer: c.integer,
-                    boolean: c.boolean,
-                })
-                .collect();
             let flavor = if approach == "upshot" {
                 engine.flavor()
             } else {
                 upshot_sql::Flavor::plain(engine.dialect())
             };
-            let spec = Spec {
-                flavor,
-                question: "bench".into(),
-                source,
-                filter: None,
-                treatment: "voucher".into(),
-                outcome: "spend_30d".into(),
-                adjust: w.adjust(),
-                segments: if w.segments {
-                    vec!["region".into()]
-                } else {
-                    vec![]
-                },
-                estimand: Estimand::Ate,
-                method: w.method,
-                folds: w.folds(),
-                unit: Some("customer_id".into()),
-                on_null: NullPolicy::Exclude,
-                clip: work::CLIP,
-                categorical: vec!["zone".into(), "region".into()],
-                basis: Basis::default(),
-                columns: Some(columns),
-            };
+            let spec = w.spec(&engine, flavor, source)?;
             let mut times: Vec<(String, f64)> = Vec::new();
             // UPSHOT_BENCH_DUMP=DIR writes each pass's SQL there, for study by hand.
             let dump = std::env::var_os("UPSHOT_BENCH_DUMP").map(PathBuf::from);

@@ -81,6 +81,51 @@ impl Work {
         }
     }
 
+    /// The estimation request of this workload on `source`, for any engine: the columns as the
+    /// engine reports them, the flavor the passes are built for.
+    pub fn spec(
+        &self,
+        engine: &dyn upshot_engine::Engine,
+        flavor: upshot_sql::Flavor,
+        source: upshot_sql::Source,
+    ) -> Result<upshot_methods::Spec, String> {
+        let columns = engine
+            .columns(&source)
+            .map_err(|e| e.to_string())?
+            .into_iter()
+            .map(|c| upshot_methods::ColumnType {
+                name: c.name,
+                type_name: c.type_name,
+                numeric: c.numeric,
+                integer: c.integer,
+                boolean: c.boolean,
+            })
+            .collect();
+        Ok(upshot_methods::Spec {
+            flavor,
+            question: "bench".into(),
+            source,
+            filter: None,
+            treatment: "voucher".into(),
+            outcome: "spend_30d".into(),
+            adjust: self.adjust(),
+            segments: if self.segments {
+                vec!["region".into()]
+            } else {
+                vec![]
+            },
+            estimand: upshot_methods::Estimand::Ate,
+            method: self.method,
+            folds: self.folds(),
+            unit: Some("customer_id".into()),
+            on_null: upshot_methods::NullPolicy::Exclude,
+            clip: CLIP,
+            categorical: vec!["zone".into(), "region".into()],
+            basis: upshot_methods::Basis::default(),
+            columns: Some(columns),
+        })
+    }
+
     /// A short label: `regress p=8 seg`.
     pub fn label(&self) -> String {
         let p = if self.method == Method::Stratify {
