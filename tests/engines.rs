@@ -7,8 +7,11 @@
 //!
 //! The servers come from `scripts/test` (scripts/postgres, scripts/spark), which sets
 //! `UPSHOT_TEST_POSTGRES` (a `postgresql://` locator of a superuser on a throwaway cluster)
-//! and `UPSHOT_TEST_SPARK` (an `sc://` locator). Without them the tests say so and pass:
-//! `cargo test` alone needs no server.
+//! and `UPSHOT_TEST_SPARK` (an `sc://` locator naming the token variable,
+//! `UPSHOT_TEST_SPARK_TOKEN`: the server asks for a bearer token), plus
+//! `UPSHOT_TEST_SPARK_TLS` (the same server behind a TLS front) and `UPSHOT_TEST_SPARK_CA`
+//! (the throwaway CA that signed the front's certificate). Without them the tests say so and
+//! pass: `cargo test` alone needs no server.
 
 use serde_json::Value;
 use std::path::{Path, PathBuf};
@@ -521,6 +524,80 @@ fn spark_into_twice_with_one_key_keeps_one_copy() {
     assert_eq!(count("SELECT COUNT(*) FROM effects"), 8);
 }
 
+/// The same server behind a TLS front whose certificate a throwaway CA signed: trusted
+/// through `SSL_CERT_FILE`, the estimates equal DuckDB's; without it, the certificate is
+/// refused; plaintext to the TLS port and TLS to the plaintext port fail with a hint.
+#[test]
+fn spark_over_tls_with_a_token() {
+    let Some((locator, _spark)) = spark() else {
+        return;
+    };
+    let (Ok(tls), Ok(ca)) = (
+        std::env::var("UPSHOT_TEST_SPARK_TLS"),
+        std::env::var("UPSHOT_TEST_SPARK_CA"),
+    ) else {
+        eprintln!("skipped: UPSHOT_TEST_SPARK_TLS / UPSHOT_TEST_SPARK_CA are not set");
+        return;
+    };
+    let f = fixture();
+    let study = f.study.to_str().unwrap();
+    // One question (per segment: the weighting passes) is enough to cross the TLS front; the
+    // plaintext test runs them all.
+    let question = "weight-ATE-by-tenure";
+    let go = |db: &str, env: &[(&str, &str)]| {
+        run(
+            &[
+                "run",
+                study,
+                "--db",
+                db,
+                "--source",
+                "customers",
+                "--question",
+                question,
+                "--format",
+                "json",
+            ],
+            env,
+        )
+    };
+    let got = ok(&go(&tls, &[("SSL_CERT_FILE", &ca)]), "Spark over TLS");
+    let mut want = f.duckdb.clone();
+    want["estimates"]
+        .as_array_mut()
+        .unwrap()
+        .retain(|e| e["question"] == question);
+    let worst = agree("Spark over TLS", &want, &got);
+    eprintln!(
+        "Spark over TLS with a token: {} estimates agree with DuckDB's (worst relative gap {worst:.1e})",
+        got["estimates"].as_array().unwrap().len()
+    );
+    // An empty CA file: the front's certificate is from an issuer nobody trusts.
+    let empty = std::env::temp_dir().join(format!("upshot-empty-ca-{}.pem", std::process::id()));
+    std::fs::write(&empty, "").unwrap();
+    refused(
+        &go(&tls, &[("SSL_CERT_FILE", empty.to_str().unwrap())]),
+        2,
+        &["certificate", "SSL_CERT_FILE"],
+        "untrusted certificate",
+    );
+    std::fs::remove_file(&empty).unwrap();
+    let plain_to_tls = tls.replace(";use_ssl=true", "");
+    refused(
+        &go(&plain_to_tls, &[]),
+        2,
+        &["use_ssl=true"],
+        "plaintext to the TLS port",
+    );
+    let tls_to_plain = format!("{locator};use_ssl=true");
+    refused(
+        &go(&tls_to_plain, &[("SSL_CERT_FILE", &ca)]),
+        2,
+        &["unreachable", "TLS"],
+        "TLS to the plaintext port",
+    );
+}
+
 #[test]
 fn spark_bad_inputs_are_refused() {
     let Some((locator, _spark)) = spark() else {
@@ -545,9 +622,56 @@ fn spark_bad_inputs_are_refused() {
         &["--db", "unreachable"],
         "unreachable",
     );
-    let out = go(&format!("{locator}/;token=abc123"), "customers", &[]);
-    refused(&out, 2, &["token"], "token in the locator");
+    let base = locator.split("/;").next().unwrap();
+    let out = go(&format!("{base}/;token=abc123"), "customers", &[]);
+    refused(&out, 2, &["token", "token_env"], "token in the locator");
     assert!(!String::from_utf8_lossy(&out.stderr).contains("abc123"));
+    refused(
+        &go(base, "customers", &[]),
+        2,
+        &["refused the credentials", "No authentication token"],
+        "no token",
+    );
+    let wrong = run(
+        &[
+            "run",
+            study,
+            "--db",
+            &format!("{base}/;token_env=UPSHOT_WRONG_TOKEN"),
+            "--source",
+            "customers",
+            "--question",
+            "regress-ATE",
+        ],
+        &[("UPSHOT_WRONG_TOKEN", "not-the-token")],
+    );
+    refused(
+        &wrong,
+        2,
+        &["refused the credentials", "Invalid authentication token"],
+        "wrong token",
+    );
+    assert!(!String::from_utf8_lossy(&wrong.stderr).contains("not-the-token"));
+    refused(
+        &go(
+            &format!("{base}/;token_env=UPSHOT_UNSET_TOKEN"),
+            "customers",
+            &[],
+        ),
+        2,
+        &["UPSHOT_UNSET_TOKEN is not set"],
+        "token variable unset",
+    );
+    refused(
+        &go(
+            "sc://spark.example:15002/;token_env=UPSHOT_TEST_SPARK_TOKEN",
+            "customers",
+            &[],
+        ),
+        2,
+        &["only over TLS", "use_ssl=true"],
+        "token in plaintext beyond loopback",
+    );
     refused(
         &go(&locator, "nowhere.customers", &[]),
         2,

@@ -3,10 +3,11 @@
 //! come back, as Arrow record batches.
 //!
 //! [`SPARK`] is the [`Connector`] for `sc://host:port` locators (Spark Connect's URL form;
-//! port 15002 when omitted). Parameters after `/;` are read: `user_id=NAME`; a `token=` is
-//! refused (tokens never go on the command line or in a study file), and so is
-//! `use_ssl=true`: this build speaks plaintext gRPC only — reach a secured server through a
-//! local tunnel.
+//! port 15002 when omitted). Parameters after `/;` are read: `user_id=NAME`, `use_ssl=true`
+//! (TLS, with the system's trusted certificates; `SSL_CERT_FILE` / `SSL_CERT_DIR` name others)
+//! and `token_env=VAR` (a bearer token read from the environment variable `VAR`, sent only
+//! over TLS or to a loopback address). A `token=` in the locator is refused: tokens never go
+//! on the command line or in a study file.
 //!
 //! Key design decision: a thin client of our own rather than a general Spark Connect crate.
 //! upshot sends one kind of plan (a SQL relation with positional arguments) and reads one
@@ -49,15 +50,28 @@ pub struct SparkEngine {
     channel: tonic::transport::Channel,
     session: String,
     user: UserContext,
+    /// The `authorization` header sent with every call, when the locator names a token.
+    bearer: Option<tonic::metadata::MetadataValue<tonic::metadata::Ascii>>,
     timeout: RefCell<Option<Duration>>,
 }
 
-/// What a locator says: where, and as whom.
+/// What a locator says: where, as whom, and how the connection is secured.
 #[derive(Debug, PartialEq)]
 struct Locator {
     host: String,
     port: u16,
     user_id: String,
+    tls: bool,
+    /// The environment variable holding the bearer token.
+    token_env: Option<String>,
+}
+
+fn is_loopback(host: &str) -> bool {
+    let bare = host.trim_start_matches('[').trim_end_matches(']');
+    bare.eq_ignore_ascii_case("localhost")
+        || bare
+            .parse::<std::net::IpAddr>()
+            .is_ok_and(|ip| ip.is_loopback())
 }
 
 fn parse_locator(locator: &str) -> Result<Locator, String> {
@@ -86,29 +100,81 @@ fn parse_locator(locator: &str) -> Result<Locator, String> {
         return Err("no host: expected sc://host:port".into());
     }
     let mut user_id = std::env::var("USER").unwrap_or_else(|_| "upshot".into());
+    let mut tls = false;
+    let mut token_env = None;
     for p in params.split(';').filter(|p| !p.is_empty()) {
         let (k, v) = p.split_once('=').unwrap_or((p, ""));
         match k {
             "user_id" => user_id = v.to_string(),
             "token" => {
-                return Err("the locator holds a token; tokens never go on the command line or in a study file (and this build speaks plaintext gRPC only: reach a secured server through a local tunnel)".into())
+                return Err("the locator holds a token; tokens never go on the command line or in a study file: put it in an environment variable and name the variable with token_env=VAR".into())
             }
-            "use_ssl" if v.eq_ignore_ascii_case("false") => {}
-            "use_ssl" => {
-                return Err("use_ssl=true: this build speaks plaintext gRPC only; reach a secured Spark Connect server through a local tunnel".into())
+            "use_ssl" if v.eq_ignore_ascii_case("false") => tls = false,
+            "use_ssl" if v.eq_ignore_ascii_case("true") => tls = true,
+            "use_ssl" => return Err(format!("use_ssl takes true or false, not `{v}`")),
+            "token_env" => {
+                let valid = !v.is_empty()
+                    && !v.starts_with(|c: char| c.is_ascii_digit())
+                    && v.chars().all(|c| c.is_ascii_alphanumeric() || c == '_');
+                if !valid {
+                    return Err(format!(
+                        "token_env takes the name of an environment variable (letters, digits and _), not `{v}`"
+                    ));
+                }
+                token_env = Some(v.to_string());
             }
             other => {
                 return Err(format!(
-                    "unknown parameter `{other}` (sc:// locators take user_id=NAME)"
+                    "unknown parameter `{other}` (sc:// locators take user_id=NAME, use_ssl=true and token_env=VAR)"
                 ))
             }
         }
+    }
+    if token_env.is_some() && !tls && !is_loopback(host) {
+        return Err(format!(
+            "a token is sent only over TLS: add ;use_ssl=true (plaintext is allowed only to a loopback address, and `{host}` is not one)"
+        ));
     }
     Ok(Locator {
         host: host.to_string(),
         port,
         user_id,
+        tls,
+        token_env,
     })
+}
+
+/// The bearer header for the token in the environment variable `var`.
+fn bearer(var: &str) -> Result<tonic::metadata::MetadataValue<tonic::metadata::Ascii>, String> {
+    let token = std::env::var(var).map_err(|_| {
+        format!(
+            "token_env={var}: the environment variable {var} is not set (it must hold the token)"
+        )
+    })?;
+    let token = token.trim();
+    if token.is_empty() {
+        return Err(format!(
+            "token_env={var}: the environment variable {var} is empty"
+        ));
+    }
+    format!("Bearer {token}").parse().map_err(|_| {
+        format!("token_env={var}: the token in {var} holds characters a header cannot carry")
+    })
+}
+
+/// An error and its causes, outermost first ("transport error: … : invalid peer certificate").
+fn chain(e: &dyn std::error::Error) -> String {
+    let mut out = e.to_string();
+    let mut source = e.source();
+    while let Some(s) = source {
+        let m = s.to_string();
+        if !out.contains(&m) {
+            out.push_str(": ");
+            out.push_str(&m);
+        }
+        source = s.source();
+    }
+    out
 }
 
 /// A fresh session id (a version-4 UUID from the process's random hasher keys and the clock).
@@ -167,8 +233,25 @@ impl Failed {
 fn status_message(s: &tonic::Status) -> String {
     let m = s.message().trim();
     let m = m.lines().next().unwrap_or(m);
+    // A transport failure says little by itself ("transport error"): add its causes.
+    let with_causes;
+    let m = match std::error::Error::source(s) {
+        Some(cause) if s.code() == tonic::Code::Unknown || s.code() == tonic::Code::Unavailable => {
+            let causes = chain(cause);
+            with_causes = if causes.starts_with(m) {
+                causes
+            } else {
+                format!("{m}: {causes}")
+            };
+            with_causes.as_str()
+        }
+        _ => m,
+    };
     match s.code() {
         tonic::Code::Unavailable => format!("the server is unreachable ({m})"),
+        tonic::Code::Unauthenticated => format!(
+            "the server refused the credentials ({m}); give the token in an environment variable named by token_env=VAR"
+        ),
         tonic::Code::DeadlineExceeded | tonic::Code::Cancelled => {
             format!("the query did not finish within the time limit ({m})")
         }
@@ -189,14 +272,35 @@ impl SparkEngine {
             .enable_all()
             .build()
             .map_err(|e| open(format!("cannot start the client's runtime: {e}")))?;
-        let endpoint =
-            tonic::transport::Endpoint::from_shared(format!("http://{}:{}", l.host, l.port))
+        let bearer = l
+            .token_env
+            .as_deref()
+            .map(bearer)
+            .transpose()
+            .map_err(open)?;
+        let (host, port, tls) = (l.host.clone(), l.port, l.tls);
+        let scheme = if l.tls { "https" } else { "http" };
+        let mut endpoint =
+            tonic::transport::Endpoint::from_shared(format!("{scheme}://{}:{}", l.host, l.port))
                 .map_err(|e| open(format!("not a host and port ({e})")))?
                 .connect_timeout(Duration::from_secs(10));
+        if l.tls {
+            let tls = tonic::transport::ClientTlsConfig::new().with_native_roots();
+            endpoint = endpoint
+                .tls_config(tls)
+                .map_err(|e| open(format!("cannot set up TLS ({})", chain(&e))))?;
+        }
         let channel = runtime.block_on(endpoint.connect()).map_err(|e| {
+            let hint = if l.tls {
+                "is a TLS endpoint of a Spark Connect server listening there, with a certificate this machine trusts (SSL_CERT_FILE names a CA file)?"
+            } else {
+                "is a Spark Connect server listening there?"
+            };
             open(format!(
-                "the server is unreachable ({e}); is a Spark Connect server listening at {}:{}?",
-                l.host, l.port
+                "the server at {}:{} is unreachable ({}); {hint}",
+                l.host,
+                l.port,
+                chain(&e)
             ))
         })?;
         let engine = SparkEngine {
@@ -207,13 +311,25 @@ impl SparkEngine {
                 user_id: l.user_id.clone(),
                 user_name: l.user_id,
             },
+            bearer,
             timeout: RefCell::new(None),
         };
         // ANSI mode on (Spark 4's default, set here so that a 3.x server behaves the same:
         // overflow and invalid casts raise instead of giving NULL).
         engine
-            .sql("SET spark.sql.ansi.enabled = true", vec![])
-            .map_err(|e| open(e.to_string()))?;
+            .execute("SET spark.sql.ansi.enabled = true", vec![])
+            .map_err(|f| match f {
+                Failed::Message(m) if m.contains("transport error") => open(format!(
+                    "{m}; is a Spark Connect server listening at {host}:{port}{hint}?",
+                    hint = if tls {
+                        ""
+                    } else {
+                        " (a TLS endpoint needs ;use_ssl=true)"
+                    }
+                )),
+                Failed::Message(m) => open(m),
+                f => open(f.into_engine("setup").to_string()),
+            })?;
         Ok(engine)
     }
 
@@ -229,6 +345,15 @@ impl SparkEngine {
         result
     }
 
+    /// A request carrying the session's credentials.
+    fn request<T>(&self, message: T) -> tonic::Request<T> {
+        let mut req = tonic::Request::new(message);
+        if let Some(b) = &self.bearer {
+            req.metadata_mut().insert("authorization", b.clone());
+        }
+        req
+    }
+
     fn interrupt(&self, operation: &str) {
         let request = InterruptRequest {
             session_id: self.session.clone(),
@@ -237,12 +362,12 @@ impl SparkEngine {
             interrupt_type: INTERRUPT_OPERATION_ID,
             operation_id: Some(operation.to_string()),
         };
+        let mut req = self.request(request);
+        req.set_timeout(Duration::from_secs(10));
         let channel = self.channel.clone();
         let _ = self.runtime.block_on(async move {
             let mut grpc = tonic::client::Grpc::new(channel);
             grpc.ready().await.map_err(|_| ())?;
-            let mut req = tonic::Request::new(request);
-            req.set_timeout(Duration::from_secs(10));
             let codec = tonic_prost::ProstCodec::<InterruptRequest, InterruptResponse>::new();
             grpc.unary(req, PathAndQuery::from_static(INTERRUPT), codec)
                 .await
@@ -272,6 +397,10 @@ impl SparkEngine {
             client_type: Some(CLIENT_TYPE.into()),
             operation_id: Some(operation.to_string()),
         };
+        let mut req = self.request(request);
+        if let Some(t) = timeout {
+            req.set_timeout(t);
+        }
         let channel = self.channel.clone();
         let status = |s: tonic::Status| match (s.code(), timeout) {
             (tonic::Code::DeadlineExceeded | tonic::Code::Cancelled, Some(t)) => {
@@ -287,10 +416,6 @@ impl SparkEngine {
             grpc.ready()
                 .await
                 .map_err(|e| Failed::Message(format!("the server is unreachable ({e})")))?;
-            let mut req = tonic::Request::new(request);
-            if let Some(t) = timeout {
-                req.set_timeout(t);
-            }
             let codec = tonic_prost::ProstCodec::<ExecutePlanRequest, ExecutePlanResponse>::new();
             let mut stream = grpc
                 .server_streaming(req, PathAndQuery::from_static(EXECUTE), codec)
@@ -566,12 +691,12 @@ impl Drop for SparkEngine {
             user_context: Some(self.user.clone()),
             client_type: Some(CLIENT_TYPE.into()),
         };
+        let mut req = self.request(request);
+        req.set_timeout(Duration::from_secs(5));
         let channel = self.channel.clone();
         let _ = self.runtime.block_on(async move {
             let mut grpc = tonic::client::Grpc::new(channel);
             grpc.ready().await.map_err(|_| ())?;
-            let mut req = tonic::Request::new(request);
-            req.set_timeout(Duration::from_secs(5));
             let codec =
                 tonic_prost::ProstCodec::<ReleaseSessionRequest, ReleaseSessionResponse>::new();
             grpc.unary(req, PathAndQuery::from_static(RELEASE), codec)
@@ -631,16 +756,45 @@ mod tests {
             Locator {
                 host: "127.0.0.1".into(),
                 port: 15003,
-                user_id: "ana".into()
+                user_id: "ana".into(),
+                tls: false,
+                token_env: None,
             }
         );
+        let l =
+            parse_locator("sc://spark.example:443/;use_ssl=true;token_env=SPARK_TOKEN").unwrap();
+        assert!(l.tls);
+        assert_eq!(l.token_env.as_deref(), Some("SPARK_TOKEN"));
+        // A token in plaintext only to a loopback address.
+        assert!(parse_locator("sc://127.0.0.1:1/;token_env=T").is_ok());
+        assert!(parse_locator("sc://[::1]:1/;token_env=T").is_ok());
+        assert!(parse_locator("sc://localhost:1/;token_env=T").is_ok());
+        let e = parse_locator("sc://spark.example/;token_env=T").unwrap_err();
+        assert!(e.contains("use_ssl=true"), "{e}");
+        assert!(parse_locator("sc://h/;token_env=").is_err());
+        assert!(parse_locator("sc://h/;use_ssl=true;token_env=$(x)").is_err());
+        assert!(parse_locator("sc://h/;use_ssl=yes").is_err());
         assert_eq!(parse_locator("sc://spark.example").unwrap().port, 15002);
         let e = parse_locator("sc://h:1/;token=abc").unwrap_err();
         assert!(e.contains("token") && !e.contains("abc"), "{e}");
         assert!(parse_locator("sc://h:99999").is_err());
         assert!(parse_locator("sc://:1").is_err());
-        assert!(parse_locator("sc://h/;use_ssl=true").is_err());
+        assert!(parse_locator("sc://h/;use_ssl=true").unwrap().tls);
         assert!(parse_locator("sc://u:p@h").is_err());
+    }
+
+    #[test]
+    fn tokens_come_from_the_environment() {
+        std::env::set_var("UPSHOT_UNIT_TOKEN", " abc.def ");
+        assert_eq!(bearer("UPSHOT_UNIT_TOKEN").unwrap(), "Bearer abc.def");
+        std::env::set_var("UPSHOT_UNIT_TOKEN_EMPTY", "");
+        let e = bearer("UPSHOT_UNIT_TOKEN_EMPTY").unwrap_err();
+        assert!(e.contains("empty"), "{e}");
+        let e = bearer("UPSHOT_UNIT_TOKEN_UNSET").unwrap_err();
+        assert!(e.contains("not set"), "{e}");
+        std::env::set_var("UPSHOT_UNIT_TOKEN_BAD", "a\nb");
+        let e = bearer("UPSHOT_UNIT_TOKEN_BAD").unwrap_err();
+        assert!(!e.contains("a\nb"), "{e}");
     }
 
     #[test]
