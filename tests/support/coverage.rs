@@ -184,6 +184,7 @@ fn main() {
                 treatment: "voucher".into(),
                 outcome: "spend_30d".into(),
                 adjust: adjust.iter().map(|s| s.to_string()).collect(),
+                instruments: vec![],
                 segments: vec!["tenure_band".into()],
                 estimand: Estimand::Ate,
                 method: *method,

@@ -109,6 +109,7 @@ impl Work {
             treatment: "voucher".into(),
             outcome: "spend_30d".into(),
             adjust: self.adjust(),
+            instruments: vec![],
             segments: if self.segments {
                 vec!["region".into()]
             } else {

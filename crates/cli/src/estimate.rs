@@ -34,12 +34,18 @@ pub struct Args {
     /// Segment columns for per-segment effects, comma-separated.
     #[arg(long = "segment-by", value_delimiter = ',')]
     segment_by: Vec<String>,
-    /// Method key: auto, stratify, regress, weight, doubly-robust, partial-out.
+    /// Method key: auto, stratify, regress, weight, doubly-robust, partial-out, iv.
     #[arg(long)]
     method: Option<String>,
     /// Adjustment set to use instead of the one identification picks (checked first).
     #[arg(long, value_delimiter = ',', num_args = 0..)]
     adjust: Option<Vec<String>>,
+    /// Instruments for `--method iv`, comma-separated (checked against the diagram first).
+    #[arg(long, value_delimiter = ',')]
+    instruments: Option<Vec<String>>,
+    /// Variables the instruments are conditioned on (covariates of `iv`), comma-separated.
+    #[arg(long = "instrument-given", value_delimiter = ',')]
+    instrument_given: Vec<String>,
     /// Database: a DuckDB file, or duckdb::memory: (default: the study's, else in-memory).
     #[arg(long)]
     db: Option<String>,
@@ -98,8 +104,8 @@ fn overrides(a: &Args) -> QuestionInput {
         method: a.method.clone(),
         adjust: a.adjust.clone().map(clean),
         mediators: None,
-        instruments: None,
-        instrument_given: vec![],
+        instruments: a.instruments.clone().map(clean),
+        instrument_given: clean(a.instrument_given.clone()),
         spelling: Default::default(),
     }
 }

@@ -26,13 +26,23 @@ pub fn run_text(answers: &[Answer]) -> String {
     for a in answers {
         let s = &a.summary;
         o.push_str(&format!(
-            "question {}: {} of {} on {} — method {}, adjusting for {{{}}}\n",
+            "question {}: {} of {} on {} — method {}, {}\n",
             s.question,
             s.estimand.as_str(),
             s.treatment,
             s.outcome,
             s.method.as_str(),
-            s.adjustment_set.join(", ")
+            if s.instruments.is_empty() {
+                format!("adjusting for {{{}}}", s.adjustment_set.join(", "))
+            } else if s.adjustment_set.is_empty() {
+                format!("instrumented by {{{}}}", s.instruments.join(", "))
+            } else {
+                format!(
+                    "instrumented by {{{}}} given {{{}}}",
+                    s.instruments.join(", "),
+                    s.adjustment_set.join(", ")
+                )
+            }
         ));
         let header = [
             "segment",
@@ -97,7 +107,12 @@ pub fn run_text(answers: &[Answer]) -> String {
                 .collect::<String>(),
             d.passes
         ));
-        o.push_str(&format!("  adjustment set: {}\n", s.why_this_set));
+        if s.instruments.is_empty() {
+            o.push_str(&format!("  adjustment set: {}\n", s.why_this_set));
+        } else {
+            o.push_str(&format!("  instruments: {}\n", s.why_this_set));
+            o.push_str(&instrument_text(&d.instruments));
+        }
         for w in &d.warnings {
             o.push_str(&format!("  warning: {w}\n"));
         }
@@ -109,6 +124,55 @@ pub fn run_text(answers: &[Answer]) -> String {
             o.push_str(&format!("    - {x}\n"));
         }
         o.push('\n');
+    }
+    o
+}
+
+/// The first stage and tests of instrumental-variable estimates, one block per estimate row.
+fn instrument_text(reports: &[upshot_core::InstrumentReport]) -> String {
+    let mut o = String::new();
+    for r in reports {
+        let first: Vec<String> = r
+            .first_stage
+            .iter()
+            .map(|c| {
+                format!(
+                    "{} {} (s.e. {})",
+                    c.instrument,
+                    fmt_num(c.coefficient),
+                    fmt_num(c.std_error)
+                )
+            })
+            .collect();
+        o.push_str(&format!(
+            "  {}: {}\n    first stage: {}; F = {:.2} on ({}, {}) df{}\n    standard errors: unadjusted {}, robust {}{}\n",
+            r.segment,
+            r.estimator,
+            first.join(", "),
+            r.partial_f,
+            r.f_df.0,
+            r.f_df.1,
+            if r.weak { " — weak (below 10)" } else { "" },
+            fmt_num(r.se_unadjusted),
+            fmt_num(r.se_robust),
+            r.se_delta
+                .map(|d| format!(", delta method {}", fmt_num(d)))
+                .unwrap_or_default()
+        ));
+        for (name, t) in [("Sargan", &r.sargan), ("Hansen J", &r.hansen_j)] {
+            if let Some(t) = t {
+                o.push_str(&format!(
+                    "    over-identification, {name}: {:.3} on {} df, p = {:.3}\n",
+                    t.stat, t.df, t.p_value
+                ));
+            }
+        }
+        if let Some(c) = r.complier_share {
+            o.push_str(&format!(
+                "    compliers: {:.1}% of rows (the estimate is their local effect, under monotonicity)\n",
+                100.0 * c
+            ));
+        }
     }
     o
 }

@@ -35,7 +35,10 @@ pub use source::{
     ResolvedRows, CALLER_DATABASE, DEFAULT_DATABASE,
 };
 pub use upshot_engine::{connect, connector, Access, Connector, Engine, EngineError};
-pub use upshot_methods::{Basis, Diagnostics, Estimate, NullPolicy, PlannedPass, Spec, MAX_FOLDS};
+pub use upshot_methods::{
+    Basis, Diagnostics, Estimate, InstrumentCoefficient, InstrumentReport, NullPolicy, PlannedPass,
+    Spec, TestStat, MAX_FOLDS,
+};
 pub use upshot_sql::Flavor;
 pub use upshot_study::{Estimand, Method, Route, Study};
 

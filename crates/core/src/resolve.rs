@@ -50,9 +50,9 @@ pub struct Resolved {
     pub database: String,
 }
 
-/// The method of a question: its own, or the `auto` rule's choice from the treatment's and the
-/// adjustment set's declared kinds.
-fn method_of(q: &Question, study: &Study, adjust: &[String]) -> Method {
+/// The method of a question: its own, or the `auto` rule's choice — `iv` on the instrument
+/// route, else from the treatment's and the adjustment set's declared kinds.
+fn method_of(q: &Question, study: &Study, route: Route, adjust: &[String]) -> Method {
     let kind = |n: &str| {
         study
             .diagram
@@ -61,6 +61,7 @@ fn method_of(q: &Question, study: &Study, adjust: &[String]) -> Method {
             .unwrap_or(Kind::Unspecified)
     };
     match q.method {
+        Method::Auto if route == Route::Instrument => Method::Iv,
         Method::Auto => {
             let binary = matches!(kind(&q.treatment[0]), Kind::Binary | Kind::Unspecified);
             let discrete = adjust
@@ -101,15 +102,21 @@ fn resolve_one(
             }
         )));
     };
-    if chosen.route != Route::Adjustment {
-        return Err(CoreError::Input(format!(
-            "question `{}`: the effect is identified only through the {} route ({}), whose estimators are not available in this version; the adjustment methods need a valid adjustment set",
-            q.name,
-            route_word(chosen.route),
-            chosen.set.join(", ")
-        )));
-    }
-    let method = method_of(q, study, &chosen.set);
+    // The adjustment set and the instruments the route gives: on the instrument route, the
+    // instruments' conditioning set is what the estimator adjusts for.
+    let (adjust, instruments) = match chosen.route {
+        Route::Adjustment => (chosen.set.clone(), vec![]),
+        Route::Instrument => (chosen.given.clone(), chosen.set.clone()),
+        Route::FrontDoor => {
+            return Err(CoreError::Input(format!(
+                "question `{}`: the effect is identified only through the {} route ({}), whose estimator is not available in this version; the adjustment methods need a valid adjustment set, `iv` an instrument",
+                q.name,
+                route_word(chosen.route),
+                chosen.set.join(", ")
+            )))
+        }
+    };
+    let method = method_of(q, study, chosen.route, &adjust);
     if !upshot_methods::available().contains(&method) {
         return Err(CoreError::Input(format!(
             "question `{}`: method `{}` is not available in this version of upshot; adjustment methods are: {}",
@@ -144,7 +151,8 @@ fn resolve_one(
         filter,
         treatment: q.treatment[0].clone(),
         outcome: q.outcome[0].clone(),
-        adjust: chosen.set.clone(),
+        adjust,
+        instruments,
         segments: q.segments.clone(),
         estimand: q.estimand,
         method,
@@ -196,8 +204,11 @@ pub struct QuestionPlan {
     pub method: Method,
     /// Estimand.
     pub estimand: Estimand,
-    /// Adjustment set.
+    /// Adjustment set (for `iv`: the instruments' conditioning set).
     pub adjustment_set: Vec<String>,
+    /// Instruments (`iv` only).
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub instruments: Vec<String>,
     /// The SQL dialect.
     pub dialect: &'static str,
     /// Hash of the plan's SQL: equal hashes run the same passes.
@@ -232,6 +243,7 @@ pub fn plan(r: &Resolved) -> Result<QuestionPlan, CoreError> {
         method: r.spec.method,
         estimand: r.spec.estimand,
         adjustment_set: r.spec.adjust.clone(),
+        instruments: r.spec.instruments.clone(),
         dialect: r.spec.flavor.dialect.name(),
         plan_hash: plan_hash(&r.spec),
         passes,

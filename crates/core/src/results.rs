@@ -20,8 +20,11 @@ pub struct QuestionSummary {
     pub treatment: String,
     /// Outcome column.
     pub outcome: String,
-    /// Adjustment set.
+    /// Adjustment set (for `iv`: the instruments' conditioning set).
     pub adjustment_set: Vec<String>,
+    /// Instruments (`iv` only).
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub instruments: Vec<String>,
     /// Why this set.
     pub why_this_set: String,
     /// The rows read: table, file or `query`.
@@ -100,6 +103,7 @@ pub fn run(
                 treatment: r.spec.treatment.clone(),
                 outcome: r.spec.outcome.clone(),
                 adjustment_set: r.spec.adjust.clone(),
+                instruments: r.spec.instruments.clone(),
                 why_this_set: r.chosen.why.clone(),
                 source: r.source_label.clone(),
                 plan_hash: hash,

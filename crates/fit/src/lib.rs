@@ -5,7 +5,8 @@
 //! with an intercept, undoing the centring and scaling, after a conditioning check that names
 //! the collinear or constant columns instead of returning noise; [`logit`] drives Newton's
 //! method for logistic regression over one aggregate pass per iteration, with step halving and
-//! a separation check.
+//! a separation check; [`two_stage`] fits two-stage least squares (instrumental variables)
+//! from the same moments.
 //!
 //! Key design decision: everything is solved in the centred, scaled coordinates the pass used
 //! (a correlation-matrix problem), because forming raw sums of products of uncentred columns
@@ -14,10 +15,12 @@
 //! This crate does no I/O and knows nothing of SQL: it sees only numbers.
 #![deny(missing_docs)]
 
+mod iv;
 mod logit;
 mod moments;
 mod ols;
 
+pub use iv::{chi2_upper, two_stage, FirstStage, IvColumns, OverId, Robust, TwoStage};
 pub use logit::{logit, logit_many, logit_sums_from_rows, Logit, LogitSums, NewtonOptions};
 pub use moments::Moments;
 pub use ols::{ols, residual_moments_from_rows, Ols};

@@ -7,7 +7,7 @@
 //! with placeholders where a pass inlines numbers that earlier passes compute.
 //!
 //! The seam is the [`Estimator`] trait: one implementation per method, each in a folder of its
-//! own (`stratify/`, `regress/`, `weight/`, `doubly_robust/`, `partial_out/`) holding its pass
+//! own (`stratify/`, `regress/`, `weight/`, `doubly_robust/`, `partial_out/`, `iv/`) holding its pass
 //! builders (`passes.rs` where it has passes of its own), its math (estimate and variance) and
 //! its unit tests; [`ESTIMATORS`] is the one registration point. Shared machinery has modules of
 //! its own, used by name: `prepare` (profile and levels passes, input checks, design terms),
@@ -56,6 +56,7 @@ mod crossfit;
 mod doubly_robust;
 #[cfg(test)]
 mod golden;
+mod iv;
 mod models;
 mod outcome;
 mod partial_out;
@@ -87,12 +88,13 @@ pub(crate) trait Estimator: Sync {
 }
 
 /// Every estimator, by method: the one place a new estimator is registered.
-static ESTIMATORS: [&dyn Estimator; 5] = [
+static ESTIMATORS: [&dyn Estimator; 6] = [
     &stratify::Stratify,
     &regress::Regress,
     &weight::Weight,
     &doubly_robust::DoublyRobust,
     &partial_out::PartialOut,
+    &iv::Iv,
 ];
 
 /// The methods that have an estimator, in documentation order.
@@ -158,8 +160,10 @@ pub struct Spec {
     pub treatment: String,
     /// Outcome column.
     pub outcome: String,
-    /// Adjustment set (covariates).
+    /// Adjustment set (covariates); for `iv`, the instruments' conditioning set.
     pub adjust: Vec<String>,
+    /// Excluded instruments (`iv` only; empty otherwise).
+    pub instruments: Vec<String>,
     /// Segment columns.
     pub segments: Vec<String>,
     /// ATE, ATT or ATC.
@@ -335,6 +339,76 @@ pub struct Diagnostics {
     pub warnings: Vec<String>,
     /// Passes run.
     pub passes: usize,
+    /// What an instrumental-variable estimate reports besides the estimate: one per estimate
+    /// row, in their order (`iv` only).
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub instruments: Vec<InstrumentReport>,
+}
+
+/// An instrument's first-stage coefficient.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct InstrumentCoefficient {
+    /// The instrument.
+    pub instrument: String,
+    /// Its coefficient in the regression of the treatment on the covariates and instruments.
+    pub coefficient: f64,
+    /// Its classical standard error.
+    pub std_error: f64,
+}
+
+/// A χ² test statistic.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct TestStat {
+    /// The statistic.
+    pub stat: f64,
+    /// Degrees of freedom.
+    pub df: usize,
+    /// Upper-tail probability.
+    pub p_value: f64,
+}
+
+impl From<&upshot_fit::OverId> for TestStat {
+    fn from(o: &upshot_fit::OverId) -> Self {
+        TestStat {
+            stat: o.stat,
+            df: o.df,
+            p_value: o.p_value,
+        }
+    }
+}
+
+/// The first stage and the tests of one instrumental-variable estimate row.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct InstrumentReport {
+    /// `all`, or the segment.
+    pub segment: String,
+    /// How the estimate and its error were computed.
+    pub estimator: &'static str,
+    /// The excluded instruments' first-stage coefficients.
+    pub first_stage: Vec<InstrumentCoefficient>,
+    /// F statistic of the excluded instruments in the first stage.
+    pub partial_f: f64,
+    /// Its degrees of freedom.
+    pub f_df: (f64, f64),
+    /// F below 10 (common practice, Staiger & Stock 1997).
+    pub weak: bool,
+    /// Classical (homoskedastic) standard error of the 2SLS estimate.
+    pub se_unadjusted: f64,
+    /// Robust (HC1) standard error of the 2SLS estimate.
+    pub se_robust: f64,
+    /// Delta-method standard error of the Wald ratio (one 0/1 instrument, no covariates).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub se_delta: Option<f64>,
+    /// Sargan's over-identification test (more instruments than treatments).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub sargan: Option<TestStat>,
+    /// Hansen's J (robust over-identification test).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub hansen_j: Option<TestStat>,
+    /// Share of compliers (0/1 instrument and treatment, under monotonicity): the difference
+    /// in treatment rates between the instrument's two values.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub complier_share: Option<f64>,
 }
 
 /// Estimates and diagnostics of one question.
@@ -361,6 +435,7 @@ pub fn estimate(spec: &Spec, runner: &mut dyn Runner) -> Result<Outcome, MethodE
         .append(&mut out.diagnostics.rows_excluded_other);
     diag.notes.append(&mut out.diagnostics.notes);
     diag.warnings.append(&mut out.diagnostics.warnings);
+    diag.instruments = std::mem::take(&mut out.diagnostics.instruments);
     diag.passes = counted.n;
     out.diagnostics = diag;
     for e in &out.estimates {
@@ -420,6 +495,53 @@ impl Spec {
                 "method `auto` must be resolved to an estimator before estimating".into(),
             ));
         }
+        self.check_instruments()
+    }
+
+    /// Instruments belong to `iv`, which needs at least one, distinct from the treatment, the
+    /// outcome, the covariates and the segment columns; its estimand is the effect the
+    /// instruments move (ATE in the spec's terms).
+    fn check_instruments(&self) -> Result<(), MethodError> {
+        if self.method != Method::Iv {
+            if !self.instruments.is_empty() {
+                return Err(MethodError::Input(format!(
+                    "instruments ({}) are used by method `iv` only; drop them, or use --method iv",
+                    self.instruments.join(", ")
+                )));
+            }
+            return Ok(());
+        }
+        if self.instruments.is_empty() {
+            return Err(MethodError::Input(
+                "method `iv` needs at least one instrument (--instruments, or the question's `instruments`)".into(),
+            ));
+        }
+        for (i, z) in self.instruments.iter().enumerate() {
+            let role = if *z == self.treatment {
+                Some("the treatment")
+            } else if *z == self.outcome {
+                Some("the outcome")
+            } else if self.adjust.contains(z) {
+                Some("a covariate the instruments are conditioned on")
+            } else if self.segments.contains(z) {
+                Some("a segment column")
+            } else if self.instruments[..i].contains(z) {
+                Some("named twice as an instrument")
+            } else {
+                None
+            };
+            if let Some(role) = role {
+                return Err(MethodError::Input(format!(
+                    "instrument `{z}` is also {role}; an instrument must be excluded from the outcome equation — name it once, as an instrument only"
+                )));
+            }
+        }
+        if self.estimand != Estimand::Ate {
+            return Err(MethodError::Input(format!(
+                "method `iv` estimates the effect among the units the instruments move (with a 0/1 instrument and treatment: the compliers' local effect), not the {}; use --estimand ATE",
+                self.estimand.as_str()
+            )));
+        }
         Ok(())
     }
 
@@ -456,6 +578,7 @@ pub(crate) mod tests {
             treatment: "t".into(),
             outcome: "y".into(),
             adjust: vec!["x".into()],
+            instruments: vec![],
             segments: vec![],
             estimand: Estimand::Ate,
             method,
@@ -517,7 +640,8 @@ pub(crate) mod tests {
                 Method::Regress,
                 Method::Weight,
                 Method::DoublyRobust,
-                Method::PartialOut
+                Method::PartialOut,
+                Method::Iv
             ]
         );
     }

@@ -47,6 +47,10 @@ pub(crate) struct Setup<'a> {
     /// The treatment and the outcome as centred, scaled terms (for Gram passes).
     pub treatment_term: DesignTerm,
     pub outcome_term: DesignTerm,
+    /// The excluded instruments as centred, scaled terms (`iv`; empty otherwise): a numeric
+    /// instrument as itself, a categorical one as indicators of its levels.
+    pub instrument_terms: Vec<DesignTerm>,
+    pub instrument_names: Vec<String>,
     pub profiled: Vec<Profiled>,
     pub diagnostics: Diagnostics,
 }
@@ -96,8 +100,8 @@ fn suggest(name: &str, columns: &[ColumnType]) -> String {
     }
 }
 
-/// The columns a spec reads, in a fixed order: treatment, outcome, adjustment set, segments,
-/// unit key (when folds need it).
+/// The columns a spec reads, in a fixed order: treatment, outcome, adjustment set,
+/// instruments, segments, unit key (when folds need it).
 pub(crate) fn used_columns(spec: &Spec) -> Vec<String> {
     let mut used: Vec<String> = Vec::new();
     let mut add = |c: &String| {
@@ -108,6 +112,7 @@ pub(crate) fn used_columns(spec: &Spec) -> Vec<String> {
     add(&spec.treatment);
     add(&spec.outcome);
     spec.adjust.iter().for_each(&mut add);
+    spec.instruments.iter().for_each(&mut add);
     spec.segments.iter().for_each(&mut add);
     if needs_folds(spec) {
         if let Some(u) = &spec.unit {
@@ -411,7 +416,10 @@ pub(crate) fn profile_pass(spec: &Spec) -> Result<Built<ProfileLayout>, MethodEr
             ProfileColumn {
                 numeric: with_stats(spec, &c),
                 distinct,
-                zero_one: c == spec.treatment,
+                // The treatment's and the instruments' 0/1 values are counted (binary
+                // instruments give the Wald ratio and the complier share).
+                zero_one: c == spec.treatment
+                    || (spec.instruments.contains(&c) && !is_categorical(spec, &c)),
                 name: c,
             }
         })
@@ -424,13 +432,15 @@ pub(crate) fn profile_pass(spec: &Spec) -> Result<Built<ProfileLayout>, MethodEr
     )?)
 }
 
-/// Categorical covariates that need their levels (methods with a design matrix).
+/// Categorical covariates (and instruments) that need their levels (methods with a design
+/// matrix).
 pub(crate) fn categorical_covariates(spec: &Spec) -> Vec<String> {
     if spec.method == Method::Stratify {
         return vec![];
     }
     modelled(spec)
         .into_iter()
+        .chain(spec.instruments.iter().cloned())
         .filter(|c| is_categorical(spec, c))
         .collect()
 }
@@ -596,6 +606,8 @@ pub(crate) fn prepare<'a>(spec: &'a Spec, r: &mut dyn Runner) -> Result<Setup<'a
         } else {
             numeric_term(col(&spec.outcome))?
         },
+        instrument_terms: vec![],
+        instrument_names: vec![],
         profiled: profiled_cols.clone(),
         diagnostics: Diagnostics {
             rows_read: n_rows,
@@ -609,8 +621,48 @@ pub(crate) fn prepare<'a>(spec: &'a Spec, r: &mut dyn Runner) -> Result<Setup<'a
         let (terms, names) = covariate_terms(spec, &profiled_cols, &coded)?;
         setup.terms = terms;
         setup.term_names = names;
+        let (terms, names) = instrument_terms(spec, &profiled_cols, &coded)?;
+        setup.instrument_terms = terms;
+        setup.instrument_names = names;
     }
     Ok(setup)
+}
+
+/// The instruments as centred, scaled terms and their names: a numeric instrument as itself,
+/// a categorical one as the indicators of its levels (coded like a covariate's). A constant
+/// instrument is refused.
+fn instrument_terms(
+    spec: &Spec,
+    profiled: &[Profiled],
+    coded: &[Coded],
+) -> Result<(Vec<DesignTerm>, Vec<String>), MethodError> {
+    let mut terms = Vec::new();
+    let mut names = Vec::new();
+    for z in &spec.instruments {
+        if let Some(code) = coded.iter().find(|k| &k.column == z) {
+            for g in &code.indicators {
+                let share = g.rows / code.rows;
+                terms.push(DesignTerm::Level {
+                    column: z.clone(),
+                    levels: g.levels.clone(),
+                    centre: share,
+                    scale: (share * (1.0 - share)).sqrt(),
+                });
+                names.push(g.name.clone());
+            }
+            continue;
+        }
+        let p = profiled.iter().find(|p| &p.name == z).expect("profiled");
+        if p.sd == Some(0.0) {
+            return Err(MethodError::Input(format!(
+                "instrument `{z}` is constant ({} in every row used); it cannot move the treatment — check the filter and the source, or name another instrument",
+                show(&p.min)
+            )));
+        }
+        terms.push(numeric_term(p)?);
+        names.push(z.clone());
+    }
+    Ok((terms, names))
 }
 
 fn numeric_term(p: &Profiled) -> Result<DesignTerm, MethodError> {
@@ -729,10 +781,17 @@ pub(crate) fn code_levels(
         t.is_none_or(|t| t > 0.0 && t < n)
     });
     if levels.len() < 2 {
-        return Err(MethodError::Input(format!(
-            "covariate `{c}` has a single level{} in the rows used; it cannot adjust anything — drop it from the adjustment set",
-            levels.first().map(|l| format!(" ({})", l.0)).unwrap_or_default()
-        )));
+        let level = levels
+            .first()
+            .map(|l| format!(" ({})", l.0))
+            .unwrap_or_default();
+        return Err(MethodError::Input(
+            if spec.instruments.iter().any(|z| z == c) {
+                format!("instrument `{c}` has a single level{level} in the rows used; it cannot move the treatment — check the filter and the source, or name another instrument")
+            } else {
+                format!("covariate `{c}` has a single level{level} in the rows used; it cannot adjust anything — drop it from the adjustment set")
+            },
+        ));
     }
     let total = |counts: &PerSegment| counts.iter().map(|x| x.1).sum::<f64>();
     let rows_all: f64 = levels.iter().map(|l| total(&l.1)).sum();
@@ -915,6 +974,7 @@ pub(crate) fn placeholder<'a>(spec: &'a Spec) -> Result<Setup<'a>, MethodError> 
     } else {
         covariate_terms(spec, &profiled, &coded)?
     };
+    let instruments = instrument_terms(spec, &profiled, &coded)?;
     Ok(Setup {
         spec,
         filter: complete_cases(spec.flavor.dialect, spec.filter.as_ref(), &used),
@@ -922,6 +982,8 @@ pub(crate) fn placeholder<'a>(spec: &'a Spec) -> Result<Setup<'a>, MethodError> 
         term_names,
         treatment_term: numeric_term(&profiled[0])?,
         outcome_term: numeric_term(&profiled[1])?,
+        instrument_terms: instruments.0,
+        instrument_names: instruments.1,
         profiled,
         diagnostics: Diagnostics::default(),
     })

@@ -55,6 +55,7 @@ fn every_method_agrees_with_and_without_upshots_functions() {
                     "zone".into(),
                 ]
             },
+            instruments: vec![],
             segments: vec!["tenure_band".into()],
             estimand,
             method,
