@@ -58,7 +58,7 @@ fn ok(out: &Output, what: &str) -> Value {
     serde_json::from_slice(&out.stdout).unwrap()
 }
 
-/// Every method × estimand the methods take, without and with segments: 26 questions.
+/// Every method × estimand the methods take, without and with segments: 28 questions.
 fn study(dir: &Path) -> PathBuf {
     std::fs::copy(
         repo().join("demo-data/voucher.graph"),
@@ -74,17 +74,24 @@ fn study(dir: &Path) -> PathBuf {
         "doubly-robust",
         "partial-out",
         "stratify",
+        "iv",
     ] {
         for estimand in ["ATE", "ATT", "ATC"] {
-            if method == "partial-out" && estimand != "ATE" {
+            if matches!(method, "partial-out" | "iv") && estimand != "ATE" {
                 continue;
             }
             for segmented in [false, true] {
                 s.push_str(&format!(
-                    "\n[[question]]\nname = \"{method}-{estimand}{}\"\ntreatment = \"voucher\"\noutcome = \"spend_30d\"\nestimand = \"{estimand}\"\nmethod = \"{method}\"\n{}",
+                    "\n[[question]]\nname = \"{method}-{estimand}{}\"\ntreatment = \"voucher\"\noutcome = \"spend_30d\"\nestimand = \"{estimand}\"\nmethod = \"{method}\"\n{}{}",
                     if segmented { "-by-tenure" } else { "" },
                     if segmented {
                         "segments = [\"tenure_band\"]\n"
+                    } else {
+                        ""
+                    },
+                    // The mailing wave moves the voucher and nothing else (voucher.graph).
+                    if method == "iv" {
+                        "instruments = [\"mail_wave\"]\n"
                     } else {
                         ""
                     }

@@ -1339,3 +1339,158 @@ fn a_pass_past_the_timeout_is_cancelled_and_nothing_is_written() {
     assert_eq!(zero.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&zero.stderr).contains("--timeout"));
 }
+
+const LATENT: &str = "demo-data/sample/customers_latent.csv";
+const LATENT_GRAPH: &str = "demo-data/voucher-latent.graph";
+
+/// `iv` on the demo's latent variant (income unrecorded: no adjustment set exists): the study
+/// runs, plan lists the passes run executes (with and without segments), the interval covers
+/// the simulation truth, and the bad inputs of the instruments are refused.
+#[test]
+fn iv_runs_where_adjustment_cannot_and_refuses_bad_instruments() {
+    let t: Value = serde_json::from_str(
+        &std::fs::read_to_string(repo().join("demo-data/sample/customers_latent.truth.json"))
+            .unwrap(),
+    )
+    .unwrap();
+    let ate = t["outcomes"]["spend_30d"]["ate"].as_f64().unwrap();
+    let v = json(&["run", "demo-data/voucher-instrument.toml"]);
+    let e = &v["estimates"][0];
+    assert_eq!(e["method"], "iv");
+    let (lo, hi) = (
+        e["ci_low"].as_f64().unwrap(),
+        e["ci_high"].as_f64().unwrap(),
+    );
+    assert!(lo <= ate && ate <= hi, "[{lo}, {hi}] misses {ate}");
+    let q = &v["questions"][0];
+    assert_eq!(q["instruments"][0], "mail_wave");
+    let rep = &q["diagnostics"]["instruments"][0];
+    assert!(rep["partial_f"].as_f64().unwrap() > 10.0, "{rep}");
+    assert!(
+        rep["sargan"]["df"] == 2 && rep["hansen_j"]["df"] == 2,
+        "{rep}"
+    );
+    for segments in [false, true] {
+        let mut args = vec![
+            "--graph",
+            LATENT_GRAPH,
+            "--source",
+            LATENT,
+            "--treatment",
+            "voucher",
+            "--outcome",
+            "spend_30d",
+            "--method",
+            "iv",
+        ];
+        if segments {
+            args.extend(["--segment-by", "tenure_band"]);
+        }
+        let plan = json(&[&["plan"], args.as_slice()].concat());
+        let planned = plan["questions"][0]["passes"].as_array().unwrap().len();
+        let run = json(&[&["run"], args.as_slice()].concat());
+        let passes = run["questions"][0]["diagnostics"]["passes"]
+            .as_u64()
+            .unwrap();
+        assert_eq!(passes as usize, planned, "segments {segments}");
+        let rows = run["estimates"].as_array().unwrap().len();
+        let reports = run["questions"][0]["diagnostics"]["instruments"]
+            .as_array()
+            .unwrap()
+            .len();
+        assert_eq!(rows, reports, "one report per estimate row");
+        assert_eq!(rows, if segments { 4 } else { 1 });
+    }
+    let iv = |extra: &[&str]| -> Vec<String> {
+        let mut a: Vec<String> = [
+            "run",
+            "--graph",
+            LATENT_GRAPH,
+            "--source",
+            LATENT,
+            "--treatment",
+            "voucher",
+            "--outcome",
+            "spend_30d",
+            "--method",
+            "iv",
+        ]
+        .iter()
+        .map(|s| s.to_string())
+        .collect();
+        a.extend(extra.iter().map(|s| s.to_string()));
+        a
+    };
+    let go = |extra: &[&str], code: i32, needles: &[&str]| {
+        let a = iv(extra);
+        fails(
+            &a.iter().map(String::as_str).collect::<Vec<_>>(),
+            code,
+            needles,
+        );
+    };
+    go(
+        &[
+            "--instruments",
+            "mail_wave",
+            "--instrument-given",
+            "mail_wave",
+        ],
+        2,
+        &["instrument `mail_wave` is also a covariate"],
+    );
+    go(&["--estimand", "ATT"], 2, &["compliers", "--estimand ATE"]);
+    go(
+        &["--filter", "mail_wave = 1"],
+        2,
+        &["instrument `mail_wave` has a single level (1)"],
+    );
+    go(
+        &["--instruments", "zone"],
+        3,
+        &["zone -> spend_30d", "mail_wave works"],
+    );
+    // An instrument with no pull on the treatment: parity of the id, centred within each arm
+    // in a source query, so that its covariance with the treatment is zero.
+    let dir = std::env::temp_dir().join(format!("upshot-iv-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    let db = dir.join("latent.duckdb");
+    let e = DuckDbEngine::open(db.to_str().unwrap(), true).unwrap();
+    e.execute_batch(&format!(
+        "CREATE TABLE customers AS SELECT *, (customer_id % 2) - AVG(customer_id % 2) OVER (PARTITION BY voucher) AS parity FROM read_csv_auto('{}')",
+        repo().join(LATENT).display()
+    ))
+    .unwrap();
+    drop(e);
+    let graph = dir.join("parity.graph");
+    std::fs::write(
+        &graph,
+        "income: latent\nparity -> voucher -> spend_30d\nincome -> voucher, spend_30d\n",
+    )
+    .unwrap();
+    fails(
+        &[
+            "run",
+            "--graph",
+            graph.to_str().unwrap(),
+            "--db",
+            db.to_str().unwrap(),
+            "--source",
+            "customers",
+            "--treatment",
+            "voucher",
+            "--outcome",
+            "spend_30d",
+            "--method",
+            "iv",
+            "--instruments",
+            "parity",
+        ],
+        2,
+        &[
+            "do not move the treatment `voucher`",
+            "first-stage F = 0.000",
+        ],
+    );
+    std::fs::remove_dir_all(&dir).unwrap();
+}
