@@ -116,9 +116,10 @@ COMBOS = [
     ("voucher", "spend_30d", {"method": "partial-out", "unit": "customer_id", "folds": 3}),
     ("voucher", "reordered_30d", {"method": "doubly-robust", "estimand": "ATC", "filter": "household_size >= 2"}),
     ("voucher", "spend_30d", {"method": "regress", "squares": True, "interactions": True}),
+    ("voucher", "spend_30d", {"method": "iv", "instruments": "mail_wave", "segments": "tenure_band"}),
 ]
 FLAG = {"segments": "--segment-by", "estimand": "--estimand", "method": "--method", "adjust": "--adjust",
-        "unit": "--unit", "folds": "--folds", "filter": "--filter"}
+        "unit": "--unit", "folds": "--folds", "filter": "--filter", "instruments": "--instruments"}
 for t, y, named in COMBOS:
     flags, params = [], []
     for k, v in named.items():

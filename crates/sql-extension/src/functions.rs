@@ -40,11 +40,13 @@ fn required<'a>(args: &'a Args, i: usize, name: &str) -> Result<&'a str, String>
         .ok_or_else(|| format!("{name}: NULL; give a value"))
 }
 
-const QUESTION: [(&str, Type); 4] = [
+const QUESTION: [(&str, Type); 6] = [
     ("estimand", Type::Text),
     ("method", Type::Text),
     ("segments", Type::Text),
     ("adjust", Type::Text),
+    ("instruments", Type::Text),
+    ("instrument_given", Type::Text),
 ];
 
 /// The request of `(diagram, treatment, outcome)` at positions `at..at + 3` and the question
@@ -102,11 +104,7 @@ impl Rows for Identify {
     }
     fn named() -> Vec<(&'static str, Type)> {
         let mut v = QUESTION.to_vec();
-        v.extend([
-            ("mediators", Type::Text),
-            ("instruments", Type::Text),
-            ("instrument_given", Type::Text),
-        ]);
+        v.push(("mediators", Type::Text));
         v
     }
     fn table(args: &Args, _: &Engine) -> Result<Vec<Vec<Value>>, String> {
