@@ -58,7 +58,7 @@ fn ok(out: &Output, what: &str) -> Value {
     serde_json::from_slice(&out.stdout).unwrap()
 }
 
-/// Every method × estimand the methods take, without and with segments: 28 questions.
+/// Every method × estimand the methods take, without and with segments: 30 questions.
 fn study(dir: &Path) -> PathBuf {
     std::fs::copy(
         repo().join("demo-data/voucher.graph"),
@@ -75,9 +75,10 @@ fn study(dir: &Path) -> PathBuf {
         "partial-out",
         "stratify",
         "iv",
+        "front-door",
     ] {
         for estimand in ["ATE", "ATT", "ATC"] {
-            if matches!(method, "partial-out" | "iv") && estimand != "ATE" {
+            if matches!(method, "partial-out" | "iv" | "front-door") && estimand != "ATE" {
                 continue;
             }
             for segmented in [false, true] {
@@ -90,10 +91,11 @@ fn study(dir: &Path) -> PathBuf {
                         ""
                     },
                     // The mailing wave moves the voucher and nothing else (voucher.graph).
-                    if method == "iv" {
-                        "instruments = [\"mail_wave\"]\n"
-                    } else {
-                        ""
+                    // The voucher acts only through app sessions (voucher.graph).
+                    match method {
+                        "iv" => "instruments = [\"mail_wave\"]\n",
+                        "front-door" => "mediators = [\"app_sessions\"]\n",
+                        _ => "",
                     }
                 ));
             }

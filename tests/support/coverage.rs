@@ -185,6 +185,7 @@ fn main() {
                 outcome: "spend_30d".into(),
                 adjust: adjust.iter().map(|s| s.to_string()).collect(),
                 instruments: vec![],
+                mediators: vec![],
                 segments: vec!["tenure_band".into()],
                 estimand: Estimand::Ate,
                 method: *method,

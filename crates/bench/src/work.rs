@@ -110,6 +110,7 @@ impl Work {
             outcome: "spend_30d".into(),
             adjust: self.adjust(),
             instruments: vec![],
+            mediators: vec![],
             segments: if self.segments {
                 vec!["region".into()]
             } else {

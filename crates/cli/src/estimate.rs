@@ -34,7 +34,7 @@ pub struct Args {
     /// Segment columns for per-segment effects, comma-separated.
     #[arg(long = "segment-by", value_delimiter = ',')]
     segment_by: Vec<String>,
-    /// Method key: auto, stratify, regress, weight, doubly-robust, partial-out, iv.
+    /// Method key: auto, stratify, regress, weight, doubly-robust, partial-out, iv, front-door.
     #[arg(long)]
     method: Option<String>,
     /// Adjustment set to use instead of the one identification picks (checked first).
@@ -43,6 +43,9 @@ pub struct Args {
     /// Instruments for `--method iv`, comma-separated (checked against the diagram first).
     #[arg(long, value_delimiter = ',')]
     instruments: Option<Vec<String>>,
+    /// Mediators for `--method front-door`, comma-separated (checked against the diagram first).
+    #[arg(long, value_delimiter = ',')]
+    mediators: Option<Vec<String>>,
     /// Variables the instruments are conditioned on (covariates of `iv`), comma-separated.
     #[arg(long = "instrument-given", value_delimiter = ',')]
     instrument_given: Vec<String>,
@@ -103,7 +106,7 @@ fn overrides(a: &Args) -> QuestionInput {
         segments: clean(a.segment_by.clone()),
         method: a.method.clone(),
         adjust: a.adjust.clone().map(clean),
-        mediators: None,
+        mediators: a.mediators.clone().map(clean),
         instruments: a.instruments.clone().map(clean),
         instrument_given: clean(a.instrument_given.clone()),
         spelling: Default::default(),

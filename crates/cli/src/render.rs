@@ -32,7 +32,9 @@ pub fn run_text(answers: &[Answer]) -> String {
             s.treatment,
             s.outcome,
             s.method.as_str(),
-            if s.instruments.is_empty() {
+            if !s.mediators.is_empty() {
+                format!("through mediators {{{}}}", s.mediators.join(", "))
+            } else if s.instruments.is_empty() {
                 format!("adjusting for {{{}}}", s.adjustment_set.join(", "))
             } else if s.adjustment_set.is_empty() {
                 format!("instrumented by {{{}}}", s.instruments.join(", "))
@@ -107,7 +109,9 @@ pub fn run_text(answers: &[Answer]) -> String {
                 .collect::<String>(),
             d.passes
         ));
-        if s.instruments.is_empty() {
+        if !s.mediators.is_empty() {
+            o.push_str(&format!("  mediators: {}\n", s.why_this_set));
+        } else if s.instruments.is_empty() {
             o.push_str(&format!("  adjustment set: {}\n", s.why_this_set));
         } else {
             o.push_str(&format!("  instruments: {}\n", s.why_this_set));

@@ -1494,3 +1494,119 @@ fn iv_runs_where_adjustment_cannot_and_refuses_bad_instruments() {
     );
     std::fs::remove_dir_all(&dir).unwrap();
 }
+
+/// `front-door` on the demo's latent variant: the study (a continuous mediator: product of
+/// slopes) covers the simulation truth, plan lists the passes run executes for both routes,
+/// and the bad inputs of mediators are refused.
+#[test]
+fn front_door_runs_where_adjustment_cannot_and_refuses_bad_mediators() {
+    let t: Value = serde_json::from_str(
+        &std::fs::read_to_string(repo().join("demo-data/sample/customers_latent.truth.json"))
+            .unwrap(),
+    )
+    .unwrap();
+    let ate = t["outcomes"]["spend_30d"]["ate"].as_f64().unwrap();
+    let v = json(&["run", "demo-data/voucher-frontdoor.toml"]);
+    let e = &v["estimates"][0];
+    assert_eq!(e["method"], "front-door");
+    assert_eq!(v["questions"][0]["mediators"][0], "app_sessions");
+    let (lo, hi) = (
+        e["ci_low"].as_f64().unwrap(),
+        e["ci_high"].as_f64().unwrap(),
+    );
+    assert!(lo <= ate && ate <= hi, "[{lo}, {hi}] misses {ate}");
+    // A discrete mediator (declared categorical), from a DuckDB table.
+    let dir = std::env::temp_dir().join(format!("upshot-fd-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    let db = dir.join("latent.duckdb");
+    let eng = DuckDbEngine::open(db.to_str().unwrap(), true).unwrap();
+    eng.execute_batch(&format!(
+        "CREATE TABLE customers AS SELECT *, LEAST(app_sessions, 6) AS sessions, LEAST(app_sessions, 12) AS sessions_wide, 3 AS one_value, app_sessions * 2 AS doubled FROM read_csv_auto('{}')",
+        repo().join(LATENT).display()
+    ))
+    .unwrap();
+    drop(eng);
+    // One diagram per mediator set: the mediators intercept every path from voucher.
+    let graph = |mediators: &str| {
+        let path = dir.join(format!("{}.graph", mediators.replace(',', "_")));
+        std::fs::write(
+            &path,
+            format!(
+                "income: latent\nsessions, sessions_wide, one_value: categorical\ntenure_band: ordinal\n\
+                 voucher -> {mediators}\n{mediators} -> spend_30d\n\
+                 income -> voucher, spend_30d\ntenure_band -> {mediators}\n"
+            ),
+        )
+        .unwrap();
+        path.to_str().unwrap().to_string()
+    };
+    let d = db.to_str().unwrap();
+    let args = |mediators: &str, extra: &[&'static str]| -> Vec<String> {
+        let g = graph(mediators);
+        let mut a: Vec<String> = [
+            "--graph",
+            &g,
+            "--db",
+            d,
+            "--source",
+            "customers",
+            "--treatment",
+            "voucher",
+            "--outcome",
+            "spend_30d",
+            "--method",
+            "front-door",
+            "--mediators",
+            mediators,
+        ]
+        .iter()
+        .map(|s| s.to_string())
+        .collect();
+        a.extend(extra.iter().map(|s| s.to_string()));
+        a
+    };
+    for (mediators, segments) in [
+        ("sessions", false),
+        ("sessions", true),
+        ("app_sessions", true),
+    ] {
+        let extra: &[&str] = if segments {
+            &["--segment-by", "tenure_band"]
+        } else {
+            &[]
+        };
+        let a = args(mediators, extra);
+        let a: Vec<&str> = a.iter().map(String::as_str).collect();
+        let plan = json(&[&["plan"], a.as_slice()].concat());
+        let planned = plan["questions"][0]["passes"].as_array().unwrap().len();
+        let run = json(&[&["run"], a.as_slice()].concat());
+        let passes = run["questions"][0]["diagnostics"]["passes"]
+            .as_u64()
+            .unwrap();
+        assert_eq!(passes as usize, planned, "{mediators} segments {segments}");
+    }
+    let go = |mediators: &str, extra: &[&'static str], code: i32, needles: &[&str]| {
+        let mut a = vec!["run".to_string()];
+        a.extend(args(mediators, extra));
+        fails(
+            &a.iter().map(String::as_str).collect::<Vec<_>>(),
+            code,
+            needles,
+        );
+    };
+    go("one_value", &[], 2, &["the mediators take a single value"]);
+    go(
+        "sessions_wide",
+        &["--segment-by", "tenure_band"],
+        2,
+        &["positivity fails", "among the untreated"],
+    );
+    go("app_sessions,doubled", &[], 2, &["needs them all discrete"]);
+    go(
+        "app_sessions",
+        &["--estimand", "ATT"],
+        2,
+        &["--estimand ATE"],
+    );
+    std::fs::remove_dir_all(&dir).unwrap();
+}

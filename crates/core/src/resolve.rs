@@ -1,6 +1,6 @@
 //! Questions resolved to estimator specs, and their plans.
 
-use crate::identify::{assess, assumptions, identification, questions, route_word, Chosen};
+use crate::identify::{assess, assumptions, identification, questions, Chosen};
 use crate::source::source_of;
 use crate::CoreError;
 use serde::Serialize;
@@ -62,6 +62,7 @@ fn method_of(q: &Question, study: &Study, route: Route, adjust: &[String]) -> Me
     };
     match q.method {
         Method::Auto if route == Route::Instrument => Method::Iv,
+        Method::Auto if route == Route::FrontDoor => Method::FrontDoor,
         Method::Auto => {
             let binary = matches!(kind(&q.treatment[0]), Kind::Binary | Kind::Unspecified);
             let discrete = adjust
@@ -104,17 +105,10 @@ fn resolve_one(
     };
     // The adjustment set and the instruments the route gives: on the instrument route, the
     // instruments' conditioning set is what the estimator adjusts for.
-    let (adjust, instruments) = match chosen.route {
-        Route::Adjustment => (chosen.set.clone(), vec![]),
-        Route::Instrument => (chosen.given.clone(), chosen.set.clone()),
-        Route::FrontDoor => {
-            return Err(CoreError::Input(format!(
-                "question `{}`: the effect is identified only through the {} route ({}), whose estimator is not available in this version; the adjustment methods need a valid adjustment set, `iv` an instrument",
-                q.name,
-                route_word(chosen.route),
-                chosen.set.join(", ")
-            )))
-        }
+    let (adjust, instruments, mediators) = match chosen.route {
+        Route::Adjustment => (chosen.set.clone(), vec![], vec![]),
+        Route::Instrument => (chosen.given.clone(), chosen.set.clone(), vec![]),
+        Route::FrontDoor => (vec![], vec![], chosen.set.clone()),
     };
     let method = method_of(q, study, chosen.route, &adjust);
     if !upshot_methods::available().contains(&method) {
@@ -137,11 +131,16 @@ fn resolve_one(
         ),
         None => None,
     };
+    // Declared categorical and ordinal columns are one-hot encoded; a front-door mediator
+    // declared binary is discrete too (the cell formula).
     let categorical = study
         .diagram
         .nodes()
         .iter()
-        .filter(|n| matches!(n.kind, Kind::Categorical | Kind::Ordinal))
+        .filter(|n| {
+            matches!(n.kind, Kind::Categorical | Kind::Ordinal)
+                || (n.kind == Kind::Binary && mediators.contains(&n.name))
+        })
         .map(|n| n.name.clone())
         .collect();
     let spec = Spec {
@@ -153,6 +152,7 @@ fn resolve_one(
         outcome: q.outcome[0].clone(),
         adjust,
         instruments,
+        mediators,
         segments: q.segments.clone(),
         estimand: q.estimand,
         method,
@@ -209,6 +209,9 @@ pub struct QuestionPlan {
     /// Instruments (`iv` only).
     #[serde(skip_serializing_if = "Vec::is_empty")]
     pub instruments: Vec<String>,
+    /// Mediators (`front-door` only).
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub mediators: Vec<String>,
     /// The SQL dialect.
     pub dialect: &'static str,
     /// Hash of the plan's SQL: equal hashes run the same passes.
@@ -244,6 +247,7 @@ pub fn plan(r: &Resolved) -> Result<QuestionPlan, CoreError> {
         estimand: r.spec.estimand,
         adjustment_set: r.spec.adjust.clone(),
         instruments: r.spec.instruments.clone(),
+        mediators: r.spec.mediators.clone(),
         dialect: r.spec.flavor.dialect.name(),
         plan_hash: plan_hash(&r.spec),
         passes,

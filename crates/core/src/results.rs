@@ -25,6 +25,9 @@ pub struct QuestionSummary {
     /// Instruments (`iv` only).
     #[serde(skip_serializing_if = "Vec::is_empty")]
     pub instruments: Vec<String>,
+    /// Mediators (`front-door` only).
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub mediators: Vec<String>,
     /// Why this set.
     pub why_this_set: String,
     /// The rows read: table, file or `query`.
@@ -104,6 +107,7 @@ pub fn run(
                 outcome: r.spec.outcome.clone(),
                 adjustment_set: r.spec.adjust.clone(),
                 instruments: r.spec.instruments.clone(),
+                mediators: r.spec.mediators.clone(),
                 why_this_set: r.chosen.why.clone(),
                 source: r.source_label.clone(),
                 plan_hash: hash,

@@ -7,7 +7,7 @@
 //! with placeholders where a pass inlines numbers that earlier passes compute.
 //!
 //! The seam is the [`Estimator`] trait: one implementation per method, each in a folder of its
-//! own (`stratify/`, `regress/`, `weight/`, `doubly_robust/`, `partial_out/`, `iv/`) holding its pass
+//! own (`stratify/`, `regress/`, `weight/`, `doubly_robust/`, `partial_out/`, `iv/`, `front_door/`) holding its pass
 //! builders (`passes.rs` where it has passes of its own), its math (estimate and variance) and
 //! its unit tests; [`ESTIMATORS`] is the one registration point. Shared machinery has modules of
 //! its own, used by name: `prepare` (profile and levels passes, input checks, design terms),
@@ -54,6 +54,7 @@ macro_rules! estimator {
 mod combine;
 mod crossfit;
 mod doubly_robust;
+mod front_door;
 #[cfg(test)]
 mod golden;
 mod iv;
@@ -88,13 +89,14 @@ pub(crate) trait Estimator: Sync {
 }
 
 /// Every estimator, by method: the one place a new estimator is registered.
-static ESTIMATORS: [&dyn Estimator; 6] = [
+static ESTIMATORS: [&dyn Estimator; 7] = [
     &stratify::Stratify,
     &regress::Regress,
     &weight::Weight,
     &doubly_robust::DoublyRobust,
     &partial_out::PartialOut,
     &iv::Iv,
+    &front_door::FrontDoor,
 ];
 
 /// The methods that have an estimator, in documentation order.
@@ -164,6 +166,8 @@ pub struct Spec {
     pub adjust: Vec<String>,
     /// Excluded instruments (`iv` only; empty otherwise).
     pub instruments: Vec<String>,
+    /// Mediators (`front-door` only; empty otherwise).
+    pub mediators: Vec<String>,
     /// Segment columns.
     pub segments: Vec<String>,
     /// ATE, ATT or ATC.
@@ -495,7 +499,46 @@ impl Spec {
                 "method `auto` must be resolved to an estimator before estimating".into(),
             ));
         }
-        self.check_instruments()
+        self.check_instruments()?;
+        self.check_mediators()
+    }
+
+    /// Mediators belong to `front-door`, which needs at least one, distinct from the treatment,
+    /// the outcome and the segment columns.
+    fn check_mediators(&self) -> Result<(), MethodError> {
+        if self.method != Method::FrontDoor {
+            if !self.mediators.is_empty() {
+                return Err(MethodError::Input(format!(
+                    "mediators ({}) are used by method `front-door` only; drop them, or use --method front-door",
+                    self.mediators.join(", ")
+                )));
+            }
+            return Ok(());
+        }
+        if self.mediators.is_empty() {
+            return Err(MethodError::Input(
+                "method `front-door` needs at least one mediator (--mediators, or the question's `mediators`)".into(),
+            ));
+        }
+        for (i, m) in self.mediators.iter().enumerate() {
+            let role = if *m == self.treatment {
+                Some("the treatment")
+            } else if *m == self.outcome {
+                Some("the outcome")
+            } else if self.segments.contains(m) {
+                Some("a segment column")
+            } else if self.mediators[..i].contains(m) {
+                Some("named twice as a mediator")
+            } else {
+                None
+            };
+            if let Some(role) = role {
+                return Err(MethodError::Input(format!(
+                    "mediator `{m}` is also {role}; name it once, as a mediator only"
+                )));
+            }
+        }
+        Ok(())
     }
 
     /// Instruments belong to `iv`, which needs at least one, distinct from the treatment, the
@@ -579,6 +622,7 @@ pub(crate) mod tests {
             outcome: "y".into(),
             adjust: vec!["x".into()],
             instruments: vec![],
+            mediators: vec![],
             segments: vec![],
             estimand: Estimand::Ate,
             method,
@@ -641,7 +685,8 @@ pub(crate) mod tests {
                 Method::Weight,
                 Method::DoublyRobust,
                 Method::PartialOut,
-                Method::Iv
+                Method::Iv,
+                Method::FrontDoor
             ]
         );
     }

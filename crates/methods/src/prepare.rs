@@ -101,7 +101,7 @@ fn suggest(name: &str, columns: &[ColumnType]) -> String {
 }
 
 /// The columns a spec reads, in a fixed order: treatment, outcome, adjustment set,
-/// instruments, segments, unit key (when folds need it).
+/// instruments, mediators, segments, unit key (when folds need it).
 pub(crate) fn used_columns(spec: &Spec) -> Vec<String> {
     let mut used: Vec<String> = Vec::new();
     let mut add = |c: &String| {
@@ -113,6 +113,7 @@ pub(crate) fn used_columns(spec: &Spec) -> Vec<String> {
     add(&spec.outcome);
     spec.adjust.iter().for_each(&mut add);
     spec.instruments.iter().for_each(&mut add);
+    spec.mediators.iter().for_each(&mut add);
     spec.segments.iter().for_each(&mut add);
     if needs_folds(spec) {
         if let Some(u) = &spec.unit {
@@ -419,7 +420,8 @@ pub(crate) fn profile_pass(spec: &Spec) -> Result<Built<ProfileLayout>, MethodEr
                 // The treatment's and the instruments' 0/1 values are counted (binary
                 // instruments give the Wald ratio and the complier share).
                 zero_one: c == spec.treatment
-                    || (spec.instruments.contains(&c) && !is_categorical(spec, &c)),
+                    || ((spec.instruments.contains(&c) || spec.mediators.contains(&c))
+                        && !is_categorical(spec, &c)),
                 name: c,
             }
         })
@@ -665,7 +667,7 @@ fn instrument_terms(
     Ok((terms, names))
 }
 
-fn numeric_term(p: &Profiled) -> Result<DesignTerm, MethodError> {
+pub(crate) fn numeric_term(p: &Profiled) -> Result<DesignTerm, MethodError> {
     let (Some(mean), Some(sd)) = (p.mean, p.sd) else {
         return Err(MethodError::Input(format!(
             "column `{}` has no numeric values to centre",
