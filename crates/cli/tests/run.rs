@@ -1610,3 +1610,59 @@ fn front_door_runs_where_adjustment_cannot_and_refuses_bad_mediators() {
     );
     std::fs::remove_dir_all(&dir).unwrap();
 }
+
+/// `auto` across routes: adjustment where a set exists, else front-door, else an instrument;
+/// the output names the route and its assumptions.
+#[test]
+fn auto_takes_adjustment_then_front_door_then_instruments() {
+    let base = [
+        "--source",
+        LATENT,
+        "--treatment",
+        "voucher",
+        "--outcome",
+        "spend_30d",
+    ];
+    let v = json(&[&["run", "--graph", GRAPH], base.as_slice()].concat());
+    assert_eq!(v["estimates"][0]["method"], "doubly-robust");
+    let v = json(&[&["run", "--graph", LATENT_GRAPH], base.as_slice()].concat());
+    assert_eq!(v["estimates"][0]["method"], "front-door");
+    let q = &v["questions"][0];
+    assert!(
+        q["why_this_set"].as_str().unwrap().contains("front-door"),
+        "{q}"
+    );
+    assert!(
+        q["assumptions"].as_array().unwrap().iter().any(|a| a
+            .as_str()
+            .unwrap()
+            .contains("mediators carry the whole effect")),
+        "{q}"
+    );
+    let dir = std::env::temp_dir().join(format!("upshot-auto-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    let graph = dir.join("iv.graph");
+    std::fs::write(
+        &graph,
+        "income: latent\nmail_wave: categorical\nmail_wave -> voucher -> spend_30d\nincome -> voucher, spend_30d\n",
+    )
+    .unwrap();
+    let v = json(
+        &[
+            &["run", "--graph", graph.to_str().unwrap()],
+            base.as_slice(),
+        ]
+        .concat(),
+    );
+    assert_eq!(v["estimates"][0]["method"], "iv");
+    let q = &v["questions"][0];
+    assert!(
+        q["assumptions"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .any(|a| a.as_str().unwrap().contains("exclusion")),
+        "{q}"
+    );
+    std::fs::remove_dir_all(&dir).unwrap();
+}
