@@ -76,6 +76,10 @@ pub struct Args {
     /// Add pairwise products of covariates to the models.
     #[arg(long)]
     interactions: bool,
+    /// Suppress estimate rows with fewer than this many rows in either treatment arm (in all,
+    /// for a continuous treatment): no estimate, counts shown as `<k` (0 = show every row).
+    #[arg(long = "min-cell", default_value_t = upshot_core::DEFAULT_MIN_CELL as i64, allow_negative_numbers = true)]
+    min_cell: i64,
     /// Output: text, json or csv (`plan`: text or json).
     #[arg(long, default_value = "text")]
     format: String,
@@ -126,6 +130,7 @@ fn request_of(a: &Args) -> Result<Request, Failure> {
         on_null: a.on_null.clone(),
         squares: a.squares,
         interactions: a.interactions,
+        min_cell: a.min_cell,
         ..request(a.study.as_deref(), a.graph.as_deref(), overrides(a))?
     })
 }

@@ -56,6 +56,18 @@ pub fn run_text(answers: &[Answer]) -> String {
         ];
         let mut rows: Vec<[String; 6]> = vec![header.map(str::to_string)];
         for e in &a.estimates {
+            if let Some(k) = &e.suppressed {
+                let c = |x: Option<f64>| x.map_or("—".to_string(), |_| k.clone());
+                rows.push([
+                    e.segment.clone(),
+                    "suppressed".into(),
+                    "—".into(),
+                    "—".into(),
+                    c(e.n_treated),
+                    c(e.n_control),
+                ]);
+                continue;
+            }
             rows.push([
                 e.segment.clone(),
                 fmt_num(e.estimate),
@@ -212,6 +224,22 @@ pub fn run_csv(answers: &[Answer]) -> String {
     let opt = |x: Option<f64>| x.map_or(String::new(), |v| format!("{v}"));
     for a in answers {
         for e in &a.estimates {
+            if let Some(k) = &e.suppressed {
+                // No number of a suppressed row: the counts read `<k`.
+                let c = |x: Option<f64>| x.map_or(String::new(), |_| k.clone());
+                o.push_str(&format!(
+                    "{},{},{},{},,,,,{},{},{},{}\n",
+                    csv_field(&e.question),
+                    csv_field(&e.segment),
+                    e.estimand.as_str(),
+                    e.method.as_str(),
+                    c(e.n_treated),
+                    c(e.n_control),
+                    k,
+                    csv_field(&e.adjustment_set.join(";"))
+                ));
+                continue;
+            }
             o.push_str(&format!(
                 "{},{},{},{},{:?},{:?},{:?},{:?},{},{},{},{}\n",
                 csv_field(&e.question),

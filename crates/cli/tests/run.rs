@@ -1666,3 +1666,79 @@ fn auto_takes_adjustment_then_front_door_then_instruments() {
     );
     std::fs::remove_dir_all(&dir).unwrap();
 }
+
+/// Small-cell suppression: a segment with fewer than --min-cell rows in an arm shows no
+/// number in any output or in the results table, and one more segment is hidden with it so
+/// that the `all` row's counts cannot give it back.
+#[test]
+fn small_segments_are_suppressed_everywhere() {
+    let args = [
+        "run",
+        "demo-data/voucher-backdoor.toml",
+        "--question",
+        "spend",
+        "--method",
+        "regress",
+        "--min-cell",
+        "700",
+    ];
+    let v = json(&args);
+    let rows = v["estimates"].as_array().unwrap();
+    let hidden: Vec<&str> = rows
+        .iter()
+        .filter(|e| e["suppressed"] == "<700")
+        .map(|e| e["segment"].as_str().unwrap())
+        .collect();
+    // `new` has fewer than 700 untreated rows; 2y+ is the smallest of the others.
+    assert_eq!(hidden, ["tenure_band=2y+", "tenure_band=new"], "{v}");
+    for e in rows.iter().filter(|e| !e["suppressed"].is_null()) {
+        for k in [
+            "estimate",
+            "std_error",
+            "ci_low",
+            "ci_high",
+            "n_treated",
+            "n_control",
+            "n_used",
+        ] {
+            assert!(e[k].is_null(), "{k} of {e}");
+        }
+    }
+    assert!(rows[0]["estimate"].is_number() && rows[1]["estimate"].is_number());
+    let out = upshot(&[&args[..], &["--format", "csv"]].concat());
+    let csv = String::from_utf8_lossy(&out.stdout);
+    let line = csv.lines().find(|l| l.contains("tenure_band=new")).unwrap();
+    assert!(line.contains(",,,,<700,<700,<700,"), "{line}");
+    let out = upshot(&args);
+    let shown = String::from_utf8_lossy(&out.stdout);
+    assert!(
+        shown.contains("suppressed") && shown.contains("<700"),
+        "{shown}"
+    );
+    // The results table: NULLs, never the numbers.
+    let dir = std::env::temp_dir().join(format!("upshot-cells-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    let db = dir.join("r.duckdb");
+    let out = upshot(
+        &[
+            &args[..],
+            &["--db", db.to_str().unwrap(), "--into", "effects"],
+        ]
+        .concat(),
+    );
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out));
+    let e = DuckDbEngine::open(db.to_str().unwrap(), false).unwrap();
+    let n = e
+        .query_number("SELECT COUNT(*) AS n FROM effects WHERE estimate IS NULL AND n_used IS NULL AND n_treated IS NULL")
+        .unwrap();
+    assert_eq!(n, 2.0);
+    drop(e);
+    std::fs::remove_dir_all(&dir).unwrap();
+    // 0 shows every row.
+    let v = json(&[&args[..6], &["--min-cell", "0"]].concat());
+    assert!(v["estimates"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .all(|e| e["suppressed"].is_null()));
+}

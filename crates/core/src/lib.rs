@@ -27,9 +27,11 @@ mod resolve;
 mod results;
 mod source;
 
-pub use request::{diagram_argument, DiagramInput, Request, Spelling};
+pub use request::{diagram_argument, DiagramInput, Request, Spelling, DEFAULT_MIN_CELL};
 pub use resolve::{plan, resolve, QuestionPlan, Resolved, Settings};
-pub use results::{check_results_table, results_rows, run, write_results, Answer, QuestionSummary};
+pub use results::{
+    check_results_table, results_rows, run, suppress_small, write_results, Answer, QuestionSummary,
+};
 pub use source::{
     check_columns, classify_source, database_of, files_of, has_columns_to_check, source_of,
     ResolvedRows, CALLER_DATABASE, DEFAULT_DATABASE,

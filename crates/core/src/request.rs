@@ -51,6 +51,9 @@ pub struct Request {
     pub squares: bool,
     /// Pairwise interactions.
     pub interactions: bool,
+    /// Fewest rows an estimate row needs in each treatment arm (in all, for a continuous
+    /// treatment) to be shown, as given (checked by [`Request::settings`]; 0 = show all).
+    pub min_cell: i64,
 }
 
 impl Default for Request {
@@ -68,9 +71,16 @@ impl Default for Request {
             on_null: "exclude".into(),
             squares: false,
             interactions: false,
+            min_cell: DEFAULT_MIN_CELL as i64,
         }
     }
 }
+
+/// The default of `min_cell`: segments with fewer rows than this in either arm are suppressed.
+/// upshot's choice, after the common practice of statistical agencies of not publishing cells
+/// below a threshold (thresholds of 3 to 30 are used; 20 also keeps an arm's mean from resting
+/// on a handful of rows).
+pub const DEFAULT_MIN_CELL: u32 = 20;
 
 /// Trims names and drops empty ones (`"a, b,"` → `a`, `b`).
 pub fn names(v: Vec<String>) -> Vec<String> {
@@ -194,8 +204,16 @@ impl Request {
                 self.folds
             ))
         })?;
+        let min_cell = u32::try_from(self.min_cell).map_err(|_| {
+            CoreError::Input(format!(
+                "{}: {} is not a row count; give 0 (show every row) or more",
+                self.spelling.arg("min-cell"),
+                self.min_cell
+            ))
+        })?;
         Ok(Settings {
             folds,
+            min_cell,
             clip: self.clip,
             on_null,
             basis: Basis {

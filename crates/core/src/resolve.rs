@@ -20,11 +20,15 @@ pub struct Settings {
     pub on_null: NullPolicy,
     /// Basis expansion of numeric covariates.
     pub basis: Basis,
+    /// Fewest rows an estimate row needs in each treatment arm (in all, for a continuous
+    /// treatment) to be shown; smaller ones are suppressed (0 = show all).
+    pub min_cell: u32,
 }
 
 impl Default for Settings {
     fn default() -> Self {
         Settings {
+            min_cell: crate::request::DEFAULT_MIN_CELL,
             folds: 5,
             clip: 0.01,
             on_null: NullPolicy::Exclude,
@@ -48,6 +52,8 @@ pub struct Resolved {
     pub source_label: String,
     /// The database locator.
     pub database: String,
+    /// Small-cell suppression threshold (see [`Settings::min_cell`]).
+    pub min_cell: u32,
 }
 
 /// The method of a question: its own, or the `auto` rule's choice — `iv` on the instrument
@@ -173,6 +179,7 @@ fn resolve_one(
         chosen,
         source_label: rows.label,
         database: rows.database,
+        min_cell: settings.min_cell,
     })
 }
 

@@ -98,6 +98,8 @@ pub fn run(
             MethodError::Engine(m) => CoreError::Engine(format!("question `{}`: {m}", r.question)),
             other => CoreError::Input(format!("question `{}`: {other}", r.question)),
         })?;
+        let mut outcome = outcome;
+        suppress_small(&mut outcome, r.min_cell);
         answers.push(Answer {
             summary: QuestionSummary {
                 question: r.question.clone(),
@@ -118,6 +120,68 @@ pub fn run(
         });
     }
     Ok(answers)
+}
+
+/// Small-cell suppression: an estimate row with fewer than `k` rows in either treatment arm (in
+/// all, for a continuous treatment) loses its estimate, interval and counts — in every output
+/// and in the results table — and says `<k` instead; its instrument report keeps no numbers.
+/// When a single segment is suppressed, the smallest other segment is too (complementary
+/// suppression): otherwise the `all` row's counts minus the shown segments' would give the
+/// small segment's counts back.
+pub fn suppress_small(outcome: &mut upshot_methods::Outcome, k: u32) {
+    if k == 0 {
+        return;
+    }
+    let k = f64::from(k);
+    let small = |e: &Estimate| match (e.n_treated, e.n_control) {
+        (Some(t), Some(c)) => t < k || c < k,
+        _ => e.n_used < k,
+    };
+    let segments: Vec<usize> = (0..outcome.estimates.len())
+        .filter(|&i| !outcome.estimates[i].segment_values.is_empty())
+        .collect();
+    let mut hide: Vec<usize> = (0..outcome.estimates.len())
+        .filter(|&i| small(&outcome.estimates[i]))
+        .collect();
+    let hidden_segments = segments.iter().filter(|i| hide.contains(i)).count();
+    if hidden_segments == 1 {
+        if let Some(&next) = segments
+            .iter()
+            .filter(|i| !hide.contains(i))
+            .min_by(|a, b| {
+                outcome.estimates[**a]
+                    .n_used
+                    .total_cmp(&outcome.estimates[**b].n_used)
+            })
+        {
+            hide.push(next);
+        }
+    }
+    let reports = &mut outcome.diagnostics.instruments;
+    for (i, e) in outcome.estimates.iter_mut().enumerate() {
+        if !hide.contains(&i) {
+            continue;
+        }
+        e.estimate = f64::NAN;
+        e.std_error = f64::NAN;
+        e.ci_low = f64::NAN;
+        e.ci_high = f64::NAN;
+        e.n_treated = e.n_treated.map(|_| f64::NAN);
+        e.n_control = e.n_control.map(|_| f64::NAN);
+        e.n_used = f64::NAN;
+        e.suppressed = Some(format!("<{k}"));
+        if let Some(r) = reports.get_mut(i) {
+            r.first_stage.clear();
+            r.partial_f = f64::NAN;
+            r.f_df = (f64::NAN, f64::NAN);
+            r.se_unadjusted = f64::NAN;
+            r.se_robust = f64::NAN;
+            r.se_delta = None;
+            r.sargan = None;
+            r.hansen_j = None;
+            r.complier_share = None;
+        }
+    }
 }
 
 /// The run id and the rows of the results table (`sql/results.sql`, one per estimate), in

@@ -277,6 +277,10 @@ pub struct Estimate {
     pub n_used: f64,
     /// Adjustment set.
     pub adjustment_set: Vec<String>,
+    /// `<k` when the row was suppressed for having fewer than k rows in an arm (its numbers
+    /// are then not-a-number, written as null / NULL).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub suppressed: Option<String>,
 }
 
 fn as_map<S: serde::Serializer>(v: &[(String, String)], s: S) -> Result<S::Ok, S::Error> {
@@ -302,6 +306,7 @@ impl Estimate {
             n_control: None,
             n_used: 0.0,
             adjustment_set: spec.adjust.clone(),
+            suppressed: None,
         }
     }
 }

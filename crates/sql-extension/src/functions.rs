@@ -130,8 +130,9 @@ impl Rows for Identify {
     }
 }
 
-const ESTIMATION: [(&str, Type); 7] = [
+const ESTIMATION: [(&str, Type); 8] = [
     ("folds", Type::Bigint),
+    ("min_cell", Type::Bigint),
     ("unit", Type::Text),
     ("filter", Type::Text),
     ("clip", Type::Double),
@@ -155,6 +156,9 @@ fn estimation(mut r: Request, args: &Args) -> Result<Request, String> {
     }
     if let Some(c) = number("clip")? {
         r.clip = c;
+    }
+    if let Some(k) = number("min_cell")? {
+        r.min_cell = k as i64;
     }
     r.unit = args.named("unit").map(String::from);
     r.filter = args.named("filter").map(String::from);
