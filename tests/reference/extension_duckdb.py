@@ -117,9 +117,12 @@ COMBOS = [
     ("voucher", "reordered_30d", {"method": "doubly-robust", "estimand": "ATC", "filter": "household_size >= 2"}),
     ("voucher", "spend_30d", {"method": "regress", "squares": True, "interactions": True}),
     ("voucher", "spend_30d", {"method": "iv", "instruments": "mail_wave", "segments": "tenure_band"}),
+    ("voucher", "spend_30d", {"method": "front-door", "mediators": "app_sessions", "segments": "tenure_band",
+                              "min_cell": 700}),
 ]
 FLAG = {"segments": "--segment-by", "estimand": "--estimand", "method": "--method", "adjust": "--adjust",
-        "unit": "--unit", "folds": "--folds", "filter": "--filter", "instruments": "--instruments"}
+        "unit": "--unit", "folds": "--folds", "filter": "--filter", "instruments": "--instruments",
+        "mediators": "--mediators", "min_cell": "--min-cell"}
 for t, y, named in COMBOS:
     flags, params = [], []
     for k, v in named.items():

@@ -40,13 +40,14 @@ fn required<'a>(args: &'a Args, i: usize, name: &str) -> Result<&'a str, String>
         .ok_or_else(|| format!("{name}: NULL; give a value"))
 }
 
-const QUESTION: [(&str, Type); 6] = [
+const QUESTION: [(&str, Type); 7] = [
     ("estimand", Type::Text),
     ("method", Type::Text),
     ("segments", Type::Text),
     ("adjust", Type::Text),
     ("instruments", Type::Text),
     ("instrument_given", Type::Text),
+    ("mediators", Type::Text),
 ];
 
 /// The request of `(diagram, treatment, outcome)` at positions `at..at + 3` and the question
@@ -103,9 +104,7 @@ impl Rows for Identify {
         vec![Type::Text; 3]
     }
     fn named() -> Vec<(&'static str, Type)> {
-        let mut v = QUESTION.to_vec();
-        v.push(("mediators", Type::Text));
-        v
+        QUESTION.to_vec()
     }
     fn table(args: &Args, _: &Engine) -> Result<Vec<Vec<Value>>, String> {
         let study = request(args, 0)?
