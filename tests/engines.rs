@@ -58,7 +58,7 @@ fn ok(out: &Output, what: &str) -> Value {
     serde_json::from_slice(&out.stdout).unwrap()
 }
 
-/// Every method × estimand the methods take, without and with segments: 30 questions.
+/// Every method × estimand the methods take, without and with segments: 36 questions.
 fn study(dir: &Path) -> PathBuf {
     std::fs::copy(
         repo().join("demo-data/voucher.graph"),
@@ -76,6 +76,7 @@ fn study(dir: &Path) -> PathBuf {
         "stratify",
         "iv",
         "front-door",
+        "coarsen",
     ] {
         for estimand in ["ATE", "ATT", "ATC"] {
             if matches!(method, "partial-out" | "iv" | "front-door") && estimand != "ATE" {

@@ -186,6 +186,7 @@ fn main() {
                 adjust: adjust.iter().map(|s| s.to_string()).collect(),
                 instruments: vec![],
                 mediators: vec![],
+                bins: vec![],
                 segments: vec!["tenure_band".into()],
                 estimand: Estimand::Ate,
                 method: *method,

@@ -111,6 +111,7 @@ impl Work {
             adjust: self.adjust(),
             instruments: vec![],
             mediators: vec![],
+            bins: vec![],
             segments: if self.segments {
                 vec!["region".into()]
             } else {

@@ -34,7 +34,8 @@ pub struct Args {
     /// Segment columns for per-segment effects, comma-separated.
     #[arg(long = "segment-by", value_delimiter = ',')]
     segment_by: Vec<String>,
-    /// Method key: auto, stratify, regress, weight, doubly-robust, partial-out, iv, front-door.
+    /// Method key: auto, stratify, regress, weight, doubly-robust, partial-out, iv, front-door,
+    /// coarsen.
     #[arg(long)]
     method: Option<String>,
     /// Adjustment set to use instead of the one identification picks (checked first).
@@ -80,6 +81,10 @@ pub struct Args {
     /// for a continuous treatment): no estimate, counts shown as `<k` (0 = show every row).
     #[arg(long = "min-cell", default_value_t = upshot_core::DEFAULT_MIN_CELL as i64, allow_negative_numbers = true)]
     min_cell: i64,
+    /// `coarsen`: bins for a numeric covariate instead of the automatic rule, as COLUMN=BINS
+    /// (comma-separated for several).
+    #[arg(long, value_delimiter = ',')]
+    bins: Vec<String>,
     /// Output: text, json or csv (`plan`: text or json).
     #[arg(long, default_value = "text")]
     format: String,
@@ -131,6 +136,7 @@ fn request_of(a: &Args) -> Result<Request, Failure> {
         squares: a.squares,
         interactions: a.interactions,
         min_cell: a.min_cell,
+        bins: a.bins.clone(),
         ..request(a.study.as_deref(), a.graph.as_deref(), overrides(a))?
     })
 }

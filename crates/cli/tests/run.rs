@@ -1742,3 +1742,54 @@ fn small_segments_are_suppressed_everywhere() {
         .iter()
         .all(|e| e["suppressed"].is_null()));
 }
+
+/// `coarsen` runs with the automatic bins and with --bins, plan lists its one cells pass, and a
+/// --bins for a column that is not a numeric covariate is refused.
+#[test]
+fn coarsen_bins_and_matches_exactly() {
+    let base = [
+        "--graph",
+        GRAPH,
+        "--source",
+        SAMPLE,
+        "--treatment",
+        "voucher",
+        "--outcome",
+        "spend_30d",
+        "--method",
+        "coarsen",
+        "--adjust",
+        "household_size,prior_orders,zone",
+    ];
+    let v = json(&[&["run"], base.as_slice(), &["--estimand", "ATT"]].concat());
+    let e = &v["estimates"][0];
+    let att = truth()["outcomes"]["spend_30d"]["att"].as_f64().unwrap();
+    assert!(
+        e["ci_low"].as_f64().unwrap() <= att && att <= e["ci_high"].as_f64().unwrap(),
+        "{e} misses {att}"
+    );
+    let notes = v["questions"][0]["diagnostics"]["notes"].to_string();
+    assert!(
+        notes.contains("unmatched") && notes.contains("coarsened:"),
+        "{notes}"
+    );
+    let plan = json(&[&["plan"], base.as_slice()].concat());
+    let names: Vec<&str> = plan["questions"][0]["passes"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|p| p["name"].as_str().unwrap())
+        .collect();
+    assert_eq!(names, ["profile", "cells"]);
+    assert_eq!(v["questions"][0]["diagnostics"]["passes"], 2);
+    fails(
+        &[&["run"], base.as_slice(), &["--bins", "zone=3"]].concat(),
+        2,
+        &["--bins: `zone` is not a numeric covariate"],
+    );
+    fails(
+        &[&["run"], base.as_slice(), &["--bins", "prior_orders=0"]].concat(),
+        2,
+        &["--bins: `prior_orders=0` is not COLUMN=BINS"],
+    );
+}

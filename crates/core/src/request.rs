@@ -54,6 +54,8 @@ pub struct Request {
     /// Fewest rows an estimate row needs in each treatment arm (in all, for a continuous
     /// treatment) to be shown, as given (checked by [`Request::settings`]; 0 = show all).
     pub min_cell: i64,
+    /// `coarsen`: `column=bins` overrides of the automatic binning, as given.
+    pub bins: Vec<String>,
 }
 
 impl Default for Request {
@@ -72,6 +74,7 @@ impl Default for Request {
             squares: false,
             interactions: false,
             min_cell: DEFAULT_MIN_CELL as i64,
+            bins: vec![],
         }
     }
 }
@@ -211,9 +214,26 @@ impl Request {
                 self.min_cell
             ))
         })?;
+        let mut bins = Vec::new();
+        for b in &self.bins {
+            let parsed = b
+                .split_once('=')
+                .and_then(|(c, n)| Some((c.trim().to_string(), n.trim().parse::<u32>().ok()?)))
+                .filter(|(c, n)| !c.is_empty() && (1..=1000).contains(n));
+            match parsed {
+                Some(p) => bins.push(p),
+                None => {
+                    return Err(CoreError::Input(format!(
+                    "{}: `{b}` is not COLUMN=BINS with 1 to 1000 bins (for example prior_orders=4)",
+                    self.spelling.arg("bins")
+                )))
+                }
+            }
+        }
         Ok(Settings {
             folds,
             min_cell,
+            bins,
             clip: self.clip,
             on_null,
             basis: Basis {

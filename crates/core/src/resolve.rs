@@ -10,7 +10,7 @@ use upshot_sql::{parse_filter, Flavor};
 use upshot_study::{Estimand, Method, Question, Route, Study};
 
 /// How estimates are made, beyond the study: the CLI's flags, a SQL call's named parameters.
-#[derive(Clone, Copy, Debug, PartialEq)]
+#[derive(Clone, Debug, PartialEq)]
 pub struct Settings {
     /// Cross-fitting folds (1 = none; at most 20). Cross-fitting also needs a unit key.
     pub folds: u32,
@@ -23,11 +23,14 @@ pub struct Settings {
     /// Fewest rows an estimate row needs in each treatment arm (in all, for a continuous
     /// treatment) to be shown; smaller ones are suppressed (0 = show all).
     pub min_cell: u32,
+    /// `coarsen`: bins per numeric covariate, overriding the automatic rule.
+    pub bins: Vec<(String, u32)>,
 }
 
 impl Default for Settings {
     fn default() -> Self {
         Settings {
+            bins: vec![],
             min_cell: crate::request::DEFAULT_MIN_CELL,
             folds: 5,
             clip: 0.01,
@@ -159,6 +162,7 @@ fn resolve_one(
         adjust,
         instruments,
         mediators,
+        bins: settings.bins.clone(),
         segments: q.segments.clone(),
         estimand: q.estimand,
         method,

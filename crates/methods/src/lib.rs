@@ -7,13 +7,13 @@
 //! with placeholders where a pass inlines numbers that earlier passes compute.
 //!
 //! The seam is the [`Estimator`] trait: one implementation per method, each in a folder of its
-//! own (`stratify/`, `regress/`, `weight/`, `doubly_robust/`, `partial_out/`, `iv/`, `front_door/`) holding its pass
+//! own (`stratify/`, `regress/`, `weight/`, `doubly_robust/`, `partial_out/`, `iv/`, `front_door/`, `coarsen/`) holding its pass
 //! builders (`passes.rs` where it has passes of its own), its math (estimate and variance) and
 //! its unit tests; [`ESTIMATORS`] is the one registration point. Shared machinery has modules of
 //! its own, used by name: `prepare` (profile and levels passes, input checks, design terms),
 //! `outcome` (per-arm linear outcome models), `propensity` (logistic propensity fits, and the
 //! fits that leave one fold out), `models` (per-group models: by segment, by segment and
-//! fold), `crossfit` (folds, "all but fold k" sums), `read` (typed reading of pass results), `combine` (segments into the `all` row).
+//! fold), `crossfit` (folds, "all but fold k" sums), `read` (typed reading of pass results), `combine` (segments into the `all` row), `strata` (estimates over the strata of a cell table).
 //!
 //! Key design decision: an estimator is straight-line code over a `Runner` rather than an
 //! explicit state enum; the runner is the only place where a pass leaves the process, so
@@ -51,6 +51,7 @@ macro_rules! estimator {
     };
 }
 
+mod coarsen;
 mod combine;
 mod crossfit;
 mod doubly_robust;
@@ -66,6 +67,7 @@ mod prepare;
 mod propensity;
 mod read;
 mod regress;
+mod strata;
 mod stratify;
 mod weight;
 
@@ -89,7 +91,7 @@ pub(crate) trait Estimator: Sync {
 }
 
 /// Every estimator, by method: the one place a new estimator is registered.
-static ESTIMATORS: [&dyn Estimator; 7] = [
+static ESTIMATORS: [&dyn Estimator; 8] = [
     &stratify::Stratify,
     &regress::Regress,
     &weight::Weight,
@@ -97,6 +99,7 @@ static ESTIMATORS: [&dyn Estimator; 7] = [
     &partial_out::PartialOut,
     &iv::Iv,
     &front_door::FrontDoor,
+    &coarsen::Coarsen,
 ];
 
 /// The methods that have an estimator, in documentation order.
@@ -168,6 +171,8 @@ pub struct Spec {
     pub instruments: Vec<String>,
     /// Mediators (`front-door` only; empty otherwise).
     pub mediators: Vec<String>,
+    /// Bins per numeric covariate for `coarsen`, overriding its automatic rule (column, bins).
+    pub bins: Vec<(String, u32)>,
     /// Segment columns.
     pub segments: Vec<String>,
     /// ATE, ATT or ATC.
@@ -628,6 +633,7 @@ pub(crate) mod tests {
             adjust: vec!["x".into()],
             instruments: vec![],
             mediators: vec![],
+            bins: vec![],
             segments: vec![],
             estimand: Estimand::Ate,
             method,
@@ -691,7 +697,8 @@ pub(crate) mod tests {
                 Method::DoublyRobust,
                 Method::PartialOut,
                 Method::Iv,
-                Method::FrontDoor
+                Method::FrontDoor,
+                Method::Coarsen
             ]
         );
     }

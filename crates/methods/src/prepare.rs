@@ -437,7 +437,7 @@ pub(crate) fn profile_pass(spec: &Spec) -> Result<Built<ProfileLayout>, MethodEr
 /// Categorical covariates (and instruments) that need their levels (methods with a design
 /// matrix).
 pub(crate) fn categorical_covariates(spec: &Spec) -> Vec<String> {
-    if spec.method == Method::Stratify {
+    if matches!(spec.method, Method::Stratify | Method::Coarsen) {
         return vec![];
     }
     modelled(spec)
@@ -619,7 +619,7 @@ pub(crate) fn prepare<'a>(spec: &'a Spec, r: &mut dyn Runner) -> Result<Setup<'a
             ..Diagnostics::default()
         },
     };
-    if spec.method != Method::Stratify {
+    if !matches!(spec.method, Method::Stratify | Method::Coarsen) {
         let (terms, names) = covariate_terms(spec, &profiled_cols, &coded)?;
         setup.terms = terms;
         setup.term_names = names;
@@ -971,7 +971,7 @@ pub(crate) fn placeholder<'a>(spec: &'a Spec) -> Result<Setup<'a>, MethodError> 
             rows: 2.0,
         })
         .collect();
-    let (terms, term_names) = if spec.method == Method::Stratify {
+    let (terms, term_names) = if matches!(spec.method, Method::Stratify | Method::Coarsen) {
         (vec![], vec![])
     } else {
         covariate_terms(spec, &profiled, &coded)?

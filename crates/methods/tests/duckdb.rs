@@ -57,6 +57,7 @@ fn every_method_agrees_with_and_without_upshots_functions() {
             },
             instruments: vec![],
             mediators: vec![],
+            bins: vec![],
             segments: vec!["tenure_band".into()],
             estimand,
             method,

@@ -48,7 +48,8 @@ pub use layout::{
     ResidualLayout,
 };
 pub use passes::{
-    cells, gram, levels, logistic_fits, nonfinite, profile, residuals, schema_probe, Variants,
+    binned_cells, cells, gram, levels, logistic_fits, nonfinite, profile, residuals, schema_probe,
+    CellKey, Variants,
 };
 pub use results_table::{results_schema_file, results_sql, ResultsSql, RESULT_COLUMNS};
 pub use source::{

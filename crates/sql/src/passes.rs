@@ -145,6 +145,35 @@ pub fn nonfinite(
     })
 }
 
+/// A key of the cell table: a column's value, or the bin of a numeric column among `bins`
+/// equal-width bins of width `width` starting at `low` (values below the first bin fall in
+/// it, values above the last in the last).
+#[derive(Clone, Debug, PartialEq)]
+pub enum CellKey {
+    /// The column's value.
+    Column(String),
+    /// The bin number 0..bins of the column's value.
+    Bins {
+        /// The column.
+        column: String,
+        /// Lower edge of bin 0.
+        low: f64,
+        /// Bin width (positive).
+        width: f64,
+        /// Number of bins (at least 1).
+        bins: u32,
+    },
+}
+
+impl CellKey {
+    /// The column the key reads.
+    pub fn column(&self) -> &str {
+        match self {
+            CellKey::Column(c) | CellKey::Bins { column: c, .. } => c,
+        }
+    }
+}
+
 /// The cell table: per combination of `keys` (segments, strata, treatment), the row count and
 /// the sum and sum of squares of `value`. Rows with NULL in a key or the value are excluded.
 /// Output aliases: `k{i}`, `n`, `sy`, `syy`; ordered by the keys.
@@ -155,11 +184,49 @@ pub fn cells(
     keys: &[String],
     value: &str,
 ) -> Result<Built<CellsLayout>, SqlError> {
+    let keys: Vec<CellKey> = keys.iter().cloned().map(CellKey::Column).collect();
+    binned_cells(flavor, source, filter, &keys, value)
+}
+
+/// [`cells`] with keys that may bin numeric columns (coarsened exact matching).
+pub fn binned_cells(
+    flavor: &Flavor,
+    source: &Source,
+    filter: Option<&Expr>,
+    keys: &[CellKey],
+    value: &str,
+) -> Result<Built<CellsLayout>, SqlError> {
     let mut t = PassText::new(flavor);
-    let mut used = keys.to_vec();
+    let mut used: Vec<String> = keys.iter().map(|k| k.column().to_string()).collect();
     used.push(value.to_string());
     let y = t.column(value);
-    let ks: Vec<String> = keys.iter().map(|k| t.column(k)).collect();
+    let mut ks: Vec<String> = Vec::new();
+    for k in keys {
+        ks.push(match k {
+            CellKey::Column(c) => t.column(c),
+            CellKey::Bins {
+                column,
+                low,
+                width,
+                bins,
+            } => {
+                if !(width.is_finite() && *width > 0.0) || *bins == 0 {
+                    return Err(SqlError::BadScale {
+                        column: column.clone(),
+                        scale: *width,
+                    });
+                }
+                let x = t.float_column(column);
+                let lo = t.number(*low, &format!("the lowest bin edge of `{column}`"))?;
+                let w = t.number(*width, &format!("the bin width of `{column}`"))?;
+                let last = t.number(f64::from(bins - 1), "the last bin")?;
+                let zero = t.number(0.0, "the first bin")?;
+                format!(
+                    "CAST(LEAST({last}, GREATEST({zero}, FLOOR(({x} - {lo}) / {w}))) AS BIGINT)"
+                )
+            }
+        });
+    }
     let mut items: Vec<String> = ks
         .iter()
         .enumerate()
@@ -185,7 +252,13 @@ pub fn cells(
             name: "cells".into(),
             purpose: format!(
                 "per cell of ({}): n, sum and sum of squares of the outcome",
-                keys.join(", ")
+                keys.iter()
+                    .map(|k| match k {
+                        CellKey::Column(c) => c.clone(),
+                        CellKey::Bins { column, bins, .. } => format!("{column} in {bins} bins"),
+                    })
+                    .collect::<Vec<_>>()
+                    .join(", ")
             ),
             query: t.query(source, filter)?,
         },
