@@ -364,13 +364,7 @@ impl TwoStage {
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    fn lcg(state: &mut u64) -> f64 {
-        *state = state
-            .wrapping_mul(6364136223846793005)
-            .wrapping_add(1442695040888963407);
-        ((*state >> 11) as f64) / ((1u64 << 53) as f64) - 0.5
-    }
+    use crate::tests::lcg;
 
     /// The χ² upper tail at the published 5% critical values (1 and 2 degrees of freedom:
     /// 3.841459, 5.991465; any χ² table) and at x = df (0.3173 for 1: 2Φ(−1)).

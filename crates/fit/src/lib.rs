@@ -68,3 +68,14 @@ pub enum FitError {
         condition: f64,
     },
 }
+
+#[cfg(test)]
+pub(crate) mod tests {
+    /// A reproducible uniform draw in [−0.5, 0.5) (a 64-bit linear congruential generator).
+    pub(crate) fn lcg(state: &mut u64) -> f64 {
+        *state = state
+            .wrapping_mul(6364136223846793005)
+            .wrapping_add(1442695040888963407);
+        ((*state >> 11) as f64) / ((1u64 << 53) as f64) - 0.5
+    }
+}

@@ -228,13 +228,7 @@ pub fn ols(m: &Moments, y: usize, x: &[usize]) -> Result<Ols, FitError> {
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    fn lcg(state: &mut u64) -> f64 {
-        *state = state
-            .wrapping_mul(6364136223846793005)
-            .wrapping_add(1442695040888963407);
-        ((*state >> 11) as f64) / ((1u64 << 53) as f64) - 0.5
-    }
+    use crate::tests::lcg;
 
     #[test]
     fn recovers_an_exact_linear_model() {

@@ -530,25 +530,38 @@ impl Spec {
                 "method `front-door` needs at least one mediator (--mediators, or the question's `mediators`)".into(),
             ));
         }
-        for (i, m) in self.mediators.iter().enumerate() {
-            let role = if *m == self.treatment {
-                Some("the treatment")
-            } else if *m == self.outcome {
-                Some("the outcome")
-            } else if self.segments.contains(m) {
-                Some("a segment column")
-            } else if self.mediators[..i].contains(m) {
-                Some("named twice as a mediator")
-            } else {
-                None
-            };
-            if let Some(role) = role {
-                return Err(MethodError::Input(format!(
-                    "mediator `{m}` is also {role}; name it once, as a mediator only"
-                )));
-            }
+        if let Some((m, role)) = self.conflict(&self.mediators, &[]) {
+            return Err(MethodError::Input(format!(
+                "mediator `{m}` is also {role}; name it once, as a mediator only"
+            )));
         }
         Ok(())
+    }
+
+    /// The first of `names` that plays another part as well — the treatment, the outcome, a
+    /// segment column, one of `others` (with its part), or an earlier entry of `names` — and
+    /// that part.
+    fn conflict<'a>(
+        &self,
+        names: &'a [String],
+        others: &[(&[String], &'static str)],
+    ) -> Option<(&'a str, &'static str)> {
+        names.iter().enumerate().find_map(|(i, n)| {
+            let role = if *n == self.treatment {
+                "the treatment"
+            } else if *n == self.outcome {
+                "the outcome"
+            } else if let Some((_, role)) = others.iter().find(|(set, _)| set.contains(n)) {
+                role
+            } else if self.segments.contains(n) {
+                "a segment column"
+            } else if names[..i].contains(n) {
+                "named twice"
+            } else {
+                return None;
+            };
+            Some((n.as_str(), role))
+        })
     }
 
     /// Instruments belong to `iv`, which needs at least one, distinct from the treatment, the
@@ -569,25 +582,16 @@ impl Spec {
                 "method `iv` needs at least one instrument (--instruments, or the question's `instruments`)".into(),
             ));
         }
-        for (i, z) in self.instruments.iter().enumerate() {
-            let role = if *z == self.treatment {
-                Some("the treatment")
-            } else if *z == self.outcome {
-                Some("the outcome")
-            } else if self.adjust.contains(z) {
-                Some("a covariate the instruments are conditioned on")
-            } else if self.segments.contains(z) {
-                Some("a segment column")
-            } else if self.instruments[..i].contains(z) {
-                Some("named twice as an instrument")
-            } else {
-                None
-            };
-            if let Some(role) = role {
-                return Err(MethodError::Input(format!(
-                    "instrument `{z}` is also {role}; an instrument must be excluded from the outcome equation — name it once, as an instrument only"
-                )));
-            }
+        if let Some((z, role)) = self.conflict(
+            &self.instruments,
+            &[(
+                &self.adjust,
+                "a covariate the instruments are conditioned on",
+            )],
+        ) {
+            return Err(MethodError::Input(format!(
+                "instrument `{z}` is also {role}; an instrument must be excluded from the outcome equation — name it once, as an instrument only"
+            )));
         }
         if self.estimand != Estimand::Ate {
             return Err(MethodError::Input(format!(

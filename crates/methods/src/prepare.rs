@@ -630,6 +630,21 @@ pub(crate) fn prepare<'a>(spec: &'a Spec, r: &mut dyn Runner) -> Result<Setup<'a
     Ok(setup)
 }
 
+/// The indicators of a coded categorical column as centred, scaled terms (centre: the level's
+/// share; scale: its binomial standard deviation), with their names.
+fn level_terms(code: &Coded, terms: &mut Vec<DesignTerm>, names: &mut Vec<String>) {
+    for g in &code.indicators {
+        let share = g.rows / code.rows;
+        terms.push(DesignTerm::Level {
+            column: code.column.clone(),
+            levels: g.levels.clone(),
+            centre: share,
+            scale: (share * (1.0 - share)).sqrt(),
+        });
+        names.push(g.name.clone());
+    }
+}
+
 /// The instruments as centred, scaled terms and their names: a numeric instrument as itself,
 /// a categorical one as the indicators of its levels (coded like a covariate's). A constant
 /// instrument is refused.
@@ -642,16 +657,7 @@ fn instrument_terms(
     let mut names = Vec::new();
     for z in &spec.instruments {
         if let Some(code) = coded.iter().find(|k| &k.column == z) {
-            for g in &code.indicators {
-                let share = g.rows / code.rows;
-                terms.push(DesignTerm::Level {
-                    column: z.clone(),
-                    levels: g.levels.clone(),
-                    centre: share,
-                    scale: (share * (1.0 - share)).sqrt(),
-                });
-                names.push(g.name.clone());
-            }
+            level_terms(code, &mut terms, &mut names);
             continue;
         }
         let p = profiled.iter().find(|p| &p.name == z).expect("profiled");
@@ -888,16 +894,7 @@ pub(crate) fn covariate_terms(
     let mut numeric_base = Vec::new();
     for c in &modelled(spec) {
         if let Some(code) = coded.iter().find(|k| &k.column == c) {
-            for g in &code.indicators {
-                let share = g.rows / code.rows;
-                terms.push(DesignTerm::Level {
-                    column: c.clone(),
-                    levels: g.levels.clone(),
-                    centre: share,
-                    scale: (share * (1.0 - share)).sqrt(),
-                });
-                names.push(g.name.clone());
-            }
+            level_terms(code, &mut terms, &mut names);
         } else {
             let p = profiled.iter().find(|p| &p.name == c).expect("profiled");
             if p.sd.unwrap_or(0.0) <= 0.0 {

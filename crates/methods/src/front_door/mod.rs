@@ -23,13 +23,14 @@
 
 use crate::combine::{finish, segment_label, Part};
 use crate::crossfit::gram_pass;
+use crate::models::{per_segment, placeholder_segments};
 use crate::prepare::{is_categorical, numeric_term, Setup};
 use crate::read::{by_segment, moments, row_of, symmetric};
 use crate::{ask, Estimand, MethodError, Outcome, Runner};
 use upshot_fit::{ols, Moments};
 use upshot_sql::{
-    cells, residuals, Built, CellsLayout, Design, DesignTerm, KeyValue, Model, Models, Pass,
-    ResidualLayout, Selector,
+    cells, residuals, Built, CellsLayout, Design, DesignTerm, KeyValue, Models, Pass,
+    ResidualLayout,
 };
 
 /// Whether the spec's mediators are discrete (every one categorical in the spec's sense).
@@ -94,28 +95,8 @@ fn residual_pass(
     )?)
 }
 
-fn segment_models(nseg: usize, models: Vec<Model>) -> Models {
-    Models {
-        selector: Selector {
-            keys: (0..nseg).collect(),
-            fold: false,
-        },
-        models,
-    }
-}
-
 fn placeholder_models(s: &Setup, width: usize) -> Models {
-    let nseg = s.spec.segments.len();
-    let key = (0..nseg)
-        .map(|_| KeyValue::Text("<each segment>".into()))
-        .collect();
-    segment_models(
-        nseg,
-        vec![Model {
-            key,
-            coef: vec![0.0; width],
-        }],
-    )
+    per_segment(&placeholder_segments(s), &[vec![0.0; width]])
 }
 
 fn gram_terms(s: &Setup) -> Result<Vec<DesignTerm>, MethodError> {
@@ -376,20 +357,19 @@ fn run_linear(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError> {
             beta,
         });
     }
+    let keys: Vec<Vec<KeyValue>> = segs.iter().map(|seg| seg.key.clone()).collect();
     let models = |outcome: bool| {
-        segment_models(
-            nseg,
-            segs.iter()
-                .map(|seg| Model {
-                    key: seg.key.clone(),
-                    coef: if outcome {
-                        seg.beta.design_coefficients(&seg.m, &[0, 1])
-                    } else {
-                        seg.alpha.design_coefficients(&seg.m, &[0])
-                    },
-                })
-                .collect(),
-        )
+        let coefs: Vec<Vec<f64>> = segs
+            .iter()
+            .map(|seg| {
+                if outcome {
+                    seg.beta.design_coefficients(&seg.m, &[0, 1])
+                } else {
+                    seg.alpha.design_coefficients(&seg.m, &[0])
+                }
+            })
+            .collect();
+        per_segment(&keys, &coefs)
     };
     let yp = residual_pass(s, true, &models(true))?;
     let ya = ask(r, &yp)?;

@@ -9,15 +9,14 @@
 
 use crate::combine::{segment, segment_label};
 use crate::crossfit::gram_pass;
+use crate::models::{per_segment, placeholder_segments};
 use crate::prepare::{modelled, Setup};
 use crate::read::{by_segment, moments, row_of, symmetric};
 use crate::{
     ask, Estimate, InstrumentCoefficient, InstrumentReport, MethodError, Outcome, Runner, TestStat,
 };
 use upshot_fit::{two_stage, FitError, IvColumns, Moments, TwoStage};
-use upshot_sql::{
-    residuals, Built, Design, DesignTerm, KeyValue, Model, Models, Pass, ResidualLayout, Selector,
-};
+use upshot_sql::{residuals, Built, Design, DesignTerm, KeyValue, Models, Pass, ResidualLayout};
 
 /// First-stage F below which the instruments count as weak: common practice after Staiger &
 /// Stock (1997).
@@ -66,39 +65,12 @@ fn score_pass(
     )?)
 }
 
-fn segment_models(nseg: usize, models: Vec<Model>) -> Models {
-    Models {
-        selector: Selector {
-            keys: (0..nseg).collect(),
-            fold: false,
-        },
-        models,
-    }
-}
-
 fn width(s: &Setup) -> usize {
     s.terms.len() + s.instrument_terms.len() + 2
 }
 
 fn placeholder_models(s: &Setup) -> Models {
-    let nseg = s.spec.segments.len();
-    let key = (0..nseg)
-        .map(|_| KeyValue::Text("<each segment>".into()))
-        .collect();
-    segment_models(
-        nseg,
-        vec![Model {
-            key,
-            coef: vec![0.0; width(s)],
-        }],
-    )
-}
-
-fn pooled(coef: Vec<f64>) -> Models {
-    Models {
-        selector: Selector::single(),
-        models: vec![Model { key: vec![], coef }],
-    }
+    per_segment(&placeholder_segments(s), &[vec![0.0; width(s)]])
 }
 
 pub(crate) fn passes(s: &Setup) -> Result<Vec<Pass>, MethodError> {
@@ -107,7 +79,7 @@ pub(crate) fn passes(s: &Setup) -> Result<Vec<Pass>, MethodError> {
         score_pass(s, &placeholder_models(s), true)?.pass,
     ];
     if !s.spec.segments.is_empty() {
-        out.push(score_pass(s, &pooled(vec![0.0; width(s)]), false)?.pass);
+        out.push(score_pass(s, &Models::single(vec![0.0; width(s)]), false)?.pass);
     }
     Ok(out)
 }
@@ -240,15 +212,9 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
         let fit = fit(s, &m, &label)?;
         segs.push(Seg { key, m, fit });
     }
-    let models = segment_models(
-        nseg,
-        segs.iter()
-            .map(|seg| Model {
-                key: seg.key.clone(),
-                coef: seg.fit.design.clone(),
-            })
-            .collect(),
-    );
+    let keys: Vec<Vec<KeyValue>> = segs.iter().map(|seg| seg.key.clone()).collect();
+    let coefs: Vec<Vec<f64>> = segs.iter().map(|seg| seg.fit.design.clone()).collect();
+    let models = per_segment(&keys, &coefs);
     let sp = score_pass(s, &models, true)?;
     let res = ask(r, &sp)?;
     let w = width(s);
@@ -293,7 +259,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
                 .map_err(|e| MethodError::Engine(e.to_string()))?;
         }
         let f = fit(s, &all, "all rows")?;
-        let pp = score_pass(s, &pooled(f.design.clone()), false)?;
+        let pp = score_pass(s, &Models::single(f.design.clone()), false)?;
         let pr = ask(r, &pp)?;
         let meat = symmetric(&pp.layout.meat(&pr, 0)?, w);
         estimates.push(one(&[], &all, &f, &meat)?);
