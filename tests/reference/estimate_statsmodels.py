@@ -315,12 +315,12 @@ def demo_checks(binary, csv):
                     (e["estimate"], e["std_error"]), (float(full.params[-1]), float(full.bse[-1])), scale)
     # Coarsened exact matching (Iacus, King & Porro 2012): bins computed here with numpy from
     # the documented rule (Sturges: ceil(log2 n) + 1 equal-width bins between min and max; an
-    # integer column spanning no more values than that gets one bin per value; --bins sets a
+    # integer column spanning no more values than that gets one bin per value; --coarsen sets a
     # column's count), then the same strata arithmetic as the stratify reference.
     for est, bins in (("ATT", {}), ("ATE", {"prior_orders": 3, "household_size": 2})):
         extra = ["--adjust", "household_size,prior_orders,zone"]
         if bins:
-            extra += ["--bins", ",".join(f"{c}={k}" for c, k in bins.items())]
+            extra += ["--coarsen", ",".join(f"{c}={k}" for c, k in bins.items())]
         got = upshot(binary, csv, graph, t, y, "coarsen", est, extra=extra)
         e = got["estimates"][0]
         cdf = df.copy()

@@ -84,7 +84,7 @@ pub struct Args {
     /// `coarsen`: bins for a numeric covariate instead of the automatic rule, as COLUMN=BINS
     /// (comma-separated for several).
     #[arg(long, value_delimiter = ',')]
-    bins: Vec<String>,
+    coarsen: Vec<String>,
     /// Output: text, json or csv (`plan`: text or json).
     #[arg(long, default_value = "text")]
     format: String,
@@ -136,7 +136,7 @@ fn request_of(a: &Args) -> Result<Request, Failure> {
         squares: a.squares,
         interactions: a.interactions,
         min_cell: a.min_cell,
-        bins: a.bins.clone(),
+        coarsen: a.coarsen.clone(),
         ..request(a.study.as_deref(), a.graph.as_deref(), overrides(a))?
     })
 }

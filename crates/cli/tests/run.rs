@@ -1743,8 +1743,8 @@ fn small_segments_are_suppressed_everywhere() {
         .all(|e| e["suppressed"].is_null()));
 }
 
-/// `coarsen` runs with the automatic bins and with --bins, plan lists its one cells pass, and a
-/// --bins for a column that is not a numeric covariate is refused.
+/// `coarsen` runs with the automatic bins and with --coarsen, plan lists its one cells pass, and a
+/// --coarsen for a column that is not a numeric covariate is refused.
 #[test]
 fn coarsen_bins_and_matches_exactly() {
     let base = [
@@ -1783,13 +1783,13 @@ fn coarsen_bins_and_matches_exactly() {
     assert_eq!(names, ["profile", "cells"]);
     assert_eq!(v["questions"][0]["diagnostics"]["passes"], 2);
     fails(
-        &[&["run"], base.as_slice(), &["--bins", "zone=3"]].concat(),
+        &[&["run"], base.as_slice(), &["--coarsen", "zone=3"]].concat(),
         2,
-        &["--bins: `zone` is not a numeric covariate"],
+        &["bins were given for `zone`, which is not a numeric covariate"],
     );
     fails(
-        &[&["run"], base.as_slice(), &["--bins", "prior_orders=0"]].concat(),
+        &[&["run"], base.as_slice(), &["--coarsen", "prior_orders=0"]].concat(),
         2,
-        &["--bins: `prior_orders=0` is not COLUMN=BINS"],
+        &["--coarsen: `prior_orders=0` is not COLUMN=BINS"],
     );
 }

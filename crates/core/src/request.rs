@@ -55,7 +55,7 @@ pub struct Request {
     /// treatment) to be shown, as given (checked by [`Request::settings`]; 0 = show all).
     pub min_cell: i64,
     /// `coarsen`: `column=bins` overrides of the automatic binning, as given.
-    pub bins: Vec<String>,
+    pub coarsen: Vec<String>,
 }
 
 impl Default for Request {
@@ -74,7 +74,7 @@ impl Default for Request {
             squares: false,
             interactions: false,
             min_cell: DEFAULT_MIN_CELL as i64,
-            bins: vec![],
+            coarsen: vec![],
         }
     }
 }
@@ -215,7 +215,7 @@ impl Request {
             ))
         })?;
         let mut bins = Vec::new();
-        for b in &self.bins {
+        for b in &self.coarsen {
             let parsed = b
                 .split_once('=')
                 .and_then(|(c, n)| Some((c.trim().to_string(), n.trim().parse::<u32>().ok()?)))
@@ -225,7 +225,7 @@ impl Request {
                 None => {
                     return Err(CoreError::Input(format!(
                     "{}: `{b}` is not COLUMN=BINS with 1 to 1000 bins (for example prior_orders=4)",
-                    self.spelling.arg("bins")
+                    self.spelling.arg("coarsen")
                 )))
                 }
             }

@@ -131,7 +131,7 @@ impl Rows for Identify {
 
 const ESTIMATION: [(&str, Type); 9] = [
     ("folds", Type::Bigint),
-    ("bins", Type::Text),
+    ("coarsen", Type::Text),
     ("min_cell", Type::Bigint),
     ("unit", Type::Text),
     ("filter", Type::Text),
@@ -161,7 +161,7 @@ fn estimation(mut r: Request, args: &Args) -> Result<Request, String> {
         r.min_cell = k as i64;
     }
     r.unit = args.named("unit").map(String::from);
-    r.bins = list(args.named("bins"));
+    r.coarsen = list(args.named("coarsen"));
     r.filter = args.named("filter").map(String::from);
     if let Some(n) = args.named("on_null") {
         r.on_null = n.to_string();

@@ -7,7 +7,7 @@
 //!
 //! Binning rule (automatic): Sturges' rule, `⌈log₂ n⌉ + 1` equal-width bins between the
 //! column's minimum and maximum over the rows used (the profile pass gives all three, so the
-//! bins cost no pass); `--bins COLUMN=K` sets K for a column. A column whose values are
+//! bins cost no pass); `--coarsen COLUMN=K` sets K for a column. A column whose values are
 //! integers spanning no more than the bins gets one bin per value instead (no cell splits a
 //! value, none is empty by construction).
 
@@ -89,7 +89,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     for (c, _) in &spec.bins {
         if !modelled(spec).contains(c) || is_categorical(spec, c) {
             return Err(MethodError::Input(format!(
-                "--bins: `{c}` is not a numeric covariate of this question (its numeric covariates: {})",
+                "bins were given for `{c}`, which is not a numeric covariate of this question (its numeric covariates: {})",
                 modelled(spec)
                     .into_iter()
                     .filter(|m| !is_categorical(spec, m))
