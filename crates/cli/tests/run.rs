@@ -1705,6 +1705,25 @@ fn small_segments_are_suppressed_everywhere() {
         }
     }
     assert!(rows[0]["estimate"].is_number() && rows[1]["estimate"].is_number());
+    let notes = v["questions"][0]["diagnostics"]["notes"].to_string();
+    assert!(
+        notes.contains("segment tenure_band=new: suppressed"),
+        "{notes}"
+    );
+    // Notes about a hidden segment (coarsen's hold its unmatched counts) are withheld.
+    let mut coarse = args.to_vec();
+    coarse[5] = "coarsen";
+    let v = json(&coarse);
+    let notes = v["questions"][0]["diagnostics"]["notes"]
+        .as_array()
+        .unwrap();
+    for n in notes {
+        let n = n.as_str().unwrap();
+        assert!(
+            !n.starts_with("segment tenure_band=new") || n.contains("suppressed"),
+            "{n}"
+        );
+    }
     let out = upshot(&[&args[..], &["--format", "csv"]].concat());
     let csv = String::from_utf8_lossy(&out.stdout);
     let line = csv.lines().find(|l| l.contains("tenure_band=new")).unwrap();

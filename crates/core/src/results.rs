@@ -127,7 +127,8 @@ pub fn run(
 /// and in the results table — and says `<k` instead; its instrument report keeps no numbers.
 /// When a single segment is suppressed, the smallest other segment is too (complementary
 /// suppression): otherwise the `all` row's counts minus the shown segments' would give the
-/// small segment's counts back.
+/// small segment's counts back. The notes and warnings about a suppressed row (which can hold
+/// its counts) are withheld, and one note says so.
 pub fn suppress_small(outcome: &mut upshot_methods::Outcome, k: u32) {
     if k == 0 {
         return;
@@ -157,11 +158,22 @@ pub fn suppress_small(outcome: &mut upshot_methods::Outcome, k: u32) {
             hide.push(next);
         }
     }
-    let reports = &mut outcome.diagnostics.instruments;
+    let diagnostics = &mut outcome.diagnostics;
+    let reports = &mut diagnostics.instruments;
     for (i, e) in outcome.estimates.iter_mut().enumerate() {
         if !hide.contains(&i) {
             continue;
         }
+        let label = if e.segment_values.is_empty() {
+            "all rows:".to_string()
+        } else {
+            format!("segment {}:", e.segment)
+        };
+        diagnostics.notes.retain(|n| !n.starts_with(&label));
+        diagnostics.warnings.retain(|w| !w.starts_with(&label));
+        diagnostics.notes.push(format!(
+            "{label} suppressed (fewer than {k} rows in an arm); its estimate, counts and notes are withheld"
+        ));
         e.estimate = f64::NAN;
         e.std_error = f64::NAN;
         e.ci_low = f64::NAN;
