@@ -187,6 +187,7 @@ fn main() {
                 instruments: vec![],
                 mediators: vec![],
                 bins: vec![],
+                matching: Default::default(),
                 segments: vec!["tenure_band".into()],
                 estimand: Estimand::Ate,
                 method: *method,

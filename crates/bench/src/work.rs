@@ -112,6 +112,7 @@ impl Work {
             instruments: vec![],
             mediators: vec![],
             bins: vec![],
+            matching: Default::default(),
             segments: if self.segments {
                 vec!["region".into()]
             } else {

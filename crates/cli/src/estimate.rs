@@ -35,7 +35,7 @@ pub struct Args {
     #[arg(long = "segment-by", value_delimiter = ',')]
     segment_by: Vec<String>,
     /// Method key: auto, stratify, regress, weight, doubly-robust, partial-out, iv, front-door,
-    /// coarsen.
+    /// match, coarsen.
     #[arg(long)]
     method: Option<String>,
     /// Adjustment set to use instead of the one identification picks (checked first).
@@ -85,6 +85,20 @@ pub struct Args {
     /// (comma-separated for several).
     #[arg(long, value_delimiter = ',')]
     coarsen: Vec<String>,
+    /// `match`: rows of the other arm matched to each row (1:k, with replacement).
+    #[arg(long, default_value_t = 1, allow_negative_numbers = true)]
+    neighbours: i64,
+    /// `match`: refuse matches farther than this many pooled standard deviations of the logit
+    /// of the propensity (0.2 is the usual choice).
+    #[arg(long, allow_negative_numbers = true)]
+    caliper: Option<f64>,
+    /// `run --method match`: create this table in the source's database with one row per
+    /// matched unit (unit key, treatment, outcome, counterfactual, difference, distance).
+    #[arg(long = "rows-into")]
+    rows_into: Option<String>,
+    /// `run --rows-into`: replace the table if it exists.
+    #[arg(long)]
+    replace: bool,
     /// Output: text, json or csv (`plan`: text or json).
     #[arg(long, default_value = "text")]
     format: String,
@@ -137,15 +151,17 @@ fn request_of(a: &Args) -> Result<Request, Failure> {
         interactions: a.interactions,
         min_cell: a.min_cell,
         coarsen: a.coarsen.clone(),
+        neighbours: a.neighbours,
+        caliper: a.caliper,
         ..request(a.study.as_deref(), a.graph.as_deref(), overrides(a))?
     })
 }
 
 /// `upshot plan`.
 pub fn run_plan(a: Args) -> Result<i32, Failure> {
-    if a.into.is_some() || a.run_key.is_some() {
+    if a.into.is_some() || a.run_key.is_some() || a.rows_into.is_some() || a.replace {
         return Err(Failure::input(
-            "--into and --run-key belong to `upshot run`; `plan` writes nothing",
+            "--into, --run-key, --rows-into and --replace belong to `upshot run`; `plan` writes nothing",
         ));
     }
     if a.timeout.is_some() {
@@ -264,6 +280,15 @@ pub fn run_run(a: Args) -> Result<i32, Failure> {
             "--run-key needs --into TABLE (it names a run in the results table)",
         ));
     }
+    if a.replace && a.rows_into.is_none() {
+        return Err(Failure::input(
+            "--replace needs --rows-into TABLE (it allows that table to be replaced)",
+        ));
+    }
+    let rows_into = a.rows_into.as_ref().map(|table| upshot_core::RowsInto {
+        table: table.clone(),
+        replace: a.replace,
+    });
     let request = request_of(&a)?;
     let study = request.study("run")?;
     let settings = request.settings()?;
@@ -277,7 +302,10 @@ pub fn run_run(a: Args) -> Result<i32, Failure> {
         &settings,
         Flavor::plain(connector.dialect()),
     )?;
-    let access = if a.into.is_some() {
+    if let Some(r) = &rows_into {
+        upshot_core::check_rows_request(&resolved, r)?;
+    }
+    let access = if a.into.is_some() || rows_into.is_some() {
         Access::ReadWrite
     } else {
         Access::ReadOnly
@@ -303,6 +331,9 @@ pub fn run_run(a: Args) -> Result<i32, Failure> {
             "--into needs a database file to write to: give --db FILE (a DuckDB file; it is created if missing)",
         ));
     }
+    if let Some(r) = &rows_into {
+        upshot_core::check_rows_table(engine.as_ref(), r)?;
+    }
     let mut progress = Progress {
         on: std::io::stderr().is_terminal() && format == "text",
         count: 0,
@@ -315,24 +346,30 @@ pub fn run_run(a: Args) -> Result<i32, Failure> {
         "csv" => render::run_csv(&answers),
         _ => render::run_text(&answers),
     };
-    match &a.into {
-        // The rows are written, then the output, then the transaction commits: both or neither.
-        Some(table) => {
-            let out = if format == "text" {
-                format!("{out}estimates appended to {table}\n")
-            } else {
-                out
-            };
-            upshot_core::write_results(
-                engine.as_ref(),
-                table,
-                a.run_key.as_deref(),
-                &study,
-                &answers,
-                &mut || emit(&out).map_err(|f| f.message),
-            )?;
-        }
-        None => emit(&out)?,
+    if a.into.is_none() && rows_into.is_none() {
+        emit(&out)?;
+        return Ok(OK);
     }
+    // The tables are written, then the output, then the transaction commits: all or nothing.
+    let mut out = out;
+    if format == "text" {
+        if let Some(r) = &rows_into {
+            out.push_str(&format!("one row per matched unit written to {}\n", r.table));
+        }
+        if let Some(table) = &a.into {
+            out.push_str(&format!("estimates appended to {table}\n"));
+        }
+    }
+    upshot_core::write_results(
+        engine.as_ref(),
+        upshot_core::Writes {
+            into: a.into.as_deref(),
+            run_key: a.run_key.as_deref(),
+            rows_into: rows_into.as_ref(),
+        },
+        &study,
+        &answers,
+        &mut || emit(&out).map_err(|f| f.message),
+    )?;
     Ok(OK)
 }

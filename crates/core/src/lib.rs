@@ -30,7 +30,8 @@ mod source;
 pub use request::{diagram_argument, DiagramInput, Request, Spelling, DEFAULT_MIN_CELL};
 pub use resolve::{plan, resolve, QuestionPlan, Resolved, Settings};
 pub use results::{
-    check_results_table, results_rows, run, suppress_small, write_results, Answer, QuestionSummary,
+    check_results_table, check_rows_request, check_rows_table, results_rows, run, suppress_small,
+    write_results, Answer, QuestionSummary, RowsInto, Writes, PER_ROW_COLUMNS,
 };
 pub use source::{
     check_columns, classify_source, database_of, files_of, has_columns_to_check, source_of,
@@ -38,8 +39,8 @@ pub use source::{
 };
 pub use upshot_engine::{connect, connector, Access, Connector, Engine, EngineError};
 pub use upshot_methods::{
-    Basis, Diagnostics, Estimate, InstrumentCoefficient, InstrumentReport, NullPolicy, PlannedPass,
-    Spec, TestStat, MAX_FOLDS,
+    Basis, Diagnostics, Estimate, InstrumentCoefficient, InstrumentReport, Matching, NullPolicy,
+    PlannedPass, Spec, TestStat, MAX_FOLDS, MAX_NEIGHBOURS,
 };
 pub use upshot_sql::Flavor;
 pub use upshot_study::{Estimand, Method, Route, Study};

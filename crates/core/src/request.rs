@@ -5,7 +5,7 @@
 use crate::resolve::Settings;
 use crate::CoreError;
 use std::path::{Path, PathBuf};
-use upshot_methods::{Basis, NullPolicy, MAX_FOLDS};
+use upshot_methods::{Basis, Matching, NullPolicy, MAX_FOLDS, MAX_NEIGHBOURS};
 pub use upshot_study::Spelling;
 use upshot_study::{looks_like_diagram, QuestionInput, Rows, Study};
 
@@ -56,6 +56,10 @@ pub struct Request {
     pub min_cell: i64,
     /// `coarsen`: `column=bins` overrides of the automatic binning, as given.
     pub coarsen: Vec<String>,
+    /// `match`: rows of the other arm per matched row, as given (checked by the spec).
+    pub neighbours: i64,
+    /// `match`: the caliper, in pooled standard deviations of the logit of the propensity.
+    pub caliper: Option<f64>,
 }
 
 impl Default for Request {
@@ -75,6 +79,8 @@ impl Default for Request {
             interactions: false,
             min_cell: DEFAULT_MIN_CELL as i64,
             coarsen: vec![],
+            neighbours: 1,
+            caliper: None,
         }
     }
 }
@@ -230,7 +236,29 @@ impl Request {
                 }
             }
         }
+        let neighbours = u32::try_from(self.neighbours)
+            .ok()
+            .filter(|k| (1..=MAX_NEIGHBOURS).contains(k))
+            .ok_or_else(|| {
+                CoreError::Input(format!(
+                    "{}: {} rows per match; use 1 to {MAX_NEIGHBOURS}",
+                    self.spelling.arg("neighbours"),
+                    self.neighbours
+                ))
+            })?;
+        if let Some(c) = self.caliper {
+            if !(c.is_finite() && c > 0.0) {
+                return Err(CoreError::Input(format!(
+                    "{}: {c} is not a positive number of standard deviations of the logit of the propensity (0.2 is the usual choice, Austin 2011)",
+                    self.spelling.arg("caliper")
+                )));
+            }
+        }
         Ok(Settings {
+            matching: Matching {
+                neighbours,
+                caliper: self.caliper,
+            },
             folds,
             min_cell,
             bins,

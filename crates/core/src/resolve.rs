@@ -5,7 +5,7 @@ use crate::source::source_of;
 use crate::CoreError;
 use serde::Serialize;
 use upshot_graph::Kind;
-use upshot_methods::{auto, Basis, NullPolicy, PlannedPass, Spec};
+use upshot_methods::{auto, Basis, Matching, NullPolicy, PlannedPass, Spec};
 use upshot_sql::{parse_filter, Flavor};
 use upshot_study::{Estimand, Method, Question, Route, Study};
 
@@ -25,12 +25,15 @@ pub struct Settings {
     pub min_cell: u32,
     /// `coarsen`: bins per numeric covariate, overriding the automatic rule.
     pub bins: Vec<(String, u32)>,
+    /// `match`: neighbours per row and the caliper.
+    pub matching: Matching,
 }
 
 impl Default for Settings {
     fn default() -> Self {
         Settings {
             bins: vec![],
+            matching: Matching::default(),
             min_cell: crate::request::DEFAULT_MIN_CELL,
             folds: 5,
             clip: 0.01,
@@ -163,6 +166,7 @@ fn resolve_one(
         instruments,
         mediators,
         bins: settings.bins.clone(),
+        matching: settings.matching,
         segments: q.segments.clone(),
         estimand: q.estimand,
         method,

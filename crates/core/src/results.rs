@@ -47,6 +47,99 @@ pub struct Answer {
     pub summary: QuestionSummary,
     /// The estimate rows.
     pub estimates: Vec<Estimate>,
+    /// The query of the per-row table (`match` with a unit key); run only by
+    /// [`write_results`] when a per-row table is asked for.
+    pub rows: Option<upshot_sql::Pass>,
+}
+
+/// A per-row table to create in the source's database (`--rows-into`).
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct RowsInto {
+    /// The table (`schema.table` allowed).
+    pub table: String,
+    /// Replace it when it exists (otherwise an existing table is refused).
+    pub replace: bool,
+}
+
+/// What a run writes: the results table (with the run key), a per-row table, or both — in one
+/// transaction where the engine has them.
+#[derive(Clone, Copy, Debug, Default)]
+pub struct Writes<'a> {
+    /// The results table.
+    pub into: Option<&'a str>,
+    /// The run key (replaces an earlier run's rows in the results table).
+    pub run_key: Option<&'a str>,
+    /// The per-row table.
+    pub rows_into: Option<&'a RowsInto>,
+}
+
+/// Checks a per-row table request against the resolved questions before anything is opened:
+/// one question, method `match`, a unit key to name the rows by.
+pub fn check_rows_request(resolved: &[Resolved], rows: &RowsInto) -> Result<(), CoreError> {
+    let [r] = resolved else {
+        return Err(CoreError::Input(format!(
+            "--rows-into: the study has {} questions; a per-row table holds one question's rows — add --question NAME",
+            resolved.len()
+        )));
+    };
+    if r.spec.method != Method::Match {
+        return Err(CoreError::Input(format!(
+            "--rows-into: question `{}` uses method `{}`; per-row effects come from matching — use --method match",
+            r.question,
+            r.spec.method.as_str()
+        )));
+    }
+    let Some(unit) = &r.spec.unit else {
+        return Err(CoreError::Input(format!(
+            "--rows-into: question `{}` has no unit key to name each row by; give --unit COLUMN (a column that identifies rows, for example customer_id)",
+            r.question
+        )));
+    };
+    let taken = |n: &str| PER_ROW_COLUMNS.iter().any(|c| c.eq_ignore_ascii_case(n));
+    for name in std::iter::once(unit).chain(&r.spec.segments) {
+        if taken(name) {
+            return Err(CoreError::Input(format!(
+                "--rows-into: column `{name}` has the name of one the per-row table adds ({}); rename it in a source query (SELECT …, {name} AS {name}_) and rerun",
+                PER_ROW_COLUMNS.join(", ")
+            )));
+        }
+    }
+    upshot_sql::Source::table(&rows.table)
+        .map(|_| ())
+        .map_err(|e| CoreError::Input(format!("--rows-into: {e}")))
+}
+
+/// The columns a per-row table adds after the unit key and the segment columns.
+pub const PER_ROW_COLUMNS: [&str; 9] = [
+    "treatment",
+    "outcome",
+    "counterfactual",
+    "difference",
+    "distance",
+    "matches",
+    "propensity",
+    "logit",
+    "unit_",
+];
+
+/// Checks that the per-row table can be written on `engine`: a database that keeps what is
+/// written, and no table of that name unless it may be replaced.
+pub fn check_rows_table(engine: &dyn Engine, rows: &RowsInto) -> Result<(), CoreError> {
+    if !engine.capabilities().durable {
+        return Err(CoreError::Input(format!(
+            "--rows-into {}: the rows are read by an in-memory database (a file source, or no --db), which keeps nothing it is given: load them into a table of a database (--db FILE.duckdb, PostgreSQL or Spark) and rerun",
+            rows.table
+        )));
+    }
+    let source = upshot_sql::Source::table(&rows.table)
+        .map_err(|e| CoreError::Input(format!("--rows-into: {e}")))?;
+    if !rows.replace && engine.columns(&source).is_ok() {
+        return Err(CoreError::Input(format!(
+            "--rows-into {}: the table exists; add --replace to replace it, or name another table",
+            rows.table
+        )));
+    }
+    Ok(())
 }
 
 /// Runs resolved questions on `engine`, calling `progress(question, pass)` before each pass.
@@ -117,6 +210,7 @@ pub fn run(
                 diagnostics: outcome.diagnostics,
             },
             estimates: outcome.estimates,
+            rows: outcome.rows,
         });
     }
     Ok(answers)
@@ -266,15 +360,15 @@ pub fn check_results_table(engine: &dyn Engine, table: &str) -> Result<(), CoreE
         .map_err(|e| CoreError::Input(format!("--into: {e}")))
 }
 
-/// Writes the answers to the results table `table` in one transaction: creates it if missing,
-/// replaces the rows of an earlier run with the same `run_key`, appends these, then calls
-/// `before_commit` (a surface writes its output there) and commits. Nothing is written when any
-/// statement or `before_commit` fails; a failing `before_commit`'s message comes back as
-/// [`CoreError::Engine`].
+/// Writes what `writes` asks for in one transaction (on an engine without transactions, in
+/// order): the per-row table (dropped first with `replace`, then created from the question's
+/// per-row query), then the results table (created if missing, an earlier run with the same
+/// run key replaced, these answers appended); then calls `before_commit` (a surface writes its
+/// output there) and commits. Nothing is written when any statement or `before_commit` fails;
+/// a failing `before_commit`'s message comes back as [`CoreError::Engine`].
 pub fn write_results(
     engine: &dyn Engine,
-    table: &str,
-    run_key: Option<&str>,
+    writes: Writes,
     study: &Study,
     answers: &[Answer],
     before_commit: &mut dyn FnMut() -> Result<(), String>,
@@ -284,38 +378,60 @@ pub fn write_results(
             "--into needs a database that keeps what is written: give --db FILE (a DuckDB file; it is created if missing)".into(),
         ));
     }
-    let sql = upshot_sql::results_sql(engine.dialect(), table)
-        .map_err(|e| CoreError::Input(format!("--into: {e}")))?;
-    let now = std::time::SystemTime::now()
-        .duration_since(std::time::UNIX_EPOCH)
-        .map(|d| d.as_millis())
-        .unwrap_or(0);
-    let (_, rows) = results_rows(study, run_key, answers, now);
-    let mut statements = vec![Write {
-        sql: sql.create,
-        rows: vec![],
-    }];
-    if let (Some(k), Some(delete)) = (run_key, sql.delete) {
-        statements.push(Write {
-            sql: delete,
-            rows: vec![vec![Param::Text(k.to_string())]],
-        });
+    let mut statements = Vec::new();
+    let mut what = Vec::new();
+    if let Some(r) = writes.rows_into {
+        let query = match answers {
+            [a] => a.rows.as_ref(),
+            _ => None,
+        }
+        .ok_or_else(|| {
+            CoreError::Input(format!(
+                "--rows-into {}: no per-row rows to write (one `match` question with a unit key has them)",
+                r.table
+            ))
+        })?;
+        let sql = upshot_sql::rows_table_sql(engine.dialect(), &r.table, &query.query, r.replace)
+            .map_err(|e| CoreError::Input(format!("--rows-into: {e}")))?;
+        statements.extend(sql.into_iter().map(|sql| Write { sql, rows: vec![] }));
+        what.push(format!("--rows-into {}", r.table));
     }
-    statements.push(Write {
-        sql: sql.insert,
-        rows,
-    });
+    if let Some(table) = writes.into {
+        let sql = upshot_sql::results_sql(engine.dialect(), table)
+            .map_err(|e| CoreError::Input(format!("--into: {e}")))?;
+        let now = std::time::SystemTime::now()
+            .duration_since(std::time::UNIX_EPOCH)
+            .map(|d| d.as_millis())
+            .unwrap_or(0);
+        let (_, rows) = results_rows(study, writes.run_key, answers, now);
+        statements.push(Write {
+            sql: sql.create,
+            rows: vec![],
+        });
+        if let (Some(k), Some(delete)) = (writes.run_key, sql.delete) {
+            statements.push(Write {
+                sql: delete,
+                rows: vec![vec![Param::Text(k.to_string())]],
+            });
+        }
+        statements.push(Write {
+            sql: sql.insert,
+            rows,
+        });
+        what.push(format!("--into {table}"));
+    }
+    let what = what.join(" and ");
     engine
         .write(&statements, before_commit)
         .map_err(|e| match e {
             upshot_engine::EngineError::Aborted(why) => CoreError::Engine(format!(
-                "{why}; --into {table}: nothing was written (the transaction was rolled back)"
+                "{why}; {what}: nothing was written (the transaction was rolled back)"
             )),
             upshot_engine::EngineError::Written(why) => {
-                CoreError::Engine(format!("--into {table}: {why}"))
+                CoreError::Engine(format!("{what}: {why}"))
             }
             e => CoreError::Engine(format!(
-                "--into {table}: nothing was written (the transaction was rolled back): {e}"
+                "{what}: nothing was written (the transaction was rolled back): {e}"
             )),
         })
 }

@@ -7,7 +7,7 @@
 //! with placeholders where a pass inlines numbers that earlier passes compute.
 //!
 //! The seam is the [`Estimator`] trait: one implementation per method, each in a folder of its
-//! own (`stratify/`, `regress/`, `weight/`, `doubly_robust/`, `partial_out/`, `iv/`, `front_door/`, `coarsen/`) holding its pass
+//! own (`stratify/`, `regress/`, `weight/`, `doubly_robust/`, `partial_out/`, `iv/`, `front_door/`, `matching/`, `coarsen/`) holding its pass
 //! builders (`passes.rs` where it has passes of its own), its math (estimate and variance) and
 //! its unit tests; [`ESTIMATORS`] is the one registration point. Shared machinery has modules of
 //! its own, used by name: `prepare` (profile and levels passes, input checks, design terms),
@@ -59,6 +59,7 @@ mod front_door;
 #[cfg(test)]
 mod golden;
 mod iv;
+mod matching;
 mod models;
 mod outcome;
 mod partial_out;
@@ -91,7 +92,7 @@ pub(crate) trait Estimator: Sync {
 }
 
 /// Every estimator, by method: the one place a new estimator is registered.
-static ESTIMATORS: [&dyn Estimator; 8] = [
+static ESTIMATORS: [&dyn Estimator; 9] = [
     &stratify::Stratify,
     &regress::Regress,
     &weight::Weight,
@@ -99,6 +100,7 @@ static ESTIMATORS: [&dyn Estimator; 8] = [
     &partial_out::PartialOut,
     &iv::Iv,
     &front_door::FrontDoor,
+    &matching::Match,
     &coarsen::Coarsen,
 ];
 
@@ -173,6 +175,8 @@ pub struct Spec {
     pub mediators: Vec<String>,
     /// Bins per numeric covariate for `coarsen`, overriding its automatic rule (column, bins).
     pub bins: Vec<(String, u32)>,
+    /// How `match` matches (neighbours, caliper); the defaults for every other method.
+    pub matching: Matching,
     /// Segment columns.
     pub segments: Vec<String>,
     /// ATE, ATT or ATC.
@@ -194,6 +198,25 @@ pub struct Spec {
     pub basis: Basis,
     /// The source's columns (from the engine's schema), or `None` when planning offline.
     pub columns: Option<Vec<ColumnType>>,
+}
+
+/// How `match` matches rows.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Matching {
+    /// Rows of the other arm matched to each target row (1:k, with replacement).
+    pub neighbours: u32,
+    /// Matches farther than this many pooled standard deviations of the logit of the
+    /// propensity are refused (`None`: no caliper).
+    pub caliper: Option<f64>,
+}
+
+impl Default for Matching {
+    fn default() -> Self {
+        Matching {
+            neighbours: 1,
+            caliper: None,
+        }
+    }
 }
 
 /// Why an estimate cannot be made.
@@ -426,12 +449,17 @@ pub struct InstrumentReport {
 }
 
 /// Estimates and diagnostics of one question.
-#[derive(Clone, Debug, PartialEq, Serialize)]
+#[derive(Clone, Debug, Default, PartialEq, Serialize)]
 pub struct Outcome {
     /// The overall estimate first, then one per segment.
     pub estimates: Vec<Estimate>,
     /// What was found on the way.
     pub diagnostics: Diagnostics,
+    /// The query of one row per unit with its own effect (`match` with a unit key): what a
+    /// per-row table is created from, inside the source's database. Never run by the
+    /// estimator.
+    #[serde(skip)]
+    pub rows: Option<Pass>,
 }
 
 /// Runs `spec`'s method through `runner`.
@@ -481,6 +509,8 @@ impl Runner for Counted<'_> {
 /// Most cross-fitting folds.
 pub const MAX_FOLDS: u32 = 20;
 
+pub use matching::MAX_NEIGHBOURS;
+
 impl Spec {
     /// Checks the values a caller sets directly (plan and run alike): folds, clip, unit key.
     /// A library caller cannot get an estimate from an unchecked value.
@@ -510,7 +540,36 @@ impl Spec {
             ));
         }
         self.check_instruments()?;
-        self.check_mediators()
+        self.check_mediators()?;
+        self.check_matching()
+    }
+
+    /// Neighbours and a caliper belong to `match`: 1 to [`MAX_NEIGHBOURS`] neighbours, a
+    /// positive, finite caliper.
+    fn check_matching(&self) -> Result<(), MethodError> {
+        let m = self.matching;
+        if self.method != Method::Match {
+            if m != Matching::default() {
+                return Err(MethodError::Input(
+                    "--neighbours and --caliper are used by method `match` only; drop them, or use --method match".into(),
+                ));
+            }
+            return Ok(());
+        }
+        if !(1..=MAX_NEIGHBOURS).contains(&m.neighbours) {
+            return Err(MethodError::Input(format!(
+                "--neighbours: {} rows per match; use 1 to {MAX_NEIGHBOURS}",
+                m.neighbours
+            )));
+        }
+        if let Some(c) = m.caliper {
+            if !(c.is_finite() && c > 0.0) {
+                return Err(MethodError::Input(format!(
+                    "--caliper: {c} is not a positive number of standard deviations of the logit (0.2 is the usual choice, Austin 2011)"
+                )));
+            }
+        }
+        Ok(())
     }
 
     /// Mediators belong to `front-door`, which needs at least one, distinct from the treatment,
@@ -638,6 +697,7 @@ pub(crate) mod tests {
             instruments: vec![],
             mediators: vec![],
             bins: vec![],
+            matching: Matching::default(),
             segments: vec![],
             estimand: Estimand::Ate,
             method,
@@ -702,6 +762,7 @@ pub(crate) mod tests {
                 Method::PartialOut,
                 Method::Iv,
                 Method::FrontDoor,
+                Method::Match,
                 Method::Coarsen
             ]
         );

@@ -101,7 +101,8 @@ fn suggest(name: &str, columns: &[ColumnType]) -> String {
 }
 
 /// The columns a spec reads, in a fixed order: treatment, outcome, adjustment set,
-/// instruments, mediators, segments, unit key (when folds need it).
+/// instruments, mediators, segments, unit key (when folds need it, and for `match`, whose
+/// per-row table is keyed by it).
 pub(crate) fn used_columns(spec: &Spec) -> Vec<String> {
     let mut used: Vec<String> = Vec::new();
     let mut add = |c: &String| {
@@ -115,7 +116,7 @@ pub(crate) fn used_columns(spec: &Spec) -> Vec<String> {
     spec.instruments.iter().for_each(&mut add);
     spec.mediators.iter().for_each(&mut add);
     spec.segments.iter().for_each(&mut add);
-    if needs_folds(spec) {
+    if needs_folds(spec) || spec.method == Method::Match {
         if let Some(u) = &spec.unit {
             add(u);
         }

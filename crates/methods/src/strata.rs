@@ -68,6 +68,7 @@ pub(crate) fn estimate(
     let mut out = Outcome {
         estimates: vec![],
         diagnostics: Default::default(),
+        rows: None,
     };
     if a.rows.len() > MANY_CELLS {
         out.diagnostics.warnings.push(format!(

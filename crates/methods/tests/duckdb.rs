@@ -58,6 +58,7 @@ fn every_method_agrees_with_and_without_upshots_functions() {
             instruments: vec![],
             mediators: vec![],
             bins: vec![],
+            matching: Default::default(),
             segments: vec!["tenure_band".into()],
             estimand,
             method,

@@ -7,7 +7,7 @@
 //! (`__0`, `__src`, `__filter`) become AST nodes when the pass is finished. No user text is
 //! ever formatted into SQL: columns bind as quoted identifiers, values as literals.
 
-use crate::dialect::Flavor;
+use crate::dialect::{Dialect, Flavor};
 use crate::error::SqlError;
 use crate::source::Source;
 use crate::template::{self, Bind};
@@ -28,6 +28,22 @@ impl Pass {
     /// The query as SQL text, laid out on several lines.
     pub fn sql(&self) -> String {
         format!("{:#}", self.query)
+    }
+
+    /// Renames the output columns aliased `from` to `to` (a name of the user's: a unit key or
+    /// segment column kept under its own name in a table upshot writes), as identifiers quoted
+    /// for `dialect`. Aliases in a template are upshot's own; this is how a user's name becomes
+    /// one without being formatted into SQL text.
+    pub fn rename_outputs(&mut self, renames: &[(String, String)], dialect: &dyn Dialect) {
+        if let sqlparser::ast::SetExpr::Select(s) = self.query.body.as_mut() {
+            for item in &mut s.projection {
+                if let sqlparser::ast::SelectItem::ExprWithAlias { alias, .. } = item {
+                    if let Some((_, to)) = renames.iter().find(|(f, _)| *f == alias.value) {
+                        *alias = sqlparser::ast::Ident::with_quote(dialect.quote(), to.clone());
+                    }
+                }
+            }
+        }
     }
 }
 

@@ -51,7 +51,9 @@ pub use passes::{
     binned_cells, cells, gram, levels, logistic_fits, nonfinite, profile, residuals, schema_probe,
     CellKey, Variants,
 };
-pub use results_table::{results_schema_file, results_sql, ResultsSql, RESULT_COLUMNS};
+pub use results_table::{
+    results_schema_file, results_sql, rows_table_sql, ResultsSql, RESULT_COLUMNS,
+};
 pub use source::{
     complete_cases, is_parquet, is_parquet_pattern, parse_filter, Source, USER_SQL_DEPTH,
 };

@@ -196,3 +196,37 @@ pub fn results_schema_file() -> String {
     out.push_str(");\n");
     out
 }
+
+/// The statements that create a per-row table `table` (`schema.table` allowed, quoted part by
+/// part) from `query` inside the source's database: `DROP TABLE IF EXISTS` first when
+/// `replace`, then `CREATE TABLE … AS` the query. Each is parsed back with the dialect's parser.
+pub fn rows_table_sql(
+    d: &dyn Dialect,
+    table: &str,
+    query: &sqlparser::ast::Query,
+    replace: bool,
+) -> Result<Vec<String>, SqlError> {
+    let parts: Vec<&str> = table.split('.').collect();
+    if parts.iter().any(|p| p.trim().is_empty()) {
+        return Err(SqlError::Empty {
+            what: "a part of the per-row table name",
+        });
+    }
+    let name = table_name(d, table)?.to_string();
+    let mut out = Vec::new();
+    if replace {
+        out.push(format!("DROP TABLE IF EXISTS {name}"));
+    }
+    out.push(format!("CREATE TABLE {name} AS {query}"));
+    for sql in &out {
+        let stmts = Parser::parse_sql(d.parser().as_ref(), sql).map_err(|e| SqlError::Parse {
+            what: "a per-row table statement",
+            message: e.to_string(),
+        })?;
+        match stmts.as_slice() {
+            [Statement::CreateTable(_)] | [Statement::Drop { .. }] => {}
+            _ => return Err(SqlError::NotOneStatement { count: stmts.len() }),
+        }
+    }
+    Ok(out)
+}

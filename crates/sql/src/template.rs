@@ -115,8 +115,14 @@ pub(crate) fn query(
     Ok(q)
 }
 
-/// Replaces the relation `__src` anywhere in the query's FROM clauses.
+/// Replaces the relation `__src` anywhere in the query's FROM clauses (common table expressions
+/// included).
 fn place_source(q: &mut Query, source: &Source, d: &dyn Dialect) -> Result<(), SqlError> {
+    if let Some(with) = &mut q.with {
+        for cte in &mut with.cte_tables {
+            place_source(&mut cte.query, source, d)?;
+        }
+    }
     place_in_body(q.body.as_mut(), source, d)
 }
 

@@ -113,6 +113,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     let mut out = Outcome {
         estimates: vec![],
         diagnostics: Default::default(),
+        rows: None,
     };
     let mut parts = Vec::new();
     for seg in &segs {

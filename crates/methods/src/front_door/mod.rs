@@ -313,6 +313,7 @@ fn run_cells(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError> {
     let mut out = Outcome {
         estimates: finish(s, parts),
         diagnostics: Default::default(),
+        rows: None,
     };
     out.diagnostics.warnings = warnings;
     Ok(out)
@@ -401,6 +402,7 @@ fn run_linear(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError> {
     Ok(Outcome {
         estimates: finish(s, parts),
         diagnostics: Default::default(),
+        rows: None,
     })
 }
 

@@ -270,6 +270,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     let mut out = Outcome {
         estimates,
         diagnostics: Default::default(),
+        rows: None,
     };
     out.diagnostics.warnings = warnings;
     out.diagnostics.instruments = reports;

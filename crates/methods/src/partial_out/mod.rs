@@ -201,6 +201,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     Ok(Outcome {
         estimates,
         diagnostics: Default::default(),
+        rows: None,
     })
 }
 

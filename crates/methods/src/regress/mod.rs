@@ -176,6 +176,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     Ok(Outcome {
         estimates: finish(s, parts),
         diagnostics: Default::default(),
+        rows: None,
     })
 }
 

@@ -56,6 +56,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     let mut out = Outcome {
         estimates: vec![],
         diagnostics: Default::default(),
+        rows: None,
     };
     let mut parts = Vec::new();
     for (key, fit) in segs.iter().zip(&fits) {
