@@ -58,7 +58,7 @@ fn ok(out: &Output, what: &str) -> Value {
     serde_json::from_slice(&out.stdout).unwrap()
 }
 
-/// Every method × estimand the methods take, without and with segments: 36 questions.
+/// Every method × estimand the methods take, without and with segments: 42 questions.
 fn study(dir: &Path) -> PathBuf {
     std::fs::copy(
         repo().join("demo-data/voucher.graph"),
@@ -77,6 +77,7 @@ fn study(dir: &Path) -> PathBuf {
         "iv",
         "front-door",
         "coarsen",
+        "match",
     ] {
         for estimand in ["ATE", "ATT", "ATC"] {
             if matches!(method, "partial-out" | "iv" | "front-door") && estimand != "ATE" {
@@ -195,6 +196,52 @@ fn passes(v: &Value) -> u64 {
         .sum()
 }
 
+/// `match` with 3 neighbours and a caliper, per tenure band, its rows written to `table`:
+/// the engine's estimates equal DuckDB's (on the study's file), and returns the engine's
+/// answer for the caller to check the table's mean difference against.
+fn matching_with_rows(engine: &str, locator: &str, table: &str) -> Value {
+    let f = fixture();
+    let study = f.study.to_str().unwrap();
+    let extra = [
+        "--question",
+        "match-ATT-by-tenure",
+        "--neighbours",
+        "3",
+        "--caliper",
+        "0.2",
+        "--format",
+        "json",
+    ];
+    let duckdb = ok(&run(&[&["run", study], extra.as_slice()].concat(), &[]), "DuckDB");
+    let got = ok(
+        &run(
+            &[
+                &["run", study, "--db", locator, "--source", "customers"],
+                extra.as_slice(),
+                &["--rows-into", table, "--replace"],
+            ]
+            .concat(),
+            &[],
+        ),
+        engine,
+    );
+    let worst = agree(engine, &duckdb, &got);
+    eprintln!("{engine}: match with a caliper agrees with DuckDB (worst relative gap {worst:.1e})");
+    got
+}
+
+/// The `all` row's estimate of a `matching_with_rows` answer.
+fn all_estimate(v: &Value) -> f64 {
+    v["estimates"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|e| e["segment"] == "all")
+        .unwrap()["estimate"]
+        .as_f64()
+        .unwrap()
+}
+
 /// The PostgreSQL server of `scripts/test`, with the demo table loaded (once).
 fn postgres() -> Option<(String, PostgresEngine)> {
     let Ok(locator) = std::env::var("UPSHOT_TEST_POSTGRES") else {
@@ -245,6 +292,19 @@ fn postgres_gives_duckdb_estimates() {
         passes(&got),
         t.elapsed().as_secs_f64()
     );
+}
+
+#[test]
+fn postgres_match_writes_its_rows_and_agrees() {
+    let Some((locator, pg)) = postgres() else {
+        return;
+    };
+    let got = matching_with_rows("PostgreSQL", &locator, "matched_rows");
+    let rows = pg
+        .select("SELECT AVG(difference) AS mean, COUNT(*) AS n FROM matched_rows")
+        .unwrap();
+    let (mean, est) = (rows.number(0, "mean").unwrap(), all_estimate(&got));
+    assert!((mean - est).abs() <= TOLERANCE * est.abs(), "{mean} vs {est}");
 }
 
 #[test]
@@ -480,6 +540,24 @@ fn spark_gives_duckdb_estimates() {
         passes(&got),
         t.elapsed().as_secs_f64()
     );
+}
+
+#[test]
+fn spark_match_writes_its_rows_and_agrees() {
+    let Some((locator, spark)) = spark() else {
+        return;
+    };
+    let got = matching_with_rows("Spark", &locator, "matched_rows");
+    let b = spark
+        .sql("SELECT AVG(difference) FROM matched_rows", vec![])
+        .unwrap();
+    use arrow_array::cast::AsArray;
+    let mean = b[0]
+        .column(0)
+        .as_primitive::<arrow_array::types::Float64Type>()
+        .value(0);
+    let est = all_estimate(&got);
+    assert!((mean - est).abs() <= TOLERANCE * est.abs(), "{mean} vs {est}");
 }
 
 #[test]

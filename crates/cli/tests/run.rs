@@ -1812,3 +1812,153 @@ fn coarsen_bins_and_matches_exactly() {
         &["--coarsen: `prior_orders=0` is not COLUMN=BINS"],
     );
 }
+
+fn query(db: &str, sql: &str) -> f64 {
+    DuckDbEngine::open(db, false)
+        .unwrap()
+        .query_number(sql)
+        .unwrap()
+}
+
+#[test]
+fn match_estimates_and_writes_one_row_per_matched_unit() {
+    let db = scratch("match");
+    let db = db.to_str().unwrap();
+    let base = [
+        "--graph",
+        GRAPH,
+        "--db",
+        db,
+        "--source",
+        "customers",
+        "--treatment",
+        "voucher",
+        "--outcome",
+        "spend_30d",
+        "--method",
+        "match",
+        "--unit",
+        "customer_id",
+    ];
+    let truth = truth();
+    for (estimand, key) in [("ATT", "att"), ("ATE", "ate"), ("ATC", "atc")] {
+        let v = json(&[&["run"], base.as_slice(), &["--estimand", estimand]].concat());
+        let e = &v["estimates"][0];
+        let t = truth["outcomes"]["spend_30d"][key].as_f64().unwrap();
+        assert!(
+            e["ci_low"].as_f64().unwrap() <= t && t <= e["ci_high"].as_f64().unwrap(),
+            "{estimand}: {e} misses {t}"
+        );
+        let notes = v["questions"][0]["diagnostics"]["notes"].to_string();
+        assert!(notes.contains("1:1 nearest-neighbour matching"), "{notes}");
+    }
+    // The per-row table: one row per target unit, its mean difference the estimate.
+    let att = |extra: &[&str]| -> Vec<String> {
+        [&["run"], base.as_slice(), &["--estimand", "ATT", "--neighbours", "3"], extra]
+            .concat()
+            .iter()
+            .map(|s| s.to_string())
+            .collect()
+    };
+    let refs = |a: &[String]| -> Vec<String> { a.to_vec() };
+    let run = |a: Vec<String>| -> Value {
+        let r: Vec<&str> = a.iter().map(|s| s.as_str()).collect();
+        json(&r)
+    };
+    let v = run(refs(&att(&["--rows-into", "matched_rows"])));
+    let estimate = v["estimates"][0]["estimate"].as_f64().unwrap();
+    let mean = query(db, "SELECT AVG(difference) FROM matched_rows");
+    assert!(
+        (mean - estimate).abs() <= 1e-9 * estimate.abs(),
+        "table mean {mean} vs estimate {estimate}"
+    );
+    let treated = query(db, "SELECT COUNT(*) FROM customers WHERE voucher = 1");
+    assert_eq!(query(db, "SELECT COUNT(*) FROM matched_rows"), treated);
+    assert_eq!(
+        query(db, "SELECT COUNT(DISTINCT customer_id) FROM matched_rows WHERE treatment = 1 AND matches = 3"),
+        treated
+    );
+    // An existing table is refused without --replace, and kept.
+    let again: Vec<String> = att(&["--rows-into", "matched_rows"]);
+    let r: Vec<&str> = again.iter().map(|s| s.as_str()).collect();
+    fails(&r, 2, &["matched_rows", "the table exists", "--replace"]);
+    let v = run(att(&["--rows-into", "matched_rows", "--replace", "--caliper", "0.2"]));
+    let estimate = v["estimates"][0]["estimate"].as_f64().unwrap();
+    let mean = query(db, "SELECT AVG(difference) FROM matched_rows");
+    assert!((mean - estimate).abs() <= 1e-9 * estimate.abs());
+    // Segments: one estimate per segment, the table carries the segment column.
+    let v = run(att(&[
+        "--segments",
+        "tenure_band",
+        "--rows-into",
+        "by_band",
+    ]));
+    for e in v["estimates"].as_array().unwrap() {
+        let seg = e["segment"].as_str().unwrap();
+        if let Some(band) = seg.strip_prefix("tenure_band=") {
+            let mean = query(
+                db,
+                &format!("SELECT AVG(difference) FROM by_band WHERE tenure_band = '{band}'"),
+            );
+            let est = e["estimate"].as_f64().unwrap();
+            assert!((mean - est).abs() <= 1e-9 * est.abs(), "{seg}: {mean} vs {est}");
+        }
+    }
+    // plan lists what run executes.
+    let plan = json(&[&["plan"], base.as_slice()].concat());
+    let names: Vec<&str> = plan["questions"][0]["passes"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|p| p["name"].as_str().unwrap())
+        .collect();
+    assert_eq!(names.last(), Some(&"match"), "{names:?}");
+    // Bad input: nothing written.
+    let bad = |extra: &[&str], needles: &[&str]| {
+        fails(&[&["run"], base.as_slice(), extra].concat(), 2, needles);
+    };
+    bad(
+        &["--caliper", "1e-12", "--rows-into", "never_a"],
+        &["caliper of 1e-12 SD", "matches nothing", "widen --caliper"],
+    );
+    bad(&["--caliper", "0"], &["--caliper"]);
+    bad(&["--neighbours", "0"], &["--neighbours"]);
+    bad(&["--replace"], &["--replace needs --rows-into"]);
+    assert!(DuckDbEngine::open(db, false)
+        .unwrap()
+        .query_number("SELECT COUNT(*) FROM never_a")
+        .is_err());
+    fails(
+        &[
+            "run", "--graph", GRAPH, "--db", db, "--source", "customers", "--treatment",
+            "voucher", "--outcome", "spend_30d", "--method", "match", "--rows-into", "never_b",
+        ],
+        2,
+        &["--rows-into", "--unit"],
+    );
+    fails(
+        &[
+            "run", "--graph", GRAPH, "--source", SAMPLE, "--treatment", "voucher", "--outcome",
+            "spend_30d", "--method", "match", "--unit", "customer_id", "--rows-into", "never_c",
+        ],
+        2,
+        &["--rows-into", "keeps nothing"],
+    );
+    fails(
+        &[
+            "run", "--graph", GRAPH, "--db", db, "--source", "customers", "--treatment",
+            "voucher", "--outcome", "spend_30d", "--method", "regress", "--unit",
+            "customer_id", "--rows-into", "never_d",
+        ],
+        2,
+        &["--rows-into", "match"],
+    );
+    fails(
+        &[
+            "run", "--graph", GRAPH, "--db", db, "--source", "customers", "--treatment",
+            "voucher", "--outcome", "spend_30d", "--method", "regress", "--neighbours", "2",
+        ],
+        2,
+        &["--neighbours", "match"],
+    );
+}

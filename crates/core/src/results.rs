@@ -95,6 +95,11 @@ pub fn check_rows_request(resolved: &[Resolved], rows: &RowsInto) -> Result<(), 
             r.question
         )));
     };
+    if let Some(s) = r.spec.segments.iter().find(|s| s.eq_ignore_ascii_case(unit)) {
+        return Err(CoreError::Input(format!(
+            "--rows-into: `{s}` is both the unit key and a segment column; a unit key names one row, so segment by another column"
+        )));
+    }
     let taken = |n: &str| PER_ROW_COLUMNS.iter().any(|c| c.eq_ignore_ascii_case(n));
     for name in std::iter::once(unit).chain(&r.spec.segments) {
         if taken(name) {
@@ -110,7 +115,7 @@ pub fn check_rows_request(resolved: &[Resolved], rows: &RowsInto) -> Result<(), 
 }
 
 /// The columns a per-row table adds after the unit key and the segment columns.
-pub const PER_ROW_COLUMNS: [&str; 9] = [
+pub const PER_ROW_COLUMNS: [&str; 8] = [
     "treatment",
     "outcome",
     "counterfactual",
@@ -119,7 +124,6 @@ pub const PER_ROW_COLUMNS: [&str; 9] = [
     "matches",
     "propensity",
     "logit",
-    "unit_",
 ];
 
 /// Checks that the per-row table can be written on `engine`: a database that keeps what is

@@ -129,8 +129,10 @@ impl Rows for Identify {
     }
 }
 
-const ESTIMATION: [(&str, Type); 9] = [
+const ESTIMATION: [(&str, Type); 11] = [
     ("folds", Type::Bigint),
+    ("neighbours", Type::Bigint),
+    ("caliper", Type::Double),
     ("coarsen", Type::Text),
     ("min_cell", Type::Bigint),
     ("unit", Type::Text),
@@ -157,6 +159,10 @@ fn estimation(mut r: Request, args: &Args) -> Result<Request, String> {
     if let Some(c) = number("clip")? {
         r.clip = c;
     }
+    if let Some(k) = number("neighbours")? {
+        r.neighbours = k as i64;
+    }
+    r.caliper = number("caliper")?;
     if let Some(k) = number("min_cell")? {
         r.min_cell = k as i64;
     }
