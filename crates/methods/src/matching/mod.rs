@@ -2,21 +2,22 @@
 //! replacement, optionally within a caliper, for ATT, ATC or ATE (Abadie & Imbens 2006).
 //!
 //! The propensity is the logistic model of `weight` (Newton over aggregate passes, per
-//! segment). One more query matches inside the database (see `passes.rs`): rows sorted by the
-//! logit within each segment, each target row's `k` nearest rows of the other arm among the `2k`
-//! around its place in the sorted order, ties broken by the other row's rank. Only sums leave
-//! the database; with a unit key the same query, ending in one row per target, becomes the
-//! per-row table (`--rows-into`), whose mean difference is the printed estimate.
+//! segment). One more query matches inside the database (see `passes.rs`): each target row's
+//! `k` nearest rows of the other arm by the logit, and every row tied with the `k`-th — as
+//! Abadie & Imbens define the match set, so no order among tied rows decides anything and every
+//! engine finds the same matches. Only sums leave the database; with a unit key the same query,
+//! ending in one row per target, becomes the per-row table (`--rows-into`), whose mean
+//! difference is the printed estimate.
 //!
-//! Variance: Abadie & Imbens (2006), with the matching metric the logit and the number of
-//! matches `m_i` allowed to vary (fewer than `k` within a caliper). With `w_j = Σ 1/m_i` and
-//! `q_j = Σ 1/m_i²` over the targets `i` that use row `j`, the estimate is
+//! Variance: Abadie & Imbens (2006), with the matching metric the logit and `m_i`, the number
+//! of matches of target `i` (more than `k` with ties, fewer within a caliper). With
+//! `w_j = Σ 1/m_i` and `q_j = Σ 1/m_i²` over the targets `i` that use row `j`, the estimate is
 //! `τ = (1/N) Σ_i d_i` over the `N` matched targets, and
 //! `V = (1/N²) [Σ_i (d_i − τ)² + Σ_j (w_j² − q_j + 2 w_j·[j is a matched target]) σ²_j]`,
-//! with `σ²_j = (y_j − y_j')² / 2` from `j`'s nearest same-arm row by score (their `J = 1`).
-//! With `m_i = M` this is their `V̂` for ATE (`(K/M)² + (2M − 1)K/M²`) and for ATT
-//! (`K(K − 1)/M²`). The score is treated as known: for ATE that is conservative (Abadie &
-//! Imbens 2016); docs/methods.md says what the coverage benchmark measured.
+//! with `σ²_j` from `j`'s nearest same-arm rows by score (passes.rs). With `m_i = M` this is
+//! their `V̂` for ATE (`(K/M)² + (2M − 1)K/M²`) and for ATT (`K(K − 1)/M²`). The score is
+//! treated as known: for ATE that is conservative (Abadie & Imbens 2016); docs/methods.md says
+//! what the coverage benchmark measured.
 
 mod passes;
 
@@ -150,7 +151,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
             None => String::new(),
         };
         out.diagnostics.notes.push(format!(
-            "{label}: 1:{k} nearest-neighbour matching with replacement on the logit of the propensity (treated from {:.3} to {:.3}, untreated from {:.3} to {:.3}){reach}; matched {} of {} treated and {} of {} untreated target rows; mean distance {:.4}, largest {:.4}; {} treated and {} untreated rows served as matches, the most used one {:.1} times",
+            "{label}: 1:{k} nearest-neighbour matching with replacement (rows as near as the last match included) on the logit of the propensity (treated from {:.3} to {:.3}, untreated from {:.3} to {:.3}){reach}; matched {} of {} treated and {} of {} untreated target rows; mean distance {:.4}, largest {:.4}; {} treated and {} untreated rows served as matches, the most used one {:.1} times",
             m.range1.0,
             m.range1.1,
             m.range0.0,

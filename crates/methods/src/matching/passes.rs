@@ -1,21 +1,32 @@
 //! The matching pass of `match` and the query of its per-row table.
 //!
-//! Both are one query over the same common table expressions, so the table's differences and
+//! Rows with the same logit share their matches, so matching runs on *cells*: the distinct
+//! logits of each arm within a segment (with discrete covariates there are few). Both queries
+//! are one statement over the same common table expressions, so the table's differences and
 //! the pass's sums come from the same matches:
 //! - `rows_`: each row's group keys, the linear predictor of its segment's propensity model
 //!   (the logit of the score, `s`), `t`, `y` and the unit key `u` when there is one;
-//! - `ordered_`: each row's rank `r` in its arm by `(s, y, u)`; the running counts `c1`, `c0`
-//!   of treated and untreated rows up to it in the order `(s, t, y, u)`; its same-arm
-//!   neighbours' scores and outcomes (`LAG`, `LEAD`); the pooled standard deviation of the
-//!   logit over the two arms, `sdl` (the caliper's unit);
-//! - `cand_`: each target row joined to the `2k` rows of the other arm around its place in the
-//!   sorted order (ranks `c − k + 1 … c + k`, with `c` the other arm's rows before it, through an
-//!   equi-join on the rank: the `k` nearest are among them), numbered by distance `|s − s'|`
-//!   and then by rank;
-//! - `pairs_`: the `k` nearest within the caliper, with `m`, the target's number of matches;
-//! - `targets_`: per matched target, the matches' mean outcome (the counterfactual) and mean
-//!   distance;
-//! - `used_`: per row used as a match, `w = Σ 1/m` and `q = Σ 1/m²` over the targets using it.
+//! - `ranked_`: each row with `r`, the rank of its logit among its arm's distinct logits;
+//! - `spread_`: per segment, the pooled standard deviation of the logit over the two arms'
+//!   rows, `sdl` (the caliper's unit);
+//! - `cells_`: per arm and distinct logit, the rows `n`, `Σ y` and the sample variance of `y`;
+//! - `placed_`: each cell with `c1`, `c0`, the treated and untreated cells up to it in the
+//!   order `(s, t)`, and its arm's neighbouring cells (`LAG`, `LEAD`), from which `sv` is the
+//!   sum of its rows' outcome variances `σ²` (below);
+//! - `cand_`: each target cell joined to the `2k` cells of the other arm around its place
+//!   (ranks `c − k + 1 … c + k`, an equi-join on the rank: every cell holds a row, so the `k`
+//!   nearest rows are in them), with `closer`, the rows of strictly closer cells;
+//! - `pairs_`: the matches: every cell with `closer < k` — the `k` nearest rows and every row
+//!   tied with the `k`-th (Abadie & Imbens 2006 match all ties), kept within the caliper —
+//!   with `m`, the target's number of matched rows;
+//! - `targets_`: per matched target cell, the matches' mean outcome (the counterfactual), mean
+//!   distance and `m`.
+//!
+//! `σ²_j` (Abadie & Imbens' estimator with `J` same-arm neighbours, all rows at the smallest
+//! distance): `J/(J + 1) · (y_j − ȳ_J)²`. In a cell of `n ≥ 2` rows the neighbours are the
+//! cell's other rows, and the cell's sum of `σ²_j` is `n` times its sample variance; a lone
+//! row's neighbours are the rows of the nearer adjacent cell of its arm (of both, when equally
+//! near).
 
 use upshot_sql::design::{predictor, PassText};
 use upshot_sql::{Aggregates, Built, Design, Expr, Flavor, Models, Pass, ResultError, Source, SqlError};
@@ -27,7 +38,7 @@ pub(crate) struct Shape<'a> {
     pub segments: usize,
     /// The unit key column (the design's last key), when there is one.
     pub unit: Option<&'a str>,
-    /// Matches per target row.
+    /// Matches per target row (more where rows tie at the k-th distance).
     pub neighbours: u32,
     /// Caliper in pooled standard deviations of the logit.
     pub caliper: Option<f64>,
@@ -35,7 +46,17 @@ pub(crate) struct Shape<'a> {
     pub estimand: Estimand,
 }
 
-/// The common table expressions (see the module documentation), ending before `used_`.
+/// The segment keys `k0, k1, …, ` with `prefix` (`"a."`), each followed by `, `.
+fn keys_of(g: usize, prefix: &str) -> String {
+    (0..g).map(|i| format!("{prefix}k{i}, ")).collect()
+}
+
+/// `x.k0 = y.k0 AND … AND ` for the segment keys.
+fn same_keys(g: usize, x: &str, y: &str) -> String {
+    (0..g).map(|i| format!("{x}.k{i} = {y}.k{i} AND ")).collect()
+}
+
+/// The common table expressions (see the module documentation), ending with `targets_`.
 fn ctes(
     t: &mut PassText,
     design: &Design,
@@ -47,31 +68,28 @@ fn ctes(
     let eta = predictor(t, models, terms)?;
     let f = t.float();
     let g = shape.segments;
-    let keys: Vec<String> = (0..g).map(|i| format!("k{i}")).collect();
+    let kt = keys_of(g, "");
     let unit = shape.unit.is_some();
-    let key_items = |prefix: &str| -> String {
-        keys.iter()
-            .map(|k| format!("{prefix}{k}, "))
-            .collect::<String>()
-    };
+    let u_item = if unit { format!(", k{g} AS u") } else { String::new() };
+    let u_keep = if unit { ", u" } else { "" };
     let by_segment = if g == 0 {
         String::new()
     } else {
-        format!("PARTITION BY {} ", keys.join(", "))
+        let k: Vec<String> = (0..g).map(|i| format!("k{i}")).collect();
+        format!("PARTITION BY {} ", k.join(", "))
     };
-    let by_arm = format!("PARTITION BY {}t", key_items(""));
-    let tiebreak = if unit { ", u" } else { "" };
-    let u_item = if unit { format!(", k{g} AS u") } else { String::new() };
-    let u_keep = if unit { ", u" } else { "" };
-    let arm_order = format!("{by_arm} ORDER BY s, y{tiebreak}");
-    let running =
-        format!("{by_segment}ORDER BY s, t, y{tiebreak} ROWS BETWEEN UNBOUNDED PRECEDING AND CURRENT ROW");
+    let group_segments = if g == 0 {
+        String::new()
+    } else {
+        let k: Vec<String> = (0..g).map(|i| format!("k{i}")).collect();
+        format!(" GROUP BY {}", k.join(", "))
+    };
+    let arm = format!("PARTITION BY {kt}t ORDER BY r");
+    let running = format!(
+        "{by_segment}ORDER BY s, t ROWS BETWEEN UNBOUNDED PRECEDING AND CURRENT ROW"
+    );
     let k = shape.neighbours;
     let offsets: Vec<String> = (1..=2 * k).map(|j| format!("({j})")).collect();
-    let same_keys: String = keys
-        .iter()
-        .map(|k| format!("b.{k} = a.{k} AND "))
-        .collect();
     let target = match shape.estimand {
         Estimand::Att => " WHERE a.t = 1.0",
         Estimand::Atc => " WHERE a.t = 0.0",
@@ -84,25 +102,52 @@ fn ctes(
         }
         None => String::new(),
     };
-    let kt = key_items("");
+    let spread_join = if g == 0 {
+        "CROSS JOIN spread_ AS sp".to_string()
+    } else {
+        let on: String = same_keys(g, "sp", "a");
+        format!("JOIN spread_ AS sp ON {}", on.trim_end_matches(" AND "))
+    };
+    // σ² summed over a cell's rows (module documentation); NULL for a row alone in its arm.
+    let near = |n: &str, sy: &str| format!("({n} / ({n} + 1.0)) * (sy - {sy} / {n}) * (sy - {sy} / {n})");
+    let sigma = format!(
+        "CASE WHEN n >= 2.0 THEN n * vy \
+         WHEN ps IS NULL AND ns IS NULL THEN NULL \
+         WHEN ns IS NULL OR (ps IS NOT NULL AND s - ps < ns - s) THEN {prev} \
+         WHEN ps IS NULL OR ns - s < s - ps THEN {next} \
+         ELSE {both} END",
+        prev = near("pn", "psy"),
+        next = near("nn", "nsy"),
+        both = near("(pn + nn)", "(psy + nsy)"),
+    );
     Ok(format!(
         "WITH rows_ AS (SELECT {kt}{eta} AS s, t, y{u_item} FROM ({rows}) AS design_), \
-         ordered_ AS (SELECT {kt}s, t, y{u_keep}, \
-           ROW_NUMBER() OVER ({arm_order}) AS r, \
+         ranked_ AS (SELECT {kt}s, t, y{u_keep}, DENSE_RANK() OVER (PARTITION BY {kt}t ORDER BY s) AS r FROM rows_), \
+         spread_ AS (SELECT {kt}SQRT((VAR_SAMP(CASE WHEN t = 1.0 THEN s END) + VAR_SAMP(CASE WHEN t = 0.0 THEN s END)) / 2.0) AS sdl \
+           FROM rows_{group_segments}), \
+         cells_ AS (SELECT {kt}t, r, MIN(s) AS s, CAST(COUNT(*) AS {f}) AS n, SUM(y) AS sy, COALESCE(VAR_SAMP(y), 0.0) AS vy \
+           FROM ranked_ GROUP BY {kt}t, r), \
+         adjacent_ AS (SELECT {kt}t, r, s, n, sy, vy, \
            COUNT(CASE WHEN t = 1.0 THEN 1 END) OVER ({running}) AS c1, \
            COUNT(CASE WHEN t = 0.0 THEN 1 END) OVER ({running}) AS c0, \
-           LAG(s) OVER ({arm_order}) AS ps, LAG(y) OVER ({arm_order}) AS py, \
-           LEAD(s) OVER ({arm_order}) AS ns, LEAD(y) OVER ({arm_order}) AS ny, \
-           SQRT((VAR_SAMP(CASE WHEN t = 1.0 THEN s END) OVER ({by_segment}) + VAR_SAMP(CASE WHEN t = 0.0 THEN s END) OVER ({by_segment})) / 2.0) AS sdl \
-           FROM rows_), \
-         cand_ AS (SELECT {a_keys}a.t, a.r, b.r AS rm, b.y AS ym, ABS(a.s - b.s) AS dist, a.sdl, \
-           ROW_NUMBER() OVER (PARTITION BY {a_keys}a.t, a.r ORDER BY ABS(a.s - b.s), b.r) AS nth \
-           FROM ordered_ AS a CROSS JOIN (VALUES {offsets}) AS o_ (j) \
-           JOIN ordered_ AS b ON {same_keys}b.t = 1.0 - a.t AND b.r = CASE WHEN a.t = 1.0 THEN a.c0 ELSE a.c1 END - {k} + o_.j{target}), \
-         pairs_ AS (SELECT {kt}t, r, rm, ym, dist, CAST(COUNT(*) OVER (PARTITION BY {kt}t, r) AS {f}) AS m \
-           FROM cand_ WHERE nth <= {k}{within}), \
-         targets_ AS (SELECT {kt}t, r, AVG(ym) AS cf, AVG(dist) AS distance, MAX(m) AS m FROM pairs_ GROUP BY {kt}t, r)",
-        a_keys = key_items("a."),
+           LAG(s) OVER ({arm}) AS ps, LAG(n) OVER ({arm}) AS pn, LAG(sy) OVER ({arm}) AS psy, \
+           LEAD(s) OVER ({arm}) AS ns, LEAD(n) OVER ({arm}) AS nn, LEAD(sy) OVER ({arm}) AS nsy \
+           FROM cells_), \
+         placed_ AS (SELECT {kt}t, r, s, n, sy, vy, c1, c0, {sigma} AS sv FROM adjacent_), \
+         cand_ AS (SELECT {a_keys}a.t, a.r, a.n AS an, b.r AS rm, b.n AS bn, b.sy AS bsy, ABS(a.s - b.s) AS dist, sp.sdl \
+           FROM placed_ AS a CROSS JOIN (VALUES {offsets}) AS o_ (j) \
+           JOIN placed_ AS b ON {ab}b.t = 1.0 - a.t AND b.r = CASE WHEN a.t = 1.0 THEN a.c0 ELSE a.c1 END - {k} + o_.j \
+           {spread_join}{target}), \
+         near_ AS (SELECT {kt}t, r, an, rm, bn, bsy, dist, sdl, \
+           SUM(bn) OVER (PARTITION BY {kt}t, r ORDER BY dist RANGE BETWEEN UNBOUNDED PRECEDING AND CURRENT ROW) \
+             - SUM(bn) OVER (PARTITION BY {kt}t, r, dist) AS closer \
+           FROM cand_), \
+         pairs_ AS (SELECT {kt}t, r, an, rm, bn, bsy, dist, SUM(bn) OVER (PARTITION BY {kt}t, r) AS m \
+           FROM near_ WHERE closer < {k}{within}), \
+         targets_ AS (SELECT {kt}t, r, SUM(bsy) / SUM(bn) AS cf, SUM(bn * dist) / SUM(bn) AS distance, MAX(m) AS m \
+           FROM pairs_ GROUP BY {kt}t, r)",
+        a_keys = keys_of(g, "a."),
+        ab = same_keys(g, "b", "a"),
         offsets = offsets.join(", "),
     ))
 }
@@ -117,11 +162,6 @@ fn per(design: &Design, g: usize) -> String {
     d.per()
 }
 
-/// `o.k0 = g.k0 AND ... AND ` for the segment keys.
-fn join_keys(g: usize, other: &str) -> String {
-    (0..g).map(|i| format!("{other}.k{i} = o.k{i} AND ")).collect()
-}
-
 /// The target rows' condition on `o`.
 fn targets_of(estimand: Estimand) -> &'static str {
     match estimand {
@@ -133,9 +173,8 @@ fn targets_of(estimand: Estimand) -> &'static str {
 
 /// The matching pass: per segment, row and match counts by arm, the sums of the targets'
 /// differences and their squares, the Abadie–Imbens variance term
-/// `Σ (w² − q + 2w·[matched target]) σ²` over the rows used as matches (σ² from each row's
-/// nearest same-arm neighbour by score: `(y − y')² / 2`), distances, the logit's pooled SD and
-/// range by arm.
+/// `Σ (w² − q + 2w·[matched target]) σ²` over the rows used as matches (module documentation),
+/// distances, the logit's pooled SD and its range by arm. All from the cells.
 pub(crate) fn matching_sums(
     flavor: &Flavor,
     source: &Source,
@@ -147,7 +186,7 @@ pub(crate) fn matching_sums(
     let mut t = PassText::new(flavor);
     let with = ctes(&mut t, design, propensity, shape)?;
     let g = shape.segments;
-    let kt: String = (0..g).map(|i| format!("k{i}, ")).collect();
+    let kt = keys_of(g, "");
     let o_keys: String = (0..g).map(|i| format!("o.k{i} AS k{i}, ")).collect();
     let group: String = if g == 0 {
         String::new()
@@ -155,39 +194,43 @@ pub(crate) fn matching_sums(
         let k: Vec<String> = (0..g).map(|i| format!("k{i}")).collect();
         format!(" GROUP BY {0} ORDER BY {0}", k.join(", "))
     };
-    let sigma2 = "CASE WHEN o.ps IS NULL AND o.ns IS NULL THEN NULL \
-        WHEN o.ns IS NULL OR (o.ps IS NOT NULL AND o.s - o.ps <= o.ns - o.s) THEN 0.5 * (o.y - o.py) * (o.y - o.py) \
-        ELSE 0.5 * (o.y - o.ny) * (o.y - o.ny) END";
+    let spread_join = if g == 0 {
+        "CROSS JOIN spread_ AS sp".to_string()
+    } else {
+        let on: String = same_keys(g, "sp", "o");
+        format!("JOIN spread_ AS sp ON {}", on.trim_end_matches(" AND "))
+    };
     t.sql = format!(
         "{with}, \
-         used_ AS (SELECT {kt}t AS tt, rm, SUM(1.0 / m) AS w, SUM(1.0 / (m * m)) AS q FROM pairs_ GROUP BY {kt}t, rm) \
-         SELECT {kt}COUNT(*) AS n, SUM(t) AS n1, \
-           SUM(CASE WHEN gr IS NULL THEN 0.0 ELSE t END) AS matched1, \
-           SUM(CASE WHEN gr IS NULL THEN 0.0 ELSE 1.0 - t END) AS matched0, \
-           COALESCE(SUM(d), 0.0) AS sd, COALESCE(SUM(d * d), 0.0) AS sdd, \
-           COALESCE(SUM((w * w - q + CASE WHEN gr IS NULL THEN 0.0 ELSE 2.0 * w END) * sigma2), 0.0) AS sv, \
-           SUM(CASE WHEN w IS NOT NULL AND sigma2 IS NULL THEN 1.0 ELSE 0.0 END) AS lone, \
-           SUM(CASE WHEN w IS NULL THEN 0.0 ELSE t END) AS used1, \
-           SUM(CASE WHEN w IS NULL THEN 0.0 ELSE 1.0 - t END) AS used0, \
-           COALESCE(MAX(w), 0.0) AS maxw, COALESCE(SUM(w), 0.0) AS sw, \
-           COALESCE(SUM(distance), 0.0) AS sdist, COALESCE(MAX(distance), 0.0) AS maxdist, \
+         used_ AS (SELECT {kt}t AS tt, rm, SUM(an / m) AS w, SUM(an / (m * m)) AS q FROM pairs_ GROUP BY {kt}t, rm) \
+         SELECT {kt}SUM(n) AS n, SUM(n * t) AS n1, \
+           SUM(CASE WHEN gr IS NULL THEN 0.0 ELSE n * t END) AS matched1, \
+           SUM(CASE WHEN gr IS NULL THEN 0.0 ELSE n * (1.0 - t) END) AS matched0, \
+           COALESCE(SUM(d), 0.0) AS sd, COALESCE(SUM(dd), 0.0) AS sdd, \
+           COALESCE(SUM((w * w - q + CASE WHEN gr IS NULL THEN 0.0 ELSE 2.0 * w END) * sv), 0.0) AS sv, \
+           SUM(CASE WHEN w IS NOT NULL AND sv IS NULL THEN n ELSE 0.0 END) AS lone, \
+           SUM(CASE WHEN w IS NULL THEN 0.0 ELSE n * t END) AS used1, \
+           SUM(CASE WHEN w IS NULL THEN 0.0 ELSE n * (1.0 - t) END) AS used0, \
+           COALESCE(MAX(w), 0.0) AS maxw, COALESCE(SUM(n * w), 0.0) AS sw, \
+           COALESCE(SUM(n * distance), 0.0) AS sdist, COALESCE(MAX(distance), 0.0) AS maxdist, \
            MAX(sdl) AS sdl, \
            MIN(CASE WHEN t = 1.0 THEN s END) AS lo1, MAX(CASE WHEN t = 1.0 THEN s END) AS hi1, \
            MIN(CASE WHEN t = 0.0 THEN s END) AS lo0, MAX(CASE WHEN t = 0.0 THEN s END) AS hi0 \
-         FROM (SELECT {o_keys}o.t, o.s, o.sdl, g.r AS gr, g.distance, \
-           (2.0 * o.t - 1.0) * (o.y - g.cf) AS d, w_.w, w_.q, {sigma2} AS sigma2 \
-           FROM ordered_ AS o \
+         FROM (SELECT {o_keys}o.t, o.s, o.n, o.sv, sp.sdl, g.r AS gr, g.distance, \
+           (2.0 * o.t - 1.0) * (o.sy - o.n * g.cf) AS d, \
+           (o.n - 1.0) * o.vy + o.n * (o.sy / o.n - g.cf) * (o.sy / o.n - g.cf) AS dd, w_.w, w_.q \
+           FROM placed_ AS o {spread_join} \
            LEFT JOIN targets_ AS g ON {jg}g.t = o.t AND g.r = o.r AND {target} \
-           LEFT JOIN used_ AS w_ ON {jw}w_.tt = 1.0 - o.t AND w_.rm = o.r) AS unit_{group}",
-        jg = join_keys(g, "g"),
-        jw = join_keys(g, "w_"),
+           LEFT JOIN used_ AS w_ ON {jw}w_.tt = 1.0 - o.t AND w_.rm = o.r) AS cell_{group}",
+        jg = same_keys(g, "g", "o"),
+        jw = same_keys(g, "w_", "o"),
         target = targets_of(shape.estimand),
     );
     Ok(Built {
         pass: t.finish(
             "match",
             format!(
-                "nearest-neighbour matching on the logit of the propensity (1:{}{}, with replacement): differences, match counts and the Abadie–Imbens variance terms{}",
+                "nearest-neighbour matching on the logit of the propensity (1:{}{}, with replacement, ties included): differences, match counts and the Abadie–Imbens variance terms{}",
                 shape.neighbours,
                 shape
                     .caliper
@@ -204,7 +247,7 @@ pub(crate) fn matching_sums(
 /// The per-row table's query: one row per target row (matched or not) with its unit key (under
 /// its own name), segment columns (under theirs), `treatment`, `outcome`, `counterfactual` (the
 /// matches' mean outcome), `difference` (treated minus untreated outcome; NULL when unmatched),
-/// `distance` (the matches' mean distance on the logit), `matches`, `propensity`.
+/// `distance` (the matches' mean distance on the logit), `matches`, `propensity`, `logit`.
 pub(crate) fn per_row(
     flavor: &Flavor,
     source: &Source,
@@ -222,9 +265,9 @@ pub(crate) fn per_row(
         "{with} SELECT o.u AS unit_{seg_items}, o.t AS treatment, o.y AS outcome, g.cf AS counterfactual, \
            (2.0 * o.t - 1.0) * (o.y - g.cf) AS difference, g.distance AS distance, \
            COALESCE(g.m, 0.0) AS matches, 1.0 / (1.0 + EXP(-o.s)) AS propensity, o.s AS logit \
-         FROM ordered_ AS o LEFT JOIN targets_ AS g ON {jg}g.t = o.t AND g.r = o.r \
+         FROM ranked_ AS o LEFT JOIN targets_ AS g ON {jg}g.t = o.t AND g.r = o.r \
          WHERE {target}",
-        jg = join_keys(g, "g"),
+        jg = same_keys(g, "g", "o"),
         target = targets_of(shape.estimand),
     );
     let mut pass = t.finish(
