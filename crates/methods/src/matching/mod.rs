@@ -103,6 +103,15 @@ pub(crate) fn estimate_of(m: &MatchSums) -> Option<(f64, f64, f64)> {
     Some((tau, (spread + m.sv) / (n * n), n))
 }
 
+/// A number as a person would write it: plain, or in scientific notation when very small.
+fn short(x: f64) -> String {
+    if x != 0.0 && x.abs() < 1e-3 {
+        format!("{x:.3e}")
+    } else {
+        format!("{}", (x * 1e4).round() / 1e4)
+    }
+}
+
 fn arm_word(t: Estimand) -> &'static str {
     match t {
         Estimand::Att => "treated",
@@ -132,11 +141,14 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
             Estimand::Ate => (n1, n0),
         };
         let (un1, un0) = (targets1 - m.matched1, targets0 - m.matched0);
-        let caliper = spec.matching.caliper.map(|c| (c, c * m.sdl));
+        let caliper = spec
+            .matching
+            .caliper
+            .map(|c| (short(c), short(c * m.sdl)));
         let Some((tau, var, matched)) = estimate_of(&m) else {
             return Err(MethodError::Input(match caliper {
                 Some((c, width)) => format!(
-                    "{label}: the caliper of {c} SD of the logit ({width:.4}) matches nothing: no {}row has a row of the other arm that close (treated logits from {:.3} to {:.3}, untreated from {:.3} to {:.3}); widen --caliper, or leave it out",
+                    "{label}: the caliper of {c} SD of the logit ({width}) matches nothing: no {}row has a row of the other arm that close (treated logits from {:.3} to {:.3}, untreated from {:.3} to {:.3}); widen --caliper, or leave it out",
                     match arm_word(spec.estimand) { "" => String::new(), w => format!("{w} ") },
                     m.range1.0, m.range1.1, m.range0.0, m.range0.1
                 ),
@@ -145,7 +157,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
         };
         let reach = match caliper {
             Some((c, width)) => format!(
-                "; caliper {c} × pooled SD of the logit {:.4} = {width:.4}",
+                "; caliper {c} × pooled SD of the logit {:.4} = {width}",
                 m.sdl
             ),
             None => String::new(),
