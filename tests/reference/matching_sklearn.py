@@ -2,6 +2,9 @@
 
 upshot writes each target row's logit of the propensity to its per-row table (`--rows-into`);
 an ATE run gives every row's logit. On those logits:
+- upshot compares logits rounded to 9 decimals (docs/methods.md: ties that are exact in
+  arithmetic stay ties on every engine); the reference rounds the table's logits the same way,
+  floor(s * 1e9 + 0.5), and works on those;
 - scikit-learn 1.9.1 `NearestNeighbors` (exact search, `algorithm="brute"`, `metric="manhattan"`,
   which on one dimension is |a - b|): for every target row the k-th smallest distance to the
   other arm, whose rows at or below it are the match set as Abadie & Imbens (2006) define it
@@ -96,9 +99,10 @@ def reference(all_rows, estimand, k, caliper=None):
     """Matches, per-row counterfactuals, the estimate and its Abadie-Imbens error, from the
     logits of an ATE per-row table (every row), scikit-learn for the neighbour distances."""
     t = all_rows["treatment"].to_numpy()
-    s = all_rows["logit"].to_numpy()
+    logit = all_rows["logit"].to_numpy()
+    s = np.floor(logit * 1e9 + 0.5)
     y = all_rows["outcome"].to_numpy()
-    sdl = np.sqrt((np.var(s[t == 1], ddof=1) + np.var(s[t == 0], ddof=1)) / 2)
+    sdl = np.sqrt((np.var(logit[t == 1], ddof=1) + np.var(logit[t == 0], ddof=1)) / 2) * 1e9
     sig = np.empty(len(s))
     for arm in (0, 1):
         idx = np.where(t == arm)[0]
@@ -130,7 +134,7 @@ def reference(all_rows, estimand, k, caliper=None):
                 continue
             m = float(len(chosen))
             cf = y[chosen].mean()
-            rows[i] = (cf, np.abs(s[chosen] - s[i]).mean(), m, (2 * arm - 1) * (y[i] - cf))
+            rows[i] = (cf, np.abs(s[chosen] - s[i]).sum() / m / 1e9, m, (2 * arm - 1) * (y[i] - cf))
             w[chosen] += 1 / m
             q[chosen] += 1 / m**2
     matched = np.array([i for i, r in rows.items() if r is not None])

@@ -23,15 +23,26 @@ WITH rows_ AS (
   SELECT
     k0,
     s,
+    sq,
     t,
     y,
     u,
     DENSE_RANK() OVER (
       PARTITION BY k0, t
-      ORDER BY s
+      ORDER BY sq
     ) AS r
   FROM
-    rows_
+    (
+      SELECT
+        k0,
+        s,
+        t,
+        y,
+        u,
+        CAST(FLOOR(s * 1000000000.0 + 0.5) AS DOUBLE) AS sq
+      FROM
+        rows_
+    ) AS grid_
 ), spread_ AS (
   SELECT
     k0,
@@ -45,7 +56,7 @@ WITH rows_ AS (
     k0,
     t,
     r,
-    MIN(s) AS s,
+    MIN(sq) AS s,
     CAST(COUNT(*) AS DOUBLE) AS n,
     SUM(y) AS sy,
     COALESCE(VAR_SAMP(y), 0.0) AS vy
@@ -171,14 +182,14 @@ WITH rows_ AS (
   FROM
     near_
   WHERE
-    closer < 2 AND dist <= 0.2 * sdl
+    closer < 2 AND dist <= 0.2 * sdl * 1000000000.0
 ), targets_ AS (
   SELECT
     k0,
     t,
     r,
     SUM(bsy) / SUM(bn) AS cf,
-    SUM(bn * dist) / SUM(bn) AS distance,
+    SUM(bn * dist) / SUM(bn) / 1000000000.0 AS distance,
     MAX(m) AS m
   FROM
     pairs_

@@ -6,7 +6,8 @@
 //! the pass's sums come from the same matches:
 //! - `rows_`: each row's group keys, the linear predictor of its segment's propensity model
 //!   (the logit of the score, `s`), `t`, `y` and the unit key `u` when there is one;
-//! - `ranked_`: each row with `r`, the rank of its logit among its arm's distinct logits;
+//! - `ranked_`: each row with `r`, the rank of its logit among its arm's distinct logits, the
+//!   logits rounded to 9 decimals first (`GRID`);
 //! - `spread_`: per segment, the pooled standard deviation of the logit over the two arms'
 //!   rows, `sdl` (the caliper's unit);
 //! - `cells_`: per arm and distinct logit, the rows `n`, `Σ y` and the sample variance of `y`;
@@ -31,6 +32,12 @@
 use upshot_sql::design::{predictor, PassText};
 use upshot_sql::{Aggregates, Built, Design, Expr, Flavor, Models, Pass, ResultError, Source, SqlError};
 use upshot_study::Estimand;
+
+/// Logits are compared on a grid of `1 / GRID` (rounded to 9 decimals): distances that are
+/// equal in exact arithmetic (two cells one step of an integer covariate either side of a
+/// target) are then equal on every engine, whatever its rounding of the linear predictor, and
+/// every comparison after it is exact.
+const GRID: &str = "1000000000.0";
 
 /// How rows are matched.
 pub(crate) struct Shape<'a> {
@@ -98,7 +105,7 @@ fn ctes(
     let within = match shape.caliper {
         Some(c) => {
             let c = t.number(c, "the caliper")?;
-            format!(" AND dist <= {c} * sdl")
+            format!(" AND dist <= {c} * sdl * {GRID}")
         }
         None => String::new(),
     };
@@ -122,10 +129,11 @@ fn ctes(
     );
     Ok(format!(
         "WITH rows_ AS (SELECT {kt}{eta} AS s, t, y{u_item} FROM ({rows}) AS design_), \
-         ranked_ AS (SELECT {kt}s, t, y{u_keep}, DENSE_RANK() OVER (PARTITION BY {kt}t ORDER BY s) AS r FROM rows_), \
+         ranked_ AS (SELECT {kt}s, sq, t, y{u_keep}, DENSE_RANK() OVER (PARTITION BY {kt}t ORDER BY sq) AS r \
+           FROM (SELECT {kt}s, t, y{u_keep}, CAST(FLOOR(s * {GRID} + 0.5) AS {f}) AS sq FROM rows_) AS grid_), \
          spread_ AS (SELECT {kt}SQRT((VAR_SAMP(CASE WHEN t = 1.0 THEN s END) + VAR_SAMP(CASE WHEN t = 0.0 THEN s END)) / 2.0) AS sdl \
            FROM rows_{group_segments}), \
-         cells_ AS (SELECT {kt}t, r, MIN(s) AS s, CAST(COUNT(*) AS {f}) AS n, SUM(y) AS sy, COALESCE(VAR_SAMP(y), 0.0) AS vy \
+         cells_ AS (SELECT {kt}t, r, MIN(sq) AS s, CAST(COUNT(*) AS {f}) AS n, SUM(y) AS sy, COALESCE(VAR_SAMP(y), 0.0) AS vy \
            FROM ranked_ GROUP BY {kt}t, r), \
          adjacent_ AS (SELECT {kt}t, r, s, n, sy, vy, \
            COUNT(CASE WHEN t = 1.0 THEN 1 END) OVER ({running}) AS c1, \
@@ -144,7 +152,7 @@ fn ctes(
            FROM cand_), \
          pairs_ AS (SELECT {kt}t, r, an, rm, bn, bsy, dist, SUM(bn) OVER (PARTITION BY {kt}t, r) AS m \
            FROM near_ WHERE closer < {k}{within}), \
-         targets_ AS (SELECT {kt}t, r, SUM(bsy) / SUM(bn) AS cf, SUM(bn * dist) / SUM(bn) AS distance, MAX(m) AS m \
+         targets_ AS (SELECT {kt}t, r, SUM(bsy) / SUM(bn) AS cf, SUM(bn * dist) / SUM(bn) / {GRID} AS distance, MAX(m) AS m \
            FROM pairs_ GROUP BY {kt}t, r)",
         a_keys = keys_of(g, "a."),
         ab = same_keys(g, "b", "a"),
@@ -214,8 +222,8 @@ pub(crate) fn matching_sums(
            COALESCE(MAX(w), 0.0) AS maxw, COALESCE(SUM(n * w), 0.0) AS sw, \
            COALESCE(SUM(n * distance), 0.0) AS sdist, COALESCE(MAX(distance), 0.0) AS maxdist, \
            MAX(sdl) AS sdl, \
-           MIN(CASE WHEN t = 1.0 THEN s END) AS lo1, MAX(CASE WHEN t = 1.0 THEN s END) AS hi1, \
-           MIN(CASE WHEN t = 0.0 THEN s END) AS lo0, MAX(CASE WHEN t = 0.0 THEN s END) AS hi0 \
+           MIN(CASE WHEN t = 1.0 THEN s END) / {GRID} AS lo1, MAX(CASE WHEN t = 1.0 THEN s END) / {GRID} AS hi1, \
+           MIN(CASE WHEN t = 0.0 THEN s END) / {GRID} AS lo0, MAX(CASE WHEN t = 0.0 THEN s END) / {GRID} AS hi0 \
          FROM (SELECT {o_keys}o.t, o.s, o.n, o.sv, sp.sdl, g.r AS gr, g.distance, \
            (2.0 * o.t - 1.0) * (o.sy - o.n * g.cf) AS d, \
            (o.n - 1.0) * o.vy + o.n * (o.sy / o.n - g.cf) * (o.sy / o.n - g.cf) AS dd, w_.w, w_.q \
