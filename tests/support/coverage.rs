@@ -70,7 +70,7 @@ fn main() {
     let truth_cate: BTreeMap<&str, f64> = [("new", 12.0), ("1y", 8.0), ("2y+", 4.0)].into();
     // Adjustment sets, all valid for the demo diagram. The propensity methods also get the
     // mailing wave, which drives targeting: with it their logistic model is the generator's own
-    // (correctly specified); without it (the last row, not gated) it is not, and shows the bias
+    // (correctly specified); without it (the last weight row, not gated) it is not, and shows the bias
     // that misspecification brings.
     let rows_of = |method, adjust: &[&str], gated, filter, note| Row {
         method,
@@ -124,6 +124,13 @@ fn main() {
             false,
             None,
             " (not gated: misspecified propensity)",
+        ),
+        rows_of(
+            Method::Match,
+            &["prior_orders", "zone", "mail_wave"],
+            true,
+            None,
+            "",
         ),
     ];
     let only: Option<Vec<String>> = {

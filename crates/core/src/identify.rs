@@ -340,6 +340,9 @@ pub fn assumptions(c: &Option<Chosen>, method: Method) -> Vec<String> {
     if !matches!(method, Method::Stratify | Method::Coarsen) {
         a.push("estimators that fit models (outcome or propensity) assume those models are correctly specified".into());
     }
+    if method == Method::Match {
+        a.push("matching stands a matched row's outcome in for the missing one: rows with close propensity scores are taken as comparable (the balance this buys is only as good as the propensity model, and a wide caliper or few close matches leave bias)".into());
+    }
     a
 }
 
