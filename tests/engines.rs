@@ -212,7 +212,10 @@ fn matching_with_rows(engine: &str, locator: &str, table: &str) -> Value {
         "--format",
         "json",
     ];
-    let duckdb = ok(&run(&[&["run", study], extra.as_slice()].concat(), &[]), "DuckDB");
+    let duckdb = ok(
+        &run(&[&["run", study], extra.as_slice()].concat(), &[]),
+        "DuckDB",
+    );
     let got = ok(
         &run(
             &[
@@ -304,7 +307,10 @@ fn postgres_match_writes_its_rows_and_agrees() {
         .select("SELECT AVG(difference) AS mean, COUNT(*) AS n FROM matched_rows")
         .unwrap();
     let (mean, est) = (rows.number(0, "mean").unwrap(), all_estimate(&got));
-    assert!((mean - est).abs() <= TOLERANCE * est.abs(), "{mean} vs {est}");
+    assert!(
+        (mean - est).abs() <= TOLERANCE * est.abs(),
+        "{mean} vs {est}"
+    );
 }
 
 #[test]
@@ -557,7 +563,10 @@ fn spark_match_writes_its_rows_and_agrees() {
         .as_primitive::<arrow_array::types::Float64Type>()
         .value(0);
     let est = all_estimate(&got);
-    assert!((mean - est).abs() <= TOLERANCE * est.abs(), "{mean} vs {est}");
+    assert!(
+        (mean - est).abs() <= TOLERANCE * est.abs(),
+        "{mean} vs {est}"
+    );
 }
 
 #[test]

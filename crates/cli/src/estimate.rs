@@ -354,7 +354,10 @@ pub fn run_run(a: Args) -> Result<i32, Failure> {
     let mut out = out;
     if format == "text" {
         if let Some(r) = &rows_into {
-            out.push_str(&format!("one row per matched unit written to {}\n", r.table));
+            out.push_str(&format!(
+                "one row per matched unit written to {}\n",
+                r.table
+            ));
         }
         if let Some(table) = &a.into {
             out.push_str(&format!("estimates appended to {table}\n"));

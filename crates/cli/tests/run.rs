@@ -1854,11 +1854,16 @@ fn match_estimates_and_writes_one_row_per_matched_unit() {
     }
     // The per-row table: one row per target unit, its mean difference the estimate.
     let att = |extra: &[&str]| -> Vec<String> {
-        [&["run"], base.as_slice(), &["--estimand", "ATT", "--neighbours", "3"], extra]
-            .concat()
-            .iter()
-            .map(|s| s.to_string())
-            .collect()
+        [
+            &["run"],
+            base.as_slice(),
+            &["--estimand", "ATT", "--neighbours", "3"],
+            extra,
+        ]
+        .concat()
+        .iter()
+        .map(|s| s.to_string())
+        .collect()
     };
     let refs = |a: &[String]| -> Vec<String> { a.to_vec() };
     let run = |a: Vec<String>| -> Value {
@@ -1882,7 +1887,13 @@ fn match_estimates_and_writes_one_row_per_matched_unit() {
     let again: Vec<String> = att(&["--rows-into", "matched_rows"]);
     let r: Vec<&str> = again.iter().map(|s| s.as_str()).collect();
     fails(&r, 2, &["matched_rows", "the table exists", "--replace"]);
-    let v = run(att(&["--rows-into", "matched_rows", "--replace", "--caliper", "0.2"]));
+    let v = run(att(&[
+        "--rows-into",
+        "matched_rows",
+        "--replace",
+        "--caliper",
+        "0.2",
+    ]));
     let estimate = v["estimates"][0]["estimate"].as_f64().unwrap();
     let mean = query(db, "SELECT AVG(difference) FROM matched_rows");
     assert!((mean - estimate).abs() <= 1e-9 * estimate.abs());
@@ -1901,7 +1912,10 @@ fn match_estimates_and_writes_one_row_per_matched_unit() {
                 &format!("SELECT AVG(difference) FROM by_band WHERE tenure_band = '{band}'"),
             );
             let est = e["estimate"].as_f64().unwrap();
-            assert!((mean - est).abs() <= 1e-9 * est.abs(), "{seg}: {mean} vs {est}");
+            assert!(
+                (mean - est).abs() <= 1e-9 * est.abs(),
+                "{seg}: {mean} vs {est}"
+            );
         }
     }
     // plan lists what run executes.
@@ -1926,9 +1940,18 @@ fn match_estimates_and_writes_one_row_per_matched_unit() {
     let mut jittered = base.to_vec();
     jittered[5] = "jittered";
     fails(
-        &[&["run"], jittered.as_slice(), &["--caliper", "1e-12", "--rows-into", "never_a"]].concat(),
+        &[
+            &["run"],
+            jittered.as_slice(),
+            &["--caliper", "1e-12", "--rows-into", "never_a"],
+        ]
+        .concat(),
         2,
-        &["caliper of 1.000e-12 SD", "matches nothing", "widen --caliper"],
+        &[
+            "caliper of 1.000e-12 SD",
+            "matches nothing",
+            "widen --caliper",
+        ],
     );
     bad(&["--caliper", "0"], &["--caliper"]);
     bad(&["--neighbours", "0"], &["--neighbours"]);
@@ -1939,33 +1962,86 @@ fn match_estimates_and_writes_one_row_per_matched_unit() {
         .is_err());
     fails(
         &[
-            "run", "--graph", GRAPH, "--db", db, "--source", "customers", "--treatment",
-            "voucher", "--outcome", "spend_30d", "--method", "match", "--rows-into", "never_b",
+            "run",
+            "--graph",
+            GRAPH,
+            "--db",
+            db,
+            "--source",
+            "customers",
+            "--treatment",
+            "voucher",
+            "--outcome",
+            "spend_30d",
+            "--method",
+            "match",
+            "--rows-into",
+            "never_b",
         ],
         2,
         &["--rows-into", "--unit"],
     );
     fails(
         &[
-            "run", "--graph", GRAPH, "--source", SAMPLE, "--treatment", "voucher", "--outcome",
-            "spend_30d", "--method", "match", "--unit", "customer_id", "--rows-into", "never_c",
+            "run",
+            "--graph",
+            GRAPH,
+            "--source",
+            SAMPLE,
+            "--treatment",
+            "voucher",
+            "--outcome",
+            "spend_30d",
+            "--method",
+            "match",
+            "--unit",
+            "customer_id",
+            "--rows-into",
+            "never_c",
         ],
         2,
         &["--rows-into", "keeps nothing"],
     );
     fails(
         &[
-            "run", "--graph", GRAPH, "--db", db, "--source", "customers", "--treatment",
-            "voucher", "--outcome", "spend_30d", "--method", "regress", "--unit",
-            "customer_id", "--rows-into", "never_d",
+            "run",
+            "--graph",
+            GRAPH,
+            "--db",
+            db,
+            "--source",
+            "customers",
+            "--treatment",
+            "voucher",
+            "--outcome",
+            "spend_30d",
+            "--method",
+            "regress",
+            "--unit",
+            "customer_id",
+            "--rows-into",
+            "never_d",
         ],
         2,
         &["--rows-into", "match"],
     );
     fails(
         &[
-            "run", "--graph", GRAPH, "--db", db, "--source", "customers", "--treatment",
-            "voucher", "--outcome", "spend_30d", "--method", "regress", "--neighbours", "2",
+            "run",
+            "--graph",
+            GRAPH,
+            "--db",
+            db,
+            "--source",
+            "customers",
+            "--treatment",
+            "voucher",
+            "--outcome",
+            "spend_30d",
+            "--method",
+            "regress",
+            "--neighbours",
+            "2",
         ],
         2,
         &["--neighbours", "match"],

@@ -95,7 +95,12 @@ pub fn check_rows_request(resolved: &[Resolved], rows: &RowsInto) -> Result<(), 
             r.question
         )));
     };
-    if let Some(s) = r.spec.segments.iter().find(|s| s.eq_ignore_ascii_case(unit)) {
+    if let Some(s) = r
+        .spec
+        .segments
+        .iter()
+        .find(|s| s.eq_ignore_ascii_case(unit))
+    {
         return Err(CoreError::Input(format!(
             "--rows-into: `{s}` is both the unit key and a segment column; a unit key names one row, so segment by another column"
         )));
@@ -431,9 +436,7 @@ pub fn write_results(
             upshot_engine::EngineError::Aborted(why) => CoreError::Engine(format!(
                 "{why}; {what}: nothing was written (the transaction was rolled back)"
             )),
-            upshot_engine::EngineError::Written(why) => {
-                CoreError::Engine(format!("{what}: {why}"))
-            }
+            upshot_engine::EngineError::Written(why) => CoreError::Engine(format!("{what}: {why}")),
             e => CoreError::Engine(format!(
                 "{what}: nothing was written (the transaction was rolled back): {e}"
             )),

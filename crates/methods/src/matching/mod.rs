@@ -141,10 +141,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
             Estimand::Ate => (n1, n0),
         };
         let (un1, un0) = (targets1 - m.matched1, targets0 - m.matched0);
-        let caliper = spec
-            .matching
-            .caliper
-            .map(|c| (short(c), short(c * m.sdl)));
+        let caliper = spec.matching.caliper.map(|c| (short(c), short(c * m.sdl)));
         let Some((tau, var, matched)) = estimate_of(&m) else {
             return Err(MethodError::Input(match caliper {
                 Some((c, width)) => format!(

@@ -30,7 +30,9 @@
 //! near).
 
 use upshot_sql::design::{predictor, PassText};
-use upshot_sql::{Aggregates, Built, Design, Expr, Flavor, Models, Pass, ResultError, Source, SqlError};
+use upshot_sql::{
+    Aggregates, Built, Design, Expr, Flavor, Models, Pass, ResultError, Source, SqlError,
+};
 use upshot_study::Estimand;
 
 /// Logits are compared on a grid of `1 / GRID` (rounded to 9 decimals): distances that are
@@ -60,7 +62,9 @@ fn keys_of(g: usize, prefix: &str) -> String {
 
 /// `x.k0 = y.k0 AND … AND ` for the segment keys.
 fn same_keys(g: usize, x: &str, y: &str) -> String {
-    (0..g).map(|i| format!("{x}.k{i} = {y}.k{i} AND ")).collect()
+    (0..g)
+        .map(|i| format!("{x}.k{i} = {y}.k{i} AND "))
+        .collect()
 }
 
 /// The common table expressions (see the module documentation), ending with `targets_`.
@@ -77,7 +81,11 @@ fn ctes(
     let g = shape.segments;
     let kt = keys_of(g, "");
     let unit = shape.unit.is_some();
-    let u_item = if unit { format!(", k{g} AS u") } else { String::new() };
+    let u_item = if unit {
+        format!(", k{g} AS u")
+    } else {
+        String::new()
+    };
     let u_keep = if unit { ", u" } else { "" };
     let by_segment = if g == 0 {
         String::new()
@@ -92,9 +100,8 @@ fn ctes(
         format!(" GROUP BY {}", k.join(", "))
     };
     let arm = format!("PARTITION BY {kt}t ORDER BY r");
-    let running = format!(
-        "{by_segment}ORDER BY s, t ROWS BETWEEN UNBOUNDED PRECEDING AND CURRENT ROW"
-    );
+    let running =
+        format!("{by_segment}ORDER BY s, t ROWS BETWEEN UNBOUNDED PRECEDING AND CURRENT ROW");
     let k = shape.neighbours;
     let offsets: Vec<String> = (1..=2 * k).map(|j| format!("({j})")).collect();
     let target = match shape.estimand {
@@ -116,7 +123,8 @@ fn ctes(
         format!("JOIN spread_ AS sp ON {}", on.trim_end_matches(" AND "))
     };
     // σ² summed over a cell's rows (module documentation); NULL for a row alone in its arm.
-    let near = |n: &str, sy: &str| format!("({n} / ({n} + 1.0)) * (sy - {sy} / {n}) * (sy - {sy} / {n})");
+    let near =
+        |n: &str, sy: &str| format!("({n} / ({n} + 1.0)) * (sy - {sy} / {n}) * (sy - {sy} / {n})");
     let sigma = format!(
         "CASE WHEN n >= 2.0 THEN n * vy \
          WHEN ps IS NULL AND ns IS NULL THEN NULL \
