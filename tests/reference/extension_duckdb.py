@@ -119,10 +119,13 @@ COMBOS = [
     ("voucher", "spend_30d", {"method": "iv", "instruments": "mail_wave", "segments": "tenure_band"}),
     ("voucher", "spend_30d", {"method": "front-door", "mediators": "app_sessions", "segments": "tenure_band",
                               "min_cell": 700}),
+    ("voucher", "spend_30d", {"method": "match", "estimand": "ATT", "neighbours": 3, "caliper": 0.2,
+                              "segments": "tenure_band"}),
 ]
 FLAG = {"segments": "--segment-by", "estimand": "--estimand", "method": "--method", "adjust": "--adjust",
         "unit": "--unit", "folds": "--folds", "filter": "--filter", "instruments": "--instruments",
-        "mediators": "--mediators", "min_cell": "--min-cell"}
+        "mediators": "--mediators", "min_cell": "--min-cell", "neighbours": "--neighbours",
+        "caliper": "--caliper"}
 for t, y, named in COMBOS:
     flags, params = [], []
     for k, v in named.items():
@@ -189,7 +192,7 @@ if q["identified"] or last.get("kind") != "not identified" or \
 checks += 1
 
 # Plans against `upshot plan`.
-for method in ["stratify", "regress", "weight", "doubly-robust", "partial-out"]:
+for method in ["stratify", "regress", "weight", "doubly-robust", "partial-out", "match"]:
     code, out, err = cli(["plan", "--source", CSV, "--graph", GRAPH, "--treatment", "voucher", "--outcome",
                           "spend_30d", "--method", method, "--unit", "customer_id", "--format", "json"])
     want = [(p["name"], p["sql"]) for p in json.loads(out)["questions"][0]["passes"]]
