@@ -1960,38 +1960,28 @@ fn match_estimates_and_writes_one_row_per_matched_unit() {
         .unwrap()
         .query_number("SELECT COUNT(*) FROM never_a")
         .is_err());
-    fails(
-        &[
-            "run",
-            "--graph",
-            GRAPH,
-            "--db",
-            db,
-            "--source",
-            "customers",
-            "--treatment",
-            "voucher",
-            "--outcome",
-            "spend_30d",
-            "--method",
-            "match",
-            "--rows-into",
-            "never_b",
-        ],
-        2,
+    // The question without a method or unit key, then the flags of each case.
+    let question = [
+        "run",
+        "--graph",
+        GRAPH,
+        "--treatment",
+        "voucher",
+        "--outcome",
+        "spend_30d",
+    ];
+    let in_db = ["--db", db, "--source", "customers"];
+    let case = |extra: &[&str], needles: &[&str]| {
+        fails(&[question.as_slice(), extra].concat(), 2, needles);
+    };
+    case(
+        &[&in_db[..], &["--method", "match", "--rows-into", "never_b"]].concat(),
         &["--rows-into", "--unit"],
     );
-    fails(
+    case(
         &[
-            "run",
-            "--graph",
-            GRAPH,
             "--source",
             SAMPLE,
-            "--treatment",
-            "voucher",
-            "--outcome",
-            "spend_30d",
             "--method",
             "match",
             "--unit",
@@ -1999,51 +1989,25 @@ fn match_estimates_and_writes_one_row_per_matched_unit() {
             "--rows-into",
             "never_c",
         ],
-        2,
         &["--rows-into", "keeps nothing"],
     );
-    fails(
+    case(
         &[
-            "run",
-            "--graph",
-            GRAPH,
-            "--db",
-            db,
-            "--source",
-            "customers",
-            "--treatment",
-            "voucher",
-            "--outcome",
-            "spend_30d",
-            "--method",
-            "regress",
-            "--unit",
-            "customer_id",
-            "--rows-into",
-            "never_d",
-        ],
-        2,
+            &in_db[..],
+            &[
+                "--method",
+                "regress",
+                "--unit",
+                "customer_id",
+                "--rows-into",
+                "never_d",
+            ],
+        ]
+        .concat(),
         &["--rows-into", "match"],
     );
-    fails(
-        &[
-            "run",
-            "--graph",
-            GRAPH,
-            "--db",
-            db,
-            "--source",
-            "customers",
-            "--treatment",
-            "voucher",
-            "--outcome",
-            "spend_30d",
-            "--method",
-            "regress",
-            "--neighbours",
-            "2",
-        ],
-        2,
+    case(
+        &[&in_db[..], &["--method", "regress", "--neighbours", "2"]].concat(),
         &["--neighbours", "match"],
     );
 }

@@ -67,6 +67,16 @@ fn same_keys(g: usize, x: &str, y: &str) -> String {
         .collect()
 }
 
+/// The join of `spread_` (as `sp`) to the cells aliased `on`, by the segment keys.
+fn spread_join(g: usize, on: &str) -> String {
+    if g == 0 {
+        "CROSS JOIN spread_ AS sp".to_string()
+    } else {
+        let keys = same_keys(g, "sp", on);
+        format!("JOIN spread_ AS sp ON {}", keys.trim_end_matches(" AND "))
+    }
+}
+
 /// The common table expressions (see the module documentation), ending with `targets_`.
 fn ctes(
     t: &mut PassText,
@@ -116,12 +126,7 @@ fn ctes(
         }
         None => String::new(),
     };
-    let spread_join = if g == 0 {
-        "CROSS JOIN spread_ AS sp".to_string()
-    } else {
-        let on: String = same_keys(g, "sp", "a");
-        format!("JOIN spread_ AS sp ON {}", on.trim_end_matches(" AND "))
-    };
+    let spread_join = spread_join(g, "a");
     // σ² summed over a cell's rows (module documentation); NULL for a row alone in its arm.
     let near =
         |n: &str, sy: &str| format!("({n} / ({n} + 1.0)) * (sy - {sy} / {n}) * (sy - {sy} / {n})");
@@ -210,12 +215,7 @@ pub(crate) fn matching_sums(
         let k: Vec<String> = (0..g).map(|i| format!("k{i}")).collect();
         format!(" GROUP BY {0} ORDER BY {0}", k.join(", "))
     };
-    let spread_join = if g == 0 {
-        "CROSS JOIN spread_ AS sp".to_string()
-    } else {
-        let on: String = same_keys(g, "sp", "o");
-        format!("JOIN spread_ AS sp ON {}", on.trim_end_matches(" AND "))
-    };
+    let spread_join = spread_join(g, "o");
     t.sql = format!(
         "{with}, \
          used_ AS (SELECT {kt}t AS tt, rm, SUM(an / m) AS w, SUM(an / (m * m)) AS q FROM pairs_ GROUP BY {kt}t, rm) \
