@@ -236,24 +236,14 @@ impl Request {
                 }
             }
         }
-        let neighbours = u32::try_from(self.neighbours)
-            .ok()
-            .filter(|k| (1..=MAX_NEIGHBOURS).contains(k))
-            .ok_or_else(|| {
-                CoreError::Input(format!(
-                    "{}: {} rows per match; use 1 to {MAX_NEIGHBOURS}",
-                    self.spelling.arg("neighbours"),
-                    self.neighbours
-                ))
-            })?;
-        if let Some(c) = self.caliper {
-            if !(c.is_finite() && c > 0.0) {
-                return Err(CoreError::Input(format!(
-                    "{}: {c} is not a positive number of standard deviations of the logit of the propensity (0.2 is the usual choice, Austin 2011)",
-                    self.spelling.arg("caliper")
-                )));
-            }
-        }
+        // The range and the caliper are checked with the spec (`Spec::check`), as folds are.
+        let neighbours = u32::try_from(self.neighbours).map_err(|_| {
+            CoreError::Input(format!(
+                "{}: {} rows per match; use 1 to {MAX_NEIGHBOURS}",
+                self.spelling.arg("neighbours"),
+                self.neighbours
+            ))
+        })?;
         Ok(Settings {
             matching: Matching {
                 neighbours,

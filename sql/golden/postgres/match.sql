@@ -220,7 +220,6 @@ SELECT
   SUM(CASE WHEN w IS NULL THEN 0.0 ELSE n * t END) AS used1,
   SUM(CASE WHEN w IS NULL THEN 0.0 ELSE n * (1.0 - t) END) AS used0,
   COALESCE(MAX(w), 0.0) AS maxw,
-  COALESCE(SUM(n * w), 0.0) AS sw,
   COALESCE(SUM(n * distance), 0.0) AS sdist,
   COALESCE(MAX(distance), 0.0) AS maxdist,
   MAX(sdl) AS sdl,

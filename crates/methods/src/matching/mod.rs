@@ -112,10 +112,11 @@ fn short(x: f64) -> String {
     }
 }
 
-fn arm_word(t: Estimand) -> &'static str {
+/// The target rows' arm as a word and a space (`"treated "`), or nothing for ATE.
+fn targets_word(t: Estimand) -> &'static str {
     match t {
-        Estimand::Att => "treated",
-        Estimand::Atc => "untreated",
+        Estimand::Att => "treated ",
+        Estimand::Atc => "untreated ",
         Estimand::Ate => "",
     }
 }
@@ -146,7 +147,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
             return Err(MethodError::Input(match caliper {
                 Some((c, width)) => format!(
                     "{label}: the caliper of {c} SD of the logit ({width}) matches nothing: no {}row has a row of the other arm that close (treated logits from {:.3} to {:.3}, untreated from {:.3} to {:.3}); widen --caliper, or leave it out",
-                    match arm_word(spec.estimand) { "" => String::new(), w => format!("{w} ") },
+                    targets_word(spec.estimand),
                     m.range1.0, m.range1.1, m.range0.0, m.range0.1
                 ),
                 None => format!("{label}: no row could be matched; each arm needs rows"),
@@ -177,9 +178,9 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
         ));
         if un1 + un0 > 0.0 {
             out.diagnostics.warnings.push(format!(
-                "{label}: {un1} treated and {un0} untreated target rows had no match within the caliper and are left out: the estimate is the effect among the matched rows, not the whole {} population",
-                match spec.estimand { Estimand::Att => "treated", Estimand::Atc => "untreated", Estimand::Ate => "" }
-            ).replace("whole  population", "whole population"));
+                "{label}: {un1} treated and {un0} untreated target rows had no match within the caliper and are left out: the estimate is the effect among the matched rows, not the whole {}population",
+                targets_word(spec.estimand)
+            ));
         }
         if m.lone > 0.0 {
             out.diagnostics.notes.push(format!(
@@ -220,7 +221,6 @@ mod tests {
             used1: 0.0,
             used0: 3.0,
             maxw: 2.0,
-            sw: matched1,
             sdist: 0.0,
             maxdist: 0.0,
             sdl: 1.0,

@@ -227,7 +227,7 @@ pub(crate) fn matching_sums(
            SUM(CASE WHEN w IS NOT NULL AND sv IS NULL THEN n ELSE 0.0 END) AS lone, \
            SUM(CASE WHEN w IS NULL THEN 0.0 ELSE n * t END) AS used1, \
            SUM(CASE WHEN w IS NULL THEN 0.0 ELSE n * (1.0 - t) END) AS used0, \
-           COALESCE(MAX(w), 0.0) AS maxw, COALESCE(SUM(n * w), 0.0) AS sw, \
+           COALESCE(MAX(w), 0.0) AS maxw, \
            COALESCE(SUM(n * distance), 0.0) AS sdist, COALESCE(MAX(distance), 0.0) AS maxdist, \
            MAX(sdl) AS sdl, \
            MIN(CASE WHEN t = 1.0 THEN s END) / {GRID} AS lo1, MAX(CASE WHEN t = 1.0 THEN s END) / {GRID} AS hi1, \
@@ -317,7 +317,6 @@ pub(crate) struct MatchSums {
     pub used1: f64,
     pub used0: f64,
     pub maxw: f64,
-    pub sw: f64,
     pub sdist: f64,
     pub maxdist: f64,
     pub sdl: f64,
@@ -346,7 +345,6 @@ impl MatchLayout {
             used1: g("used1")?,
             used0: g("used0")?,
             maxw: g("maxw")?,
-            sw: g("sw")?,
             sdist: g("sdist")?,
             maxdist: g("maxdist")?,
             sdl: nan("sdl")?,
