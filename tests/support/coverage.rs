@@ -196,6 +196,7 @@ fn main() {
                 bins: vec![],
                 matching: Default::default(),
                 segments: vec!["tenure_band".into()],
+                segment_bins: None,
                 estimand: Estimand::Ate,
                 method: *method,
                 folds,

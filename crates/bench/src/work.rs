@@ -118,6 +118,7 @@ impl Work {
             } else {
                 vec![]
             },
+            segment_bins: None,
             estimand: upshot_methods::Estimand::Ate,
             method: self.method,
             folds: self.folds(),

@@ -34,6 +34,10 @@ pub struct Args {
     /// Segment columns for per-segment effects, comma-separated.
     #[arg(long = "segment-by", value_delimiter = ',')]
     segment_by: Vec<String>,
+    /// Cut numeric segment columns into this many bins at their quantiles, computed in the
+    /// database (2 to 100).
+    #[arg(long, allow_negative_numbers = true)]
+    bins: Option<i64>,
     /// Method key: auto, stratify, regress, weight, doubly-robust, partial-out, iv, front-door,
     /// match, coarsen.
     #[arg(long)]
@@ -153,6 +157,7 @@ fn request_of(a: &Args) -> Result<Request, Failure> {
         coarsen: a.coarsen.clone(),
         neighbours: a.neighbours,
         caliper: a.caliper,
+        bins: a.bins,
         ..request(a.study.as_deref(), a.graph.as_deref(), overrides(a))?
     })
 }

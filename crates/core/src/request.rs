@@ -5,7 +5,7 @@
 use crate::resolve::Settings;
 use crate::CoreError;
 use std::path::{Path, PathBuf};
-use upshot_methods::{Basis, Matching, NullPolicy, MAX_FOLDS, MAX_NEIGHBOURS};
+use upshot_methods::{Basis, Matching, NullPolicy, MAX_FOLDS, MAX_NEIGHBOURS, MAX_SEGMENT_BINS};
 pub use upshot_study::Spelling;
 use upshot_study::{looks_like_diagram, QuestionInput, Rows, Study};
 
@@ -60,6 +60,8 @@ pub struct Request {
     pub neighbours: i64,
     /// `match`: the caliper, in pooled standard deviations of the logit of the propensity.
     pub caliper: Option<f64>,
+    /// Quantile bins for numeric segment columns, as given (checked by the spec).
+    pub bins: Option<i64>,
 }
 
 impl Default for Request {
@@ -81,6 +83,7 @@ impl Default for Request {
             coarsen: vec![],
             neighbours: 1,
             caliper: None,
+            bins: None,
         }
     }
 }
@@ -244,7 +247,19 @@ impl Request {
                 self.neighbours
             ))
         })?;
+        let segment_bins = self
+            .bins
+            .map(|n| {
+                u32::try_from(n).map_err(|_| {
+                    CoreError::Input(format!(
+                        "{}: {n} bins; use 2 to {MAX_SEGMENT_BINS}",
+                        self.spelling.arg("bins")
+                    ))
+                })
+            })
+            .transpose()?;
         Ok(Settings {
+            segment_bins,
             matching: Matching {
                 neighbours,
                 caliper: self.caliper,

@@ -27,6 +27,8 @@ pub struct Settings {
     pub bins: Vec<(String, u32)>,
     /// `match`: neighbours per row and the caliper.
     pub matching: Matching,
+    /// Cut numeric segment columns into this many bins at quantiles computed in the database.
+    pub segment_bins: Option<u32>,
 }
 
 impl Default for Settings {
@@ -34,6 +36,7 @@ impl Default for Settings {
         Settings {
             bins: vec![],
             matching: Matching::default(),
+            segment_bins: None,
             min_cell: crate::request::DEFAULT_MIN_CELL,
             folds: 5,
             clip: 0.01,
@@ -168,6 +171,7 @@ fn resolve_one(
         bins: settings.bins.clone(),
         matching: settings.matching,
         segments: q.segments.clone(),
+        segment_bins: settings.segment_bins,
         estimand: q.estimand,
         method,
         folds: settings.folds,

@@ -11,7 +11,10 @@ pub(crate) fn segment(s: &Setup, values: &[KeyValue]) -> Segment {
             .segments
             .iter()
             .zip(values)
-            .map(|(c, v)| (c.clone(), v.to_string()))
+            .map(|(c, v)| match s.bins.iter().find(|b| b.alias == *c) {
+                Some(b) => (b.column.clone(), b.label(v)),
+                None => (c.clone(), v.to_string()),
+            })
             .collect(),
     }
 }

@@ -13,7 +13,7 @@
 //! its own, used by name: `prepare` (profile and levels passes, input checks, design terms),
 //! `outcome` (per-arm linear outcome models), `propensity` (logistic propensity fits, and the
 //! fits that leave one fold out), `models` (per-group models: by segment, by segment and
-//! fold), `crossfit` (folds, "all but fold k" sums), `read` (typed reading of pass results), `combine` (segments into the `all` row), `strata` (estimates over the strata of a cell table).
+//! fold), `crossfit` (folds, "all but fold k" sums), `read` (typed reading of pass results), `combine` (segments into the `all` row), `strata` (estimates over the strata of a cell table), `segment_bins` (numeric segment columns cut at quantiles computed in the database).
 //!
 //! Key design decision: an estimator is straight-line code over a `Runner` rather than an
 //! explicit state enum; the runner is the only place where a pass leaves the process, so
@@ -68,6 +68,7 @@ mod prepare;
 mod propensity;
 mod read;
 mod regress;
+mod segment_bins;
 mod strata;
 mod stratify;
 mod weight;
@@ -179,6 +180,9 @@ pub struct Spec {
     pub matching: Matching,
     /// Segment columns.
     pub segments: Vec<String>,
+    /// Cut the numeric segment columns into this many bins at quantiles computed in the
+    /// database (`None`: segment by their values).
+    pub segment_bins: Option<u32>,
     /// ATE, ATT or ATC.
     pub estimand: Estimand,
     /// Method (never `auto`: the core library resolves it first).
@@ -470,7 +474,18 @@ pub fn estimate(spec: &Spec, runner: &mut dyn Runner) -> Result<Outcome, MethodE
         inner: runner,
         n: 0,
     };
-    let setup = prepare::prepare(spec, &mut counted)?;
+    let cut = segment_bins::cut(spec, &mut counted)?;
+    let mut setup = prepare::prepare(cut.as_ref().map_or(spec, |c| &c.spec), &mut counted)?;
+    if let Some(c) = &cut {
+        setup.bins.clone_from(&c.bins);
+        setup.diagnostics.notes.extend(c.notes.iter().cloned());
+        // A NULL bin number is a NULL in the column it numbers.
+        for (name, _) in &mut setup.diagnostics.null_columns {
+            if let Some(b) = c.bins.iter().find(|b| b.alias == *name) {
+                name.clone_from(&b.column);
+            }
+        }
+    }
     let mut out = est.run(&setup, &mut counted)?;
     let mut diag = setup.diagnostics.clone();
     diag.rows_excluded_other
@@ -510,6 +525,7 @@ impl Runner for Counted<'_> {
 pub const MAX_FOLDS: u32 = 20;
 
 pub use matching::MAX_NEIGHBOURS;
+pub use segment_bins::MAX_SEGMENT_BINS;
 
 impl Spec {
     /// Checks the values a caller sets directly (plan and run alike): folds, clip, unit key.
@@ -541,7 +557,8 @@ impl Spec {
         }
         self.check_instruments()?;
         self.check_mediators()?;
-        self.check_matching()
+        self.check_matching()?;
+        segment_bins::check(self)
     }
 
     /// Neighbours and a caliper belong to `match`: 1 to [`MAX_NEIGHBOURS`] neighbours, a
@@ -699,6 +716,7 @@ pub(crate) mod tests {
             bins: vec![],
             matching: Matching::default(),
             segments: vec![],
+            segment_bins: None,
             estimand: Estimand::Ate,
             method,
             folds: 5,

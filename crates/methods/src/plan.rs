@@ -1,7 +1,7 @@
 //! `plan`: the passes a method would run, in order, without a database.
 
 use crate::prepare::{levels_pass, placeholder, profile_pass};
-use crate::{estimator, MethodError, Spec};
+use crate::{estimator, segment_bins, MethodError, Spec};
 use serde::Serialize;
 
 /// One pass of a plan.
@@ -25,7 +25,12 @@ pub struct PlannedPass {
 pub fn plan(spec: &Spec) -> Result<Vec<PlannedPass>, MethodError> {
     let est = estimator(spec.method)?;
     spec.check()?;
-    let s = placeholder(spec)?;
+    let cut = segment_bins::placeholder(spec);
+    let binned = cut.as_ref().map_or(spec, |c| &c.spec);
+    let mut s = placeholder(binned)?;
+    if let Some(c) = &cut {
+        s.bins.clone_from(&c.bins);
+    }
     let mut out = Vec::new();
     let planned = |p: upshot_sql::Pass, inlines: Option<&str>, repeats: Option<&str>| PlannedPass {
         sql: p.sql(),
@@ -34,8 +39,14 @@ pub fn plan(spec: &Spec) -> Result<Vec<PlannedPass>, MethodError> {
         inlines: inlines.map(str::to_string),
         repeats: repeats.map(str::to_string),
     };
-    out.push(planned(profile_pass(spec)?.pass, None, None));
-    if let Some(p) = levels_pass(spec, s.filter.as_ref())? {
+    for p in segment_bins::planned(spec)? {
+        out.push(planned(p, None, None));
+    }
+    let bins = cut
+        .as_ref()
+        .map(|_| "the cut points from the quantiles passes (shown as 1, 2, ...)");
+    out.push(planned(profile_pass(binned)?.pass, bins, None));
+    if let Some(p) = levels_pass(binned, s.filter.as_ref())? {
         out.push(planned(p.pass, None, None));
     }
     let centres = "centres and scales from the profile pass (shown as 0 and 1), category levels from the levels pass";
@@ -64,6 +75,10 @@ pub fn plan(spec: &Spec) -> Result<Vec<PlannedPass>, MethodError> {
                 Some(format!("{centres}; the fitted models' coefficients (shown as 0)")),
                 None,
             ),
+        };
+        let inlines = match (inlines, bins) {
+            (Some(i), Some(b)) => Some(format!("{i}; {b}")),
+            (i, b) => i.or(b.map(str::to_string)),
         };
         out.push(planned(p, inlines.as_deref(), repeats.as_deref()));
     }

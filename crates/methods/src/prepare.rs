@@ -53,6 +53,8 @@ pub(crate) struct Setup<'a> {
     pub instrument_names: Vec<String>,
     pub profiled: Vec<Profiled>,
     pub diagnostics: Diagnostics,
+    /// Segment columns read as bin numbers (`--bins`), for their labels.
+    pub bins: Vec<crate::segment_bins::SegmentBins>,
 }
 
 impl Setup<'_> {
@@ -619,6 +621,7 @@ pub(crate) fn prepare<'a>(spec: &'a Spec, r: &mut dyn Runner) -> Result<Setup<'a
             notes: no_unit_note(spec).into_iter().chain(notes).collect(),
             ..Diagnostics::default()
         },
+        bins: vec![],
     };
     if !matches!(spec.method, Method::Stratify | Method::Coarsen) {
         let (terms, names) = covariate_terms(spec, &profiled_cols, &coded)?;
@@ -986,5 +989,6 @@ pub(crate) fn placeholder<'a>(spec: &'a Spec) -> Result<Setup<'a>, MethodError> 
         instrument_names: instruments.1,
         profiled,
         diagnostics: Diagnostics::default(),
+        bins: vec![],
     })
 }

@@ -60,6 +60,7 @@ fn every_method_agrees_with_and_without_upshots_functions() {
             bins: vec![],
             matching: Default::default(),
             segments: vec!["tenure_band".into()],
+            segment_bins: None,
             estimand,
             method,
             folds: 3,

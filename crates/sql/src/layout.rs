@@ -375,3 +375,59 @@ impl NonFiniteLayout {
         })
     }
 }
+
+/// How to read the quantile pass ([`crate::passes::quantile_cuts`]).
+#[derive(Clone, Debug, PartialEq)]
+pub struct CutsLayout {
+    /// Bins asked for.
+    pub bins: u32,
+}
+
+/// What the quantile pass found.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Cuts {
+    /// Rows (0 when none).
+    pub rows: f64,
+    /// Distinct values.
+    pub distinct: f64,
+    /// Smallest value.
+    pub low: f64,
+    /// Largest value.
+    pub high: f64,
+    /// The `bins - 1` cut points, in order (equal ones repeat).
+    pub cuts: Vec<f64>,
+    /// The next larger value after the smallest, then after each cut (`None`: no larger one).
+    pub after: Vec<Option<f64>>,
+}
+
+impl CutsLayout {
+    /// The pass's one row; over no rows, zero rows and no cuts.
+    pub fn read(&self, a: &Aggregates) -> Result<Cuts, ResultError> {
+        let rows = a.number_or(0, "n", 0.0)?;
+        if rows == 0.0 {
+            return Ok(Cuts {
+                rows,
+                distinct: 0.0,
+                low: f64::NAN,
+                high: f64::NAN,
+                cuts: vec![],
+                after: vec![],
+            });
+        }
+        Ok(Cuts {
+            rows,
+            distinct: a.number(0, "distinct_values")?,
+            low: a.number(0, "lo")?,
+            high: a.number(0, "hi")?,
+            cuts: (1..self.bins)
+                .map(|i| a.number(0, &format!("cut{i}")))
+                .collect::<Result<_, _>>()?,
+            after: (0..self.bins)
+                .map(|i| match a.cell(0, &format!("after{i}"))? {
+                    Cell::Null => Ok(None),
+                    _ => a.number(0, &format!("after{i}")).map(Some),
+                })
+                .collect::<Result<_, _>>()?,
+        })
+    }
+}

@@ -43,19 +43,20 @@ pub use dialect::{
 pub use error::SqlError;
 pub use filter::FUNCTIONS as FILTER_FUNCTIONS;
 pub use layout::{
-    group_keys, Built, CellsLayout, GramLayout, LevelRow, LevelsLayout, LogisticLayout,
-    LogisticRow, NonFinite, NonFiniteLayout, ProfileColumn, ProfileLayout, ProfiledColumn,
-    ResidualLayout,
+    group_keys, Built, CellsLayout, Cuts, CutsLayout, GramLayout, LevelRow, LevelsLayout,
+    LogisticLayout, LogisticRow, NonFinite, NonFiniteLayout, ProfileColumn, ProfileLayout,
+    ProfiledColumn, ResidualLayout,
 };
 pub use passes::{
-    binned_cells, cells, gram, levels, logistic_fits, nonfinite, profile, residuals, schema_probe,
-    CellKey, Variants,
+    binned_cells, cells, gram, levels, logistic_fits, nonfinite, profile, quantile_cuts, residuals,
+    schema_probe, CellKey, Variants,
 };
 pub use results_table::{
     results_schema_file, results_sql, rows_table_sql, ResultsSql, RESULT_COLUMNS,
 };
 pub use source::{
-    complete_cases, is_parquet, is_parquet_pattern, parse_filter, Source, USER_SQL_DEPTH,
+    complete_cases, is_parquet, is_parquet_pattern, parse_filter, Binned, BinnedColumn, Source,
+    USER_SQL_DEPTH,
 };
 pub use sqlparser::ast::Expr;
 

@@ -10,10 +10,11 @@ use crate::design::{
 use crate::dialect::Flavor;
 use crate::error::SqlError;
 use crate::layout::{
-    Built, CellsLayout, GramLayout, LevelsLayout, LogisticLayout, NonFiniteLayout, ProfileColumn,
-    ProfileLayout, ResidualLayout,
+    Built, CellsLayout, CutsLayout, GramLayout, LevelsLayout, LogisticLayout, NonFiniteLayout,
+    ProfileColumn, ProfileLayout, ResidualLayout,
 };
 use crate::source::Source;
+use crate::template::Bind;
 use sqlparser::ast::Expr;
 
 /// The profile pass: row count, and per column non-NULL count, and for numeric columns
@@ -577,6 +578,62 @@ pub fn levels(
             by: by.len(),
             arm: arm.is_some(),
         },
+    })
+}
+
+/// The quantile cut points of numeric `column` over the rows `filter` keeps: for `i` in
+/// `1..bins`, `cut{i}` is the smallest value `v` with `count(x ≤ v) · bins ≥ i · count(x)` (the
+/// inverse of the empirical distribution function at `i / bins`: Hyndman & Fan's definition
+/// 1, and SQL's `percentile_disc`). It is computed in exact integer arithmetic from the
+/// cumulative counts of the distinct values, so every engine finds the same cuts; only the
+/// cuts leave the database. Also `n` (rows), `distinct_values`, `lo` and `hi` (minimum and
+/// maximum), and `after{i}`: the next larger value after cut `i` (after `lo` for `i = 0`;
+/// NULL for none), which tells a bin that holds a single value. Values are compared as 64-bit floats, as [`crate::Binned`] compares them.
+pub fn quantile_cuts(
+    flavor: &Flavor,
+    source: &Source,
+    filter: Option<&Expr>,
+    column: &str,
+    bins: u32,
+) -> Result<Built<CutsLayout>, SqlError> {
+    let mut t = PassText::new(flavor);
+    let x = t.float_column(column);
+    let k = t.bind(Bind::Integer(i64::from(bins)));
+    let mut items = vec![
+        "COUNT(*) AS distinct_values".to_string(),
+        "MIN(total) AS n".to_string(),
+        "MIN(v) AS lo".to_string(),
+        "MAX(v) AS hi".to_string(),
+    ];
+    for i in 0..bins {
+        let at = t.bind(Bind::Integer(i64::from(i)));
+        let reached = format!("below * {k} >= total * {at}");
+        if i > 0 {
+            items.push(format!("MIN(CASE WHEN {reached} THEN v END) AS cut{i}"));
+        }
+        // The value after the cut (after the smallest value for i = 0): `next_v` rises with
+        // `v`, so its minimum over the values at or past the cut is the cut's next value.
+        items.push(format!(
+            "MIN(CASE WHEN {reached} THEN next_v END) AS after{i}"
+        ));
+    }
+    t.sql = format!(
+        "WITH values_ AS (SELECT {x} AS v, COUNT(*) AS c FROM __src AS src WHERE __filter GROUP BY {x}), \
+         cumulative_ AS (SELECT v, SUM(c) OVER (ORDER BY v ROWS BETWEEN UNBOUNDED PRECEDING AND CURRENT ROW) AS below, \
+         SUM(c) OVER () AS total, LEAD(v) OVER (ORDER BY v) AS next_v FROM values_) \
+         SELECT {} FROM cumulative_",
+        items.join(", ")
+    );
+    Ok(Built {
+        pass: Pass {
+            name: "quantiles".into(),
+            purpose: format!(
+                "the cut points of segment column `{column}` at the quantiles 1/{bins} .. {}/{bins} of the rows used (from the cumulative counts of its distinct values)",
+                bins - 1
+            ),
+            query: t.query(source, filter)?,
+        },
+        layout: CutsLayout { bins },
     })
 }
 

@@ -2,9 +2,10 @@
 
 use crate::dialect::{Dialect, FileKind};
 use crate::error::SqlError;
+use crate::template::{self, Bind};
 use sqlparser::ast::{
-    Expr, FunctionArg, FunctionArgExpr, Ident, ObjectName, Query, SetExpr, Statement, TableAlias,
-    TableFactor, Value, Visit, Visitor,
+    Expr, FunctionArg, FunctionArgExpr, Ident, ObjectName, Query, SelectItem, SetExpr, Statement,
+    TableAlias, TableFactor, Value, Visit, Visitor,
 };
 use sqlparser::parser::Parser;
 use sqlparser::tokenizer::Token;
@@ -23,6 +24,31 @@ pub enum Source {
     /// A Parquet file (or a glob of them) read by the engine's Parquet reader; the path is a
     /// string literal.
     Parquet(String),
+    /// Another source with numeric columns cut into bins at given points: every column of the
+    /// inner source, and one bin number per [`BinnedColumn`] (built by upshot; never parsed).
+    Binned(Box<Binned>),
+}
+
+/// A source whose rows carry bin numbers of some of their columns.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Binned {
+    /// The rows.
+    pub inner: Source,
+    /// The columns cut into bins.
+    pub columns: Vec<BinnedColumn>,
+}
+
+/// A numeric column cut at increasing points into `cuts.len() + 1` bins: bin 1 holds values
+/// below the first cut, bin `i + 1` values from cut `i` up to (not including) cut `i + 1`, the
+/// last bin values from the last cut up. Compared as 64-bit floats; NULL stays NULL.
+#[derive(Clone, Debug, PartialEq)]
+pub struct BinnedColumn {
+    /// The column cut.
+    pub column: String,
+    /// The name of its bin number (an integer from 1).
+    pub alias: String,
+    /// The cut points, strictly increasing and finite.
+    pub cuts: Vec<f64>,
 }
 
 impl Source {
@@ -89,6 +115,7 @@ impl Source {
         match self {
             Source::Csv(_) => Some(FileKind::Csv),
             Source::Parquet(_) => Some(FileKind::Parquet),
+            Source::Binned(b) => b.inner.file_kind(),
             _ => None,
         }
     }
@@ -99,6 +126,9 @@ impl Source {
         d: &dyn Dialect,
         alias: Option<TableAlias>,
     ) -> Result<TableFactor, SqlError> {
+        if let Source::Binned(b) = self {
+            return b.relation(d, alias);
+        }
         let reader = match self.file_kind() {
             Some(kind) => Some(d.file_reader(kind).ok_or(SqlError::NoFileReader {
                 dialect: d.name(),
@@ -111,7 +141,9 @@ impl Source {
         };
         let text = match (self, reader) {
             (Source::Table(_), _) => "SELECT 1 FROM t AS src".to_string(),
-            (Source::Query(_), _) => "SELECT 1 FROM (SELECT 1) AS src".to_string(),
+            (Source::Query(_) | Source::Binned(_), _) => {
+                "SELECT 1 FROM (SELECT 1) AS src".to_string()
+            }
             (_, Some(f)) => format!("SELECT 1 FROM {f}('file') AS src"),
             (_, None) => unreachable!("a file source has a reader"),
         };
@@ -158,6 +190,58 @@ impl Source {
                 *a = alias;
             }
             _ => unreachable!("template matches the source kind"),
+        }
+        Ok(rel)
+    }
+}
+
+impl Binned {
+    /// `(SELECT src.*, CASE ... END AS "bin", ... FROM inner AS src) AS alias`.
+    fn relation(
+        &self,
+        d: &dyn Dialect,
+        alias: Option<TableAlias>,
+    ) -> Result<TableFactor, SqlError> {
+        let mut binds = Vec::new();
+        let mut bind = |b: Bind| {
+            binds.push(b);
+            format!("__{}", binds.len() - 1)
+        };
+        let mut items = vec!["src.*".to_string()];
+        for (i, c) in self.columns.iter().enumerate() {
+            let x = bind(Bind::Column(c.column.clone()));
+            let xf = format!("CAST({x} AS {})", d.float_type());
+            let mut case = format!("CASE WHEN {x} IS NULL THEN NULL");
+            for (j, cut) in c.cuts.iter().enumerate() {
+                if !cut.is_finite() || (j > 0 && *cut <= c.cuts[j - 1]) {
+                    return Err(SqlError::NonFinite {
+                        what: format!(
+                            "cut {} of `{}` (cuts must be finite and increasing)",
+                            j + 1,
+                            c.column
+                        ),
+                        value: *cut,
+                    });
+                }
+                let at = bind(Bind::Number(*cut));
+                let bin = bind(Bind::Integer(j as i64 + 1));
+                case.push_str(&format!(" WHEN {xf} < {at} THEN {bin}"));
+            }
+            let last = bind(Bind::Integer(c.cuts.len() as i64 + 1));
+            items.push(format!("{case} ELSE {last} END AS bin{i}"));
+        }
+        let text = format!("SELECT {} FROM __src AS src", items.join(", "));
+        let mut q = template::query(d, &text, &binds, &self.inner, None)?;
+        if let SetExpr::Select(s) = q.body.as_mut() {
+            for (item, c) in s.projection.iter_mut().skip(1).zip(&self.columns) {
+                if let SelectItem::ExprWithAlias { alias, .. } = item {
+                    *alias = Ident::with_quote(d.quote(), c.alias.clone());
+                }
+            }
+        }
+        let mut rel = Source::Query(Box::new(q)).relation(d, alias)?;
+        if let TableFactor::Derived { subquery, .. } = &mut rel {
+            template::fence(subquery, d);
         }
         Ok(rel)
     }

@@ -115,6 +115,21 @@ pub(crate) fn query(
     Ok(q)
 }
 
+/// Keeps a derived table of upshot's own a subquery where the dialect would pull it up
+/// ([`Dialect::fences_subqueries`]).
+pub(crate) fn fence(subquery: &mut Query, d: &dyn Dialect) {
+    if d.fences_subqueries() && subquery.limit_clause.is_none() {
+        subquery.limit_clause = Some(LimitClause::LimitOffset {
+            limit: None,
+            offset: Some(Offset {
+                value: Expr::value(Value::Number("0".into(), false)),
+                rows: OffsetRows::None,
+            }),
+            limit_by: vec![],
+        });
+    }
+}
+
 /// Replaces the relation `__src` anywhere in the query's FROM clauses (common table expressions
 /// included).
 fn place_source(q: &mut Query, source: &Source, d: &dyn Dialect) -> Result<(), SqlError> {
@@ -136,16 +151,7 @@ fn place_in_body(body: &mut SetExpr, source: &Source, d: &dyn Dialect) -> Result
                         twj.relation = source.relation(d, alias)?;
                     }
                     TableFactor::Derived { subquery, .. } => {
-                        if d.fences_subqueries() && subquery.limit_clause.is_none() {
-                            subquery.limit_clause = Some(LimitClause::LimitOffset {
-                                limit: None,
-                                offset: Some(Offset {
-                                    value: Expr::value(Value::Number("0".into(), false)),
-                                    rows: OffsetRows::None,
-                                }),
-                                limit_by: vec![],
-                            });
-                        }
+                        fence(subquery, d);
                         place_source(subquery, source, d)?
                     }
                     _ => {}
