@@ -2011,3 +2011,187 @@ fn match_estimates_and_writes_one_row_per_matched_unit() {
         &["--neighbours", "match"],
     );
 }
+
+/// `--bins`: numeric segment columns cut at quantiles computed in the database. Each bin's
+/// label names its range, and its rows are exactly the rows in that range (counted here with
+/// SQL over the same table); small bins are suppressed, in the output and in the results
+/// table; `match` writes the bin number into its per-row table; a covariate cut into bins keeps
+/// at least two of its values per bin; bad requests exit 2.
+#[test]
+fn bins_cut_numeric_segments_at_quantiles_computed_in_the_database() {
+    let db = scratch("bins");
+    let db = db.to_str().unwrap();
+    let base = [
+        "--graph",
+        GRAPH,
+        "--db",
+        db,
+        "--source",
+        "customers",
+        "--treatment",
+        "voucher",
+        "--outcome",
+        "spend_30d",
+        "--segment-by",
+        "prior_orders",
+    ];
+    let run = |extra: &[&str]| json(&[&["run"], base.as_slice(), extra].concat());
+    // The bounds of a label `[a, b)` or `[a, b]`, and whether the upper one is included.
+    let range = |label: &str| -> (f64, f64, bool) {
+        let inner = &label[1..label.len() - 1];
+        let (a, b) = inner.split_once(", ").unwrap();
+        (a.parse().unwrap(), b.parse().unwrap(), label.ends_with(']'))
+    };
+    let v = run(&["--method", "stratify", "--bins", "4", "--min-cell", "0"]);
+    let rows = v["estimates"].as_array().unwrap();
+    assert_eq!(rows.len(), 5, "{v}");
+    let mut total = 0.0;
+    let mut last_high = None;
+    for e in &rows[1..] {
+        let label = e["segment_values"]["prior_orders"].as_str().unwrap();
+        let (a, b, closed) = range(label);
+        if let Some(h) = last_high {
+            assert_eq!(a, h, "bins meet: {label}");
+        }
+        last_high = Some(b);
+        let n = query(
+            db,
+            &format!(
+                "SELECT COUNT(*) FROM customers WHERE prior_orders >= {a} AND prior_orders {} {b}",
+                if closed { "<=" } else { "<" }
+            ),
+        );
+        let used = e["n_used"].as_f64().unwrap();
+        // Stratify drops strata lacking an arm: never more rows than the range holds.
+        assert!(used <= n && used > 0.0, "{label}: {used} of {n}");
+        total += n;
+    }
+    assert_eq!(total, query(db, "SELECT COUNT(*) FROM customers"));
+    // The first and last edges are the column's minimum and maximum.
+    let first = range(rows[1]["segment_values"]["prior_orders"].as_str().unwrap());
+    assert_eq!(
+        first.0,
+        query(db, "SELECT MIN(prior_orders) FROM customers")
+    );
+    assert_eq!(
+        last_high.unwrap(),
+        query(db, "SELECT MAX(prior_orders) FROM customers")
+    );
+    let notes = v["questions"][0]["diagnostics"]["notes"].to_string();
+    assert!(
+        notes.contains("segment `prior_orders` cut into 4 bins"),
+        "{notes}"
+    );
+    // Regress models prior_orders (a confounder): its bins keep two values each.
+    let v = run(&["--method", "regress", "--bins", "4"]);
+    for e in &v["estimates"].as_array().unwrap()[1..] {
+        let (a, b, closed) = range(e["segment_values"]["prior_orders"].as_str().unwrap());
+        let values = query(
+            db,
+            &format!(
+                "SELECT COUNT(DISTINCT prior_orders) FROM customers WHERE prior_orders >= {a} AND prior_orders {} {b}",
+                if closed { "<=" } else { "<" }
+            ),
+        );
+        assert!(values >= 2.0, "{e}");
+    }
+    let notes = v["questions"][0]["diagnostics"]["notes"].to_string();
+    assert!(notes.contains("were merged"), "{notes}");
+    // Small bins are suppressed, also in the results table, which names the bins by range.
+    let args = [
+        "--method",
+        "stratify",
+        "--bins",
+        "8",
+        "--min-cell",
+        "150",
+        "--into",
+        "effects",
+    ];
+    let v = run(&args);
+    let hidden = v["estimates"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .filter(|e| e["suppressed"] == "<150")
+        .count();
+    assert!(hidden >= 1, "{v}");
+    assert_eq!(
+        query(db, "SELECT COUNT(*) FROM effects WHERE segment LIKE 'prior_orders=[%' AND estimate IS NULL"),
+        hidden as f64
+    );
+    // match: the per-row table holds each row's bin number; per bin its mean difference is
+    // the bin's estimate.
+    let v = run(&[
+        "--method",
+        "match",
+        "--estimand",
+        "ATT",
+        "--unit",
+        "customer_id",
+        "--bins",
+        "3",
+        "--rows-into",
+        "matched",
+    ]);
+    for (i, e) in v["estimates"].as_array().unwrap()[1..].iter().enumerate() {
+        let mean = query(
+            db,
+            &format!(
+                "SELECT AVG(difference) FROM matched WHERE prior_orders_bin = {}",
+                i + 1
+            ),
+        );
+        let est = e["estimate"].as_f64().unwrap();
+        assert!((mean - est).abs() <= 1e-9 * est.abs(), "{e}: {mean}");
+    }
+    // plan: the quantile pass comes first.
+    let plan = json(
+        &[
+            &["plan"],
+            base.as_slice(),
+            &["--method", "weight", "--bins", "4"],
+        ]
+        .concat(),
+    );
+    assert_eq!(plan["questions"][0]["passes"][0]["name"], "quantiles");
+    // Bad requests.
+    let bad = |extra: &[&str], needles: &[&str]| {
+        fails(&[&["run"], base.as_slice(), extra].concat(), 2, needles)
+    };
+    bad(&["--bins", "1"], &["--bins: 1 bins; use 2 to 100"]);
+    bad(&["--bins", "101"], &["use 2 to 100"]);
+    bad(&["--bins", "-2"], &["--bins: -2 bins"]);
+    let mut zone = base.to_vec();
+    zone[11] = "zone";
+    fails(
+        &[&["run"], zone.as_slice(), &["--bins", "4"]].concat(),
+        2,
+        &["--bins cuts numeric segment columns", "`zone`"],
+    );
+    fails(
+        &[&["run"], &base[..10], &["--bins", "4"]].concat(),
+        2,
+        &["name the segment columns too"],
+    );
+    let mut clash = base.to_vec();
+    clash[5] = "SELECT *, 1 AS prior_orders_bin FROM customers";
+    fails(
+        &[&["run"], clash.as_slice(), &["--bins", "4"]].concat(),
+        2,
+        &["`prior_orders_bin`", "rename that column"],
+    );
+    let mut nan = base.to_vec();
+    nan[1] = "nan_x -> voucher -> spend_30d";
+    nan[5] = "extreme";
+    nan[11] = "nan_x";
+    fails(
+        &[&["run"], nan.as_slice(), &["--bins", "4"]].concat(),
+        2,
+        &["segment column `nan_x` holds NaN or infinite values"],
+    );
+    assert_eq!(
+        query(db, "SELECT COUNT(*) FROM information_schema.tables WHERE table_name NOT IN ('customers', 'extreme', 'new_untreated', 'effects', 'matched')"),
+        0.0
+    );
+}
