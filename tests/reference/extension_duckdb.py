@@ -121,11 +121,13 @@ COMBOS = [
                               "min_cell": 700}),
     ("voucher", "spend_30d", {"method": "match", "estimand": "ATT", "neighbours": 3, "caliper": 0.2,
                               "segments": "tenure_band"}),
+    ("voucher", "spend_30d", {"method": "regress", "segments": "prior_orders", "bins": 4, "min_cell": 30}),
+    ("voucher", "spend_30d", {"method": "match", "segments": "household_size", "bins": 3}),
 ]
 FLAG = {"segments": "--segment-by", "estimand": "--estimand", "method": "--method", "adjust": "--adjust",
         "unit": "--unit", "folds": "--folds", "filter": "--filter", "instruments": "--instruments",
         "mediators": "--mediators", "min_cell": "--min-cell", "neighbours": "--neighbours",
-        "caliper": "--caliper"}
+        "caliper": "--caliper", "bins": "--bins"}
 for t, y, named in COMBOS:
     flags, params = [], []
     for k, v in named.items():

@@ -129,8 +129,9 @@ impl Rows for Identify {
     }
 }
 
-const ESTIMATION: [(&str, Type); 11] = [
+const ESTIMATION: [(&str, Type); 12] = [
     ("folds", Type::Bigint),
+    ("bins", Type::Bigint),
     ("neighbours", Type::Bigint),
     ("caliper", Type::Double),
     ("coarsen", Type::Text),
@@ -163,6 +164,7 @@ fn estimation(mut r: Request, args: &Args) -> Result<Request, String> {
         r.neighbours = k as i64;
     }
     r.caliper = number("caliper")?;
+    r.bins = number("bins")?.map(|n| n as i64);
     if let Some(k) = number("min_cell")? {
         r.min_cell = k as i64;
     }
