@@ -233,6 +233,51 @@ fn matching_with_rows(engine: &str, locator: &str, table: &str) -> Value {
     got
 }
 
+/// `--bins`: questions segmented by a numeric column cut at quantiles the engine computes
+/// give DuckDB's bins (the same ranges, as segment labels) and estimates.
+fn bins_agree(engine: &str, locator: &str) {
+    let f = fixture();
+    let study = f.study.to_str().unwrap();
+    let mut worst: f64 = 0.0;
+    let mut rows = 0;
+    for (question, column, bins) in [
+        ("regress-ATE", "prior_orders", "4"),
+        ("weight-ATT", "household_size", "3"),
+        ("match-ATE", "prior_orders", "4"),
+        ("stratify-ATE", "prior_orders", "5"),
+    ] {
+        let extra = [
+            "--question",
+            question,
+            "--segment-by",
+            column,
+            "--bins",
+            bins,
+            "--format",
+            "json",
+        ];
+        let duckdb = ok(
+            &run(&[&["run", study], extra.as_slice()].concat(), &[]),
+            "DuckDB",
+        );
+        let got = ok(
+            &run(
+                &[
+                    &["run", study, "--db", locator, "--source", "customers"],
+                    extra.as_slice(),
+                ]
+                .concat(),
+                &[],
+            ),
+            engine,
+        );
+        // `agree` compares the segment labels, which name each bin's range.
+        worst = worst.max(agree(engine, &duckdb, &got));
+        rows += got["estimates"].as_array().unwrap().len();
+    }
+    eprintln!("{engine}: {rows} estimates over quantile bins agree with DuckDB's (worst relative gap {worst:.1e})");
+}
+
 /// The `all` row's estimate of a `matching_with_rows` answer.
 fn all_estimate(v: &Value) -> f64 {
     v["estimates"]
@@ -311,6 +356,14 @@ fn postgres_match_writes_its_rows_and_agrees() {
         (mean - est).abs() <= TOLERANCE * est.abs(),
         "{mean} vs {est}"
     );
+}
+
+#[test]
+fn postgres_bins_agree() {
+    let Some((locator, _pg)) = postgres() else {
+        return;
+    };
+    bins_agree("PostgreSQL", &locator);
 }
 
 #[test]
@@ -567,6 +620,14 @@ fn spark_match_writes_its_rows_and_agrees() {
         (mean - est).abs() <= TOLERANCE * est.abs(),
         "{mean} vs {est}"
     );
+}
+
+#[test]
+fn spark_bins_agree() {
+    let Some((locator, _spark)) = spark() else {
+        return;
+    };
+    bins_agree("Spark", &locator);
 }
 
 #[test]

@@ -93,7 +93,7 @@ pub(crate) fn check(spec: &Spec) -> Result<(), MethodError> {
     let cut = candidates(spec);
     if cut.is_empty() {
         return Err(MethodError::Input(format!(
-            "--bins cuts numeric segment columns, and none of {} is one (text, boolean and categorical columns are segmented by their values); drop --bins, or segment by a numeric column",
+            "--bins cuts numeric segment columns, and the segment columns here ({}) are text, boolean or categorical, which are segmented by their values; drop --bins, or segment by a numeric column",
             spec.segments
                 .iter()
                 .map(|c| format!("`{c}`"))
