@@ -21,7 +21,9 @@ mod moments;
 mod ols;
 
 pub use iv::{chi2_upper, two_stage, FirstStage, IvColumns, OverId, Robust, TwoStage};
-pub use logit::{logit, logit_many, logit_sums_from_rows, Logit, LogitSums, NewtonOptions};
+pub use logit::{
+    logit, logit_many, logit_many_from, logit_sums_from_rows, Logit, LogitSums, NewtonOptions,
+};
 pub use moments::Moments;
 pub use ols::{ols, residual_moments_from_rows, Ols};
 

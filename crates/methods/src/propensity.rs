@@ -9,8 +9,10 @@ use crate::models::{fold_models, per_segment};
 use crate::prepare::{needs_folds, Setup};
 use crate::read::{by_segment, logit_sums, row_of};
 use crate::{ask, MethodError, Runner};
-use upshot_fit::{logit_many, FitError, Logit, LogitSums, NewtonOptions};
-use upshot_sql::{logistic_fits, Aggregates, Built, KeyValue, LogisticLayout, Models, Variants};
+use upshot_fit::{logit_many, logit_many_from, FitError, Logit, LogitSums, NewtonOptions};
+use upshot_sql::{
+    logistic_fits, Aggregates, Built, First, KeyValue, LogisticLayout, Models, Source, Variants,
+};
 
 pub(crate) fn param_names(s: &Setup) -> Vec<String> {
     let mut names = vec!["(intercept)".to_string()];
@@ -57,38 +59,181 @@ pub(crate) fn propensity_error(label: &str, e: FitError) -> MethodError {
     ))
 }
 
-/// Fits one propensity model per segment; returns the segments, the treated counts and fits.
-pub(crate) fn fit_propensity(
-    s: &Setup,
-    r: &mut dyn Runner,
-) -> Result<(Vec<Vec<KeyValue>>, Vec<Logit>), MethodError> {
-    let nseg = s.spec.segments.len();
-    let k = s.terms.len() + 1;
-    let start = logistic_pass(s, &Models::single(vec![0.0; k]))?;
-    let layout = start.layout;
-    let first = ask(r, &start)?;
-    let segs: Vec<Vec<KeyValue>> = by_segment(&first, nseg)?.into_iter().map(|x| x.0).collect();
-    // At zero coefficients p = 1/2, so the intercept's score is n₁ − n/2.
-    for (row, key) in segs.iter().enumerate() {
-        let at_zero = layout.fit(&first, row, None)?;
-        let n1 = at_zero.score[0] + at_zero.n / 2.0;
-        check_arms(s, key, n1.round(), (at_zero.n - n1).round())?;
+/// Rows the warm start fits on: the first rows the engine reads (see [`warm_start`]).
+const WARM_ROWS: u64 = 100_000;
+
+/// From how many rows on a warm start pays: below, its sample is a large share of the rows.
+const WARM_MIN_ROWS: f64 = 4.0 * WARM_ROWS as f64;
+
+/// How closely a warm start fits its sample: well inside the sample's own noise
+/// (`1/√100,000 ≈ 3e-3`), so that the fit over all rows starts where Newton converges
+/// quadratically.
+const WARM_TOLERANCE: f64 = 1e-4;
+
+/// Most passes of a warm start's Newton iterations (over its sample); one that has not
+/// settled by then starts its segment from zero instead.
+const WARM_ITERATIONS: usize = 25;
+
+/// Propensity coefficients per segment fitted on the first rows, to start the fits on all
+/// rows from: Newton converges quadratically, so from the sample's fit (off by about one
+/// standard error of the sample, `1/√100,000`) two or three passes over all rows reach the
+/// maximum that five to eight reach from zero. The result does not depend on the start: the
+/// same convergence test ends the fit on all rows.
+pub(crate) struct Warm {
+    segs: Vec<Vec<KeyValue>>,
+    coefs: Vec<Option<Vec<f64>>>,
+}
+
+impl Warm {
+    /// The start of segment `key`: its sample fit, or `None` where the sample had no rows of
+    /// it or its fit did not settle.
+    fn start(&self, key: &[KeyValue]) -> Option<&Vec<f64>> {
+        self.segs
+            .iter()
+            .position(|k| k.as_slice() == key)
+            .and_then(|i| self.coefs[i].as_ref())
     }
-    let names = param_names(s);
-    let mut cached = Some(first);
-    let fits = logit_many(
-        &names,
+    /// Each segment's start, zero where the sample gives none.
+    fn starts(&self, segs: &[Vec<KeyValue>], k: usize) -> Vec<Vec<f64>> {
+        segs.iter()
+            .map(|key| self.start(key).cloned().unwrap_or_else(|| vec![0.0; k]))
+            .collect()
+    }
+}
+
+/// The warm start, where it pays: on an engine whose small queries are cheap, over more than
+/// [`WARM_MIN_ROWS`] rows. Its passes read the first [`WARM_ROWS`] rows that pass the filter.
+pub(crate) fn warm_start(s: &Setup, r: &mut dyn Runner) -> Result<Option<Warm>, MethodError> {
+    let spec = s.spec;
+    if !spec.flavor.dialect.small_queries_are_cheap() || s.diagnostics.rows_read <= WARM_MIN_ROWS {
+        return Ok(None);
+    }
+    let sample = Source::First(Box::new(First {
+        inner: spec.source.clone(),
+        filter: s.filter.clone(),
+        rows: WARM_ROWS,
+    }));
+    let pass = |models: &Models| -> Result<Built<LogisticLayout>, MethodError> {
+        let mut p = logistic_fits(
+            &spec.flavor,
+            &sample,
+            None,
+            &segment_row_design(s),
+            models,
+            Variants::Single,
+        )?;
+        p.pass.name = "warm-start".into();
+        p.pass.purpose = format!(
+            "one Newton step of the propensity model over the first {WARM_ROWS} rows, to start the fit over all rows from"
+        );
+        Ok(p)
+    };
+    let k = s.terms.len() + 1;
+    let first = pass(&Models::single(vec![0.0; k]))?;
+    let layout = first.layout.clone();
+    // A warm start only saves passes: where its pass fails, the fit starts from zero.
+    let Ok(a) = ask(r, &first) else {
+        return Ok(None);
+    };
+    let segs: Vec<Vec<KeyValue>> = by_segment(&a, s.spec.segments.len())?
+        .into_iter()
+        .map(|x| x.0)
+        .collect();
+    if segs.is_empty() {
+        return Ok(None);
+    }
+    let mut cached = Some(a);
+    let Ok(fits) = logit_many(
+        &param_names(s),
         segs.len(),
         |coefs| {
-            let a: Aggregates = match cached.take() {
-                Some(a) if coefs.iter().all(|c| c.iter().all(|x| *x == 0.0)) => a,
-                _ => ask(r, &logistic_pass(s, &per_segment(&segs, coefs))?.pass)?,
+            let a = match cached.take() {
+                Some(a) => a,
+                None => ask(r, &pass(&per_segment(&segs, coefs))?.pass)?,
             };
             (0..segs.len())
                 .map(|row| logit_sums(&layout, &a, row, None))
                 .collect::<Result<Vec<LogitSums>, MethodError>>()
         },
-        NewtonOptions::default(),
+        NewtonOptions {
+            max_iterations: WARM_ITERATIONS,
+            // The sample's own noise is about 1/√WARM_ROWS; closer is not worth a pass.
+            tolerance: WARM_TOLERANCE,
+            ..NewtonOptions::default()
+        },
+    ) else {
+        return Ok(None);
+    };
+    Ok(Some(Warm {
+        segs,
+        coefs: fits.into_iter().map(|f| f.ok().map(|l| l.coef)).collect(),
+    }))
+}
+
+/// How far a propensity fit is taken.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub(crate) enum Finish {
+    /// Until the error after the last step is within the tolerance, predicted from Newton's
+    /// quadratic convergence (`NewtonOptions::confirm` off): for estimates that are smooth in
+    /// the coefficients.
+    Predicted,
+    /// Until a step below the tolerance, and one more pass at its end: for estimates that
+    /// compare propensities (matching on a grid of logits), which must not depend on the path
+    /// the fit took — from zero, or from a warm start, on any engine.
+    Confirmed,
+}
+
+/// Fits one propensity model per segment; returns the segments, the treated counts and fits.
+pub(crate) fn fit_propensity(
+    s: &Setup,
+    r: &mut dyn Runner,
+    finish: Finish,
+) -> Result<(Vec<Vec<KeyValue>>, Vec<Logit>), MethodError> {
+    let nseg = s.spec.segments.len();
+    let k = s.terms.len() + 1;
+    let warm = warm_start(s, r)?;
+    let zero = Models::single(vec![0.0; k]);
+    let mut first = match &warm {
+        Some(w) => ask(
+            r,
+            &logistic_pass(s, &per_segment(&w.segs, &w.starts(&w.segs, k)))?.pass,
+        )?,
+        None => ask(r, &logistic_pass(s, &zero)?.pass)?,
+    };
+    let layout = logistic_pass(s, &zero)?.layout;
+    let segs: Vec<Vec<KeyValue>> = by_segment(&first, nseg)?.into_iter().map(|x| x.0).collect();
+    // A segment the sample lacked had no model in that pass (its sums are void): from zero.
+    let starts = match &warm {
+        Some(w) if segs.iter().all(|key| w.segs.contains(key)) => w.starts(&segs, k),
+        Some(_) => {
+            first = ask(r, &logistic_pass(s, &zero)?.pass)?;
+            vec![vec![0.0; k]; segs.len()]
+        }
+        None => vec![vec![0.0; k]; segs.len()],
+    };
+    for (row, key) in segs.iter().enumerate() {
+        let n = layout.fit(&first, row, None)?.n;
+        let n1 = layout.treated(&first, row)?;
+        check_arms(s, key, n1.round(), (n - n1).round())?;
+    }
+    let names = param_names(s);
+    let mut cached = Some(first);
+    let fits = logit_many_from(
+        &names,
+        starts,
+        |coefs| {
+            let a: Aggregates = match cached.take() {
+                Some(a) => a,
+                None => ask(r, &logistic_pass(s, &per_segment(&segs, coefs))?.pass)?,
+            };
+            (0..segs.len())
+                .map(|row| logit_sums(&layout, &a, row, None))
+                .collect::<Result<Vec<LogitSums>, MethodError>>()
+        },
+        NewtonOptions {
+            confirm: finish == Finish::Confirmed,
+            ..NewtonOptions::default()
+        },
     )?;
     let mut out = Vec::new();
     for (key, f) in segs.iter().zip(fits) {
@@ -228,10 +373,14 @@ fn shared_curvature_complements(
     let k = folds(s) as usize;
     // Each segment's model on all its rows, by Newton, with the sums grouped by fold.
     let names = param_names(s);
+    let starts = match warm_start(s, r)? {
+        Some(w) => w.starts(segs, kp),
+        None => vec![vec![0.0; kp]; segs.len()],
+    };
     let mut last: Option<(Aggregates, LogisticLayout)> = None;
-    let full = logit_many(
+    let full = logit_many_from(
         &names,
-        segs.len(),
+        starts,
         |coefs| {
             let pass = by_fold_pass(s, &per_segment(segs, coefs))?;
             let a = ask(r, &pass)?;

@@ -89,6 +89,13 @@ pub trait Dialect: Sync {
     fn fences_subqueries(&self) -> bool {
         false
     }
+    /// Whether a query over a few thousand rows costs little next to a scan of the table, so
+    /// that fitting on the first rows first (a warm start) saves passes over all of them. Not
+    /// where every query pays a fixed cost of about a second (Spark Connect: planning and
+    /// scheduling), which a handful of small passes would add up to.
+    fn small_queries_are_cheap(&self) -> bool {
+        true
+    }
     /// Whether the results table is partitioned by `run_id` and a run's rows replace its
     /// partition (`INSERT OVERWRITE`, Spark: no `DELETE` on a plain managed table), instead of
     /// a `DELETE` and an `INSERT` in one transaction.
@@ -245,6 +252,9 @@ impl Dialect for Postgres {
 pub struct Spark;
 
 impl Dialect for Spark {
+    fn small_queries_are_cheap(&self) -> bool {
+        false
+    }
     fn name(&self) -> &'static str {
         "spark"
     }

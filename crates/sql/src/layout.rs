@@ -140,6 +140,10 @@ impl LogisticLayout {
     pub fn keys(&self, a: &Aggregates, row: usize) -> Result<Vec<KeyValue>, ResultError> {
         group_keys(a, row, self.keys)
     }
+    /// The row's treated rows (`Σ t`).
+    pub fn treated(&self, a: &Aggregates, row: usize) -> Result<f64, ResultError> {
+        a.number(row, "n1")
+    }
     /// The row's fold (fold-grouped passes).
     pub fn fold(&self, a: &Aggregates, row: usize) -> Result<usize, ResultError> {
         Ok(a.number(row, "f")? as usize)

@@ -55,8 +55,8 @@ pub use results_table::{
     results_schema_file, results_sql, rows_table_sql, ResultsSql, RESULT_COLUMNS,
 };
 pub use source::{
-    complete_cases, is_parquet, is_parquet_pattern, parse_filter, Binned, BinnedColumn, Source,
-    USER_SQL_DEPTH,
+    complete_cases, is_parquet, is_parquet_pattern, parse_filter, Binned, BinnedColumn, First,
+    Source, USER_SQL_DEPTH,
 };
 pub use sqlparser::ast::Expr;
 

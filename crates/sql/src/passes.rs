@@ -363,7 +363,7 @@ pub fn logistic_fits(
         );
         keys.push("f".into());
     }
-    let mut outs = vec![Out::plain("COUNT(*)", "n")];
+    let mut outs = vec![Out::plain("COUNT(*)", "n"), Out::plain("SUM(t)", "n1")];
     let mut etas = Vec::new();
     let list: Vec<(String, Option<u32>)> = match variants.complement() {
         None => {

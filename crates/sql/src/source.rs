@@ -27,6 +27,21 @@ pub enum Source {
     /// Another source with numeric columns cut into bins at given points: every column of the
     /// inner source, and one bin number per [`BinnedColumn`] (built by upshot; never parsed).
     Binned(Box<Binned>),
+    /// The first rows of another source that pass a filter (built by upshot; never parsed).
+    First(Box<First>),
+}
+
+/// The first `rows` rows of `inner` that pass `filter`, in whatever order the engine reads
+/// them. Not a random sample: a table stored in some order gives rows of that order. For warm
+/// starts only, whose results seed passes over all rows and never reach an estimate.
+#[derive(Clone, Debug, PartialEq)]
+pub struct First {
+    /// The rows.
+    pub inner: Source,
+    /// The filter the rows pass (applied before the limit).
+    pub filter: Option<Expr>,
+    /// How many.
+    pub rows: u64,
 }
 
 /// A source whose rows carry bin numbers of some of their columns.
@@ -116,6 +131,7 @@ impl Source {
             Source::Csv(_) => Some(FileKind::Csv),
             Source::Parquet(_) => Some(FileKind::Parquet),
             Source::Binned(b) => b.inner.file_kind(),
+            Source::First(f) => f.inner.file_kind(),
             _ => None,
         }
     }
@@ -126,8 +142,14 @@ impl Source {
         d: &dyn Dialect,
         alias: Option<TableAlias>,
     ) -> Result<TableFactor, SqlError> {
-        if let Source::Binned(b) = self {
-            return b.relation(d, alias);
+        match self {
+            Source::Binned(b) => return b.relation(d, alias),
+            Source::First(f) => {
+                let text = format!("SELECT * FROM __src AS src WHERE __filter LIMIT {}", f.rows);
+                let q = template::query(d, &text, &[], &f.inner, f.filter.as_ref())?;
+                return Source::Query(Box::new(q)).relation(d, alias);
+            }
+            _ => {}
         }
         let reader = match self.file_kind() {
             Some(kind) => Some(d.file_reader(kind).ok_or(SqlError::NoFileReader {
@@ -141,7 +163,7 @@ impl Source {
         };
         let text = match (self, reader) {
             (Source::Table(_), _) => "SELECT 1 FROM t AS src".to_string(),
-            (Source::Query(_) | Source::Binned(_), _) => {
+            (Source::Query(_) | Source::Binned(_) | Source::First(_), _) => {
                 "SELECT 1 FROM (SELECT 1) AS src".to_string()
             }
             (_, Some(f)) => format!("SELECT 1 FROM {f}('file') AS src"),

@@ -21,26 +21,15 @@ FROM
         SELECT
           *,
           CASE
-            WHEN eta >= 0 THEN
-              1.0 / (1.0 + EXP(-eta))
-            ELSE
-              EXP(eta) / (1.0 + EXP(eta))
-          END AS e_raw,
-          CASE
-            WHEN (CASE WHEN eta >= 0 THEN 1.0 / (1.0 + EXP(-eta)) ELSE EXP(eta) / (1.0 + EXP(eta)) END) < 0.01 THEN
+            WHEN e_raw < 0.01 THEN
               0.01
-            WHEN (CASE WHEN eta >= 0 THEN 1.0 / (1.0 + EXP(-eta)) ELSE EXP(eta) / (1.0 + EXP(eta)) END) > 0.99 THEN
+            WHEN e_raw > 0.99 THEN
               0.99
             ELSE
-              CASE
-                WHEN eta >= 0 THEN
-                  1.0 / (1.0 + EXP(-eta))
-                ELSE
-                  EXP(eta) / (1.0 + EXP(eta))
-              END
+              e_raw
           END AS e,
           CASE
-            WHEN (CASE WHEN eta >= 0 THEN 1.0 / (1.0 + EXP(-eta)) ELSE EXP(eta) / (1.0 + EXP(eta)) END) < 0.01 OR (CASE WHEN eta >= 0 THEN 1.0 / (1.0 + EXP(-eta)) ELSE EXP(eta) / (1.0 + EXP(eta)) END) > 0.99 THEN
+            WHEN e_raw < 0.01 OR e_raw > 0.99 THEN
               0.0
             ELSE
               1.0
@@ -82,36 +71,47 @@ FROM
             SELECT
               *,
               CASE
-                WHEN k0 = 'new' THEN
-                  CASE
-                    WHEN f = 0 THEN
-                      upshot_linear([0.0, 0.5, -0.25], v0, v1)
-                    WHEN f = 1 THEN
-                      upshot_linear([1.0, 0.5, -0.25], v0, v1)
-                  END
-                WHEN k0 = '1y' THEN
-                  CASE
-                    WHEN f = 0 THEN
-                      upshot_linear([0.0, 0.5, -0.25], v0, v1)
-                    WHEN f = 1 THEN
-                      upshot_linear([1.0, 0.5, -0.25], v0, v1)
-                  END
-              END AS eta
+                WHEN eta >= 0 THEN
+                  1.0 / (1.0 + EXP(-eta))
+                ELSE
+                  EXP(eta) / (1.0 + EXP(eta))
+              END AS e_raw
             FROM
               (
                 SELECT
-                  "tenure_band" AS k0,
-                  ((((((((CAST("customer_id" % 2147483647 AS BIGINT) + 2147483647) % 2147483647) * 48271 + 11) % 2147483647) * ((((CAST("customer_id" % 2147483647 AS BIGINT) + 2147483647) % 2147483647) * 48271 + 11) % 2147483647)) % 2147483647) * 16807 + ((((CAST("customer_id" % 2147483647 AS BIGINT) + 2147483647) % 2147483647) * 48271 + 11) % 2147483647)) % 2147483647) % 2 AS f,
-                  (CAST("prior orders" AS DOUBLE) - 2.5) / 1.5 AS v0,
-                  (((CAST("prior orders" AS DOUBLE) - 2.5) / 1.5) * ((CAST("prior orders" AS DOUBLE) - 2.5) / 1.5) - 1.0) / 1.0 AS v1,
-                  CAST("voucher" AS DOUBLE) AS t,
-                  CAST("spend_30d" AS DOUBLE) AS y
+                  *,
+                  CASE
+                    WHEN k0 = 'new' THEN
+                      CASE
+                        WHEN f = 0 THEN
+                          upshot_linear([0.0, 0.5, -0.25], v0, v1)
+                        WHEN f = 1 THEN
+                          upshot_linear([1.0, 0.5, -0.25], v0, v1)
+                      END
+                    WHEN k0 = '1y' THEN
+                      CASE
+                        WHEN f = 0 THEN
+                          upshot_linear([0.0, 0.5, -0.25], v0, v1)
+                        WHEN f = 1 THEN
+                          upshot_linear([1.0, 0.5, -0.25], v0, v1)
+                      END
+                  END AS eta
                 FROM
-                  "customers" AS src
-                WHERE
-                  true AND "tenure_band" IS NOT NULL AND "prior orders" IS NOT NULL AND "voucher" IS NOT NULL AND "spend_30d" IS NOT NULL AND "customer_id" IS NOT NULL
-              ) AS rows_
-          ) AS linear_
+                  (
+                    SELECT
+                      "tenure_band" AS k0,
+                      ((((((((CAST("customer_id" % 2147483647 AS BIGINT) + 2147483647) % 2147483647) * 48271 + 11) % 2147483647) * ((((CAST("customer_id" % 2147483647 AS BIGINT) + 2147483647) % 2147483647) * 48271 + 11) % 2147483647)) % 2147483647) * 16807 + ((((CAST("customer_id" % 2147483647 AS BIGINT) + 2147483647) % 2147483647) * 48271 + 11) % 2147483647)) % 2147483647) % 2 AS f,
+                      (CAST("prior orders" AS DOUBLE) - 2.5) / 1.5 AS v0,
+                      (((CAST("prior orders" AS DOUBLE) - 2.5) / 1.5) * ((CAST("prior orders" AS DOUBLE) - 2.5) / 1.5) - 1.0) / 1.0 AS v1,
+                      CAST("voucher" AS DOUBLE) AS t,
+                      CAST("spend_30d" AS DOUBLE) AS y
+                    FROM
+                      "customers" AS src
+                    WHERE
+                      true AND "tenure_band" IS NOT NULL AND "prior orders" IS NOT NULL AND "voucher" IS NOT NULL AND "spend_30d" IS NOT NULL AND "customer_id" IS NOT NULL
+                  ) AS rows_
+              ) AS linear_
+          ) AS raw_
       ) AS nuisance_
   ) AS scores_
 GROUP BY

@@ -16,36 +16,42 @@ SELECT
   clipped0,
   min_e,
   max_e,
-  d1_0,
-  d1y_0,
-  d0_0,
-  d0y_0,
-  c1_0,
-  c1y_0,
-  c0_0,
-  c0y_0,
-  d1_1,
-  d1y_1,
-  d0_1,
-  d0y_1,
-  c1_1,
-  c1y_1,
-  c0_1,
-  c0y_1,
-  d1_2,
-  d1y_2,
-  d0_2,
-  d0y_2,
-  c1_2,
-  c1y_2,
-  c0_2,
-  c0y_2,
-  list_extract(moments0, 1) AS s0_0,
-  list_extract(moments0, 2) AS s0_1,
-  list_extract(moments0, 3) AS s0_2,
-  list_extract(moments0, 4) AS s1_1,
-  list_extract(moments0, 5) AS s1_2,
-  list_extract(moments0, 6) AS s2_2
+  list_extract(moments0, 4) AS d1_0,
+  list_extract(moments0, 5) AS d1y_0,
+  list_extract(moments0, 6) AS d0_0,
+  list_extract(moments0, 7) AS d0y_0,
+  list_extract(moments0, 8) AS c1_0,
+  list_extract(moments0, 9) AS c1y_0,
+  list_extract(moments0, 10) AS c0_0,
+  list_extract(moments0, 11) AS c0y_0,
+  list_extract(moments0, 14) AS d1_1,
+  list_extract(moments0, 15) AS d1y_1,
+  list_extract(moments0, 16) AS d0_1,
+  list_extract(moments0, 17) AS d0y_1,
+  list_extract(moments0, 18) AS c1_1,
+  list_extract(moments0, 19) AS c1y_1,
+  list_extract(moments0, 20) AS c0_1,
+  list_extract(moments0, 21) AS c0y_1,
+  list_extract(moments0, 23) AS d1_2,
+  list_extract(moments0, 24) AS d1y_2,
+  list_extract(moments0, 25) AS d0_2,
+  list_extract(moments0, 26) AS d0y_2,
+  list_extract(moments0, 27) AS c1_2,
+  list_extract(moments0, 28) AS c1y_2,
+  list_extract(moments0, 29) AS c0_2,
+  list_extract(moments0, 30) AS c0y_2,
+  list_extract(moments1, 1) AS s0_0,
+  list_extract(moments1, 2) AS s0_1,
+  list_extract(moments1, 3) AS s0_2,
+  list_extract(moments1, 4) AS s1_1,
+  list_extract(moments1, 5) AS s1_2,
+  list_extract(moments1, 6) AS s2_2,
+  list_extract(moments2, 1) AS h0_0,
+  list_extract(moments2, 2) AS h0_1,
+  list_extract(moments2, 3) AS h0_2,
+  list_extract(moments2, 4) AS h1_1,
+  list_extract(moments2, 5) AS h1_2,
+  list_extract(moments2, 6) AS h2_2
 FROM
   (
     SELECT
@@ -66,31 +72,9 @@ FROM
       SUM((1.0 - t) * (1.0 - inside)) AS clipped0,
       MIN(e_raw) AS min_e,
       MAX(e_raw) AS max_e,
-      SUM(t * w1d) AS d1_0,
-      SUM(t * w1d * y) AS d1y_0,
-      SUM((1.0 - t) * w0d) AS d0_0,
-      SUM((1.0 - t) * w0d * y) AS d0y_0,
-      SUM(t * w1 * (1.0 - e_raw)) AS c1_0,
-      SUM(t * w1 * (1.0 - e_raw) * y) AS c1y_0,
-      SUM((1.0 - t) * w0 * e_raw) AS c0_0,
-      SUM((1.0 - t) * w0 * e_raw * y) AS c0y_0,
-      SUM(t * w1d * v0) AS d1_1,
-      SUM(t * w1d * y * v0) AS d1y_1,
-      SUM((1.0 - t) * w0d * v0) AS d0_1,
-      SUM((1.0 - t) * w0d * y * v0) AS d0y_1,
-      SUM(t * w1 * (1.0 - e_raw) * v0) AS c1_1,
-      SUM(t * w1 * (1.0 - e_raw) * y * v0) AS c1y_1,
-      SUM((1.0 - t) * w0 * e_raw * v0) AS c0_1,
-      SUM((1.0 - t) * w0 * e_raw * y * v0) AS c0y_1,
-      SUM(t * w1d * v1) AS d1_2,
-      SUM(t * w1d * y * v1) AS d1y_2,
-      SUM((1.0 - t) * w0d * v1) AS d0_2,
-      SUM((1.0 - t) * w0d * y * v1) AS d0y_2,
-      SUM(t * w1 * (1.0 - e_raw) * v1) AS c1_2,
-      SUM(t * w1 * (1.0 - e_raw) * y * v1) AS c1y_2,
-      SUM((1.0 - t) * w0 * e_raw * v1) AS c0_2,
-      SUM((1.0 - t) * w0 * e_raw * y * v1) AS c0y_2,
-      upshot_moments((t - e_raw) * (t - e_raw), v0, v1) AS moments0
+      upshot_moments(1.0, v0, v1, t * w1d, t * w1d * y, (1.0 - t) * w0d, (1.0 - t) * w0d * y, t * w1 * (1.0 - e_raw), t * w1 * (1.0 - e_raw) * y, (1.0 - t) * w0 * e_raw, (1.0 - t) * w0 * e_raw * y) AS moments0,
+      upshot_moments((t - e_raw) * (t - e_raw), v0, v1) AS moments1,
+      upshot_moments(e_raw * (1.0 - e_raw), v0, v1) AS moments2
     FROM
       (
         SELECT
@@ -104,26 +88,15 @@ FROM
             SELECT
               *,
               CASE
-                WHEN eta >= 0 THEN
-                  1.0 / (1.0 + EXP(-eta))
-                ELSE
-                  EXP(eta) / (1.0 + EXP(eta))
-              END AS e_raw,
-              CASE
-                WHEN (CASE WHEN eta >= 0 THEN 1.0 / (1.0 + EXP(-eta)) ELSE EXP(eta) / (1.0 + EXP(eta)) END) < 0.01 THEN
+                WHEN e_raw < 0.01 THEN
                   0.01
-                WHEN (CASE WHEN eta >= 0 THEN 1.0 / (1.0 + EXP(-eta)) ELSE EXP(eta) / (1.0 + EXP(eta)) END) > 0.99 THEN
+                WHEN e_raw > 0.99 THEN
                   0.99
                 ELSE
-                  CASE
-                    WHEN eta >= 0 THEN
-                      1.0 / (1.0 + EXP(-eta))
-                    ELSE
-                      EXP(eta) / (1.0 + EXP(eta))
-                  END
+                  e_raw
               END AS e,
               CASE
-                WHEN (CASE WHEN eta >= 0 THEN 1.0 / (1.0 + EXP(-eta)) ELSE EXP(eta) / (1.0 + EXP(eta)) END) < 0.01 OR (CASE WHEN eta >= 0 THEN 1.0 / (1.0 + EXP(-eta)) ELSE EXP(eta) / (1.0 + EXP(eta)) END) > 0.99 THEN
+                WHEN e_raw < 0.01 OR e_raw > 0.99 THEN
                   0.0
                 ELSE
                   1.0
@@ -132,21 +105,32 @@ FROM
               (
                 SELECT
                   *,
-                  upshot_linear([0.1, 0.2, 0.3], v0, v1) AS eta
+                  CASE
+                    WHEN eta >= 0 THEN
+                      1.0 / (1.0 + EXP(-eta))
+                    ELSE
+                      EXP(eta) / (1.0 + EXP(eta))
+                  END AS e_raw
                 FROM
                   (
                     SELECT
-                      "tenure_band" AS k0,
-                      (CAST("prior orders" AS DOUBLE) - 2.5) / 1.5 AS v0,
-                      (((CAST("prior orders" AS DOUBLE) - 2.5) / 1.5) * ((CAST("prior orders" AS DOUBLE) - 2.5) / 1.5) - 1.0) / 1.0 AS v1,
-                      CAST("voucher" AS DOUBLE) AS t,
-                      CAST("spend_30d" AS DOUBLE) AS y
+                      *,
+                      upshot_linear([0.1, 0.2, 0.3], v0, v1) AS eta
                     FROM
-                      "customers" AS src
-                    WHERE
-                      true AND "tenure_band" IS NOT NULL AND "prior orders" IS NOT NULL AND "voucher" IS NOT NULL AND "spend_30d" IS NOT NULL
-                  ) AS rows_
-              ) AS linear_
+                      (
+                        SELECT
+                          "tenure_band" AS k0,
+                          (CAST("prior orders" AS DOUBLE) - 2.5) / 1.5 AS v0,
+                          (((CAST("prior orders" AS DOUBLE) - 2.5) / 1.5) * ((CAST("prior orders" AS DOUBLE) - 2.5) / 1.5) - 1.0) / 1.0 AS v1,
+                          CAST("voucher" AS DOUBLE) AS t,
+                          CAST("spend_30d" AS DOUBLE) AS y
+                        FROM
+                          "customers" AS src
+                        WHERE
+                          true AND "tenure_band" IS NOT NULL AND "prior orders" IS NOT NULL AND "voucher" IS NOT NULL AND "spend_30d" IS NOT NULL
+                      ) AS rows_
+                  ) AS linear_
+              ) AS raw_
           ) AS propensity_
       ) AS weighted_
     GROUP BY

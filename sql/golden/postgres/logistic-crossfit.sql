@@ -2,6 +2,7 @@ SELECT
   k0,
   f,
   COUNT(*) AS n,
+  SUM(t) AS n1,
   SUM((t - p0)) AS m0_u0,
   SUM((t - p0) * v0) AS m0_u1,
   SUM((t - p0) * v1) AS m0_u2,

@@ -45,7 +45,13 @@ SELECT
   SUM((t - e_raw) * (t - e_raw) * v1) AS s0_2,
   SUM((t - e_raw) * (t - e_raw) * v0 * v0) AS s1_1,
   SUM((t - e_raw) * (t - e_raw) * v0 * v1) AS s1_2,
-  SUM((t - e_raw) * (t - e_raw) * v1 * v1) AS s2_2
+  SUM((t - e_raw) * (t - e_raw) * v1 * v1) AS s2_2,
+  SUM(e_raw * (1.0 - e_raw)) AS h0_0,
+  SUM(e_raw * (1.0 - e_raw) * v0) AS h0_1,
+  SUM(e_raw * (1.0 - e_raw) * v1) AS h0_2,
+  SUM(e_raw * (1.0 - e_raw) * v0 * v0) AS h1_1,
+  SUM(e_raw * (1.0 - e_raw) * v0 * v1) AS h1_2,
+  SUM(e_raw * (1.0 - e_raw) * v1 * v1) AS h2_2
 FROM
   (
     SELECT
@@ -59,26 +65,15 @@ FROM
         SELECT
           *,
           CASE
-            WHEN eta >= 0 THEN
-              1.0 / (1.0 + EXP(-eta))
-            ELSE
-              EXP(eta) / (1.0 + EXP(eta))
-          END AS e_raw,
-          CASE
-            WHEN (CASE WHEN eta >= 0 THEN 1.0 / (1.0 + EXP(-eta)) ELSE EXP(eta) / (1.0 + EXP(eta)) END) < 0.01 THEN
+            WHEN e_raw < 0.01 THEN
               0.01
-            WHEN (CASE WHEN eta >= 0 THEN 1.0 / (1.0 + EXP(-eta)) ELSE EXP(eta) / (1.0 + EXP(eta)) END) > 0.99 THEN
+            WHEN e_raw > 0.99 THEN
               0.99
             ELSE
-              CASE
-                WHEN eta >= 0 THEN
-                  1.0 / (1.0 + EXP(-eta))
-                ELSE
-                  EXP(eta) / (1.0 + EXP(eta))
-              END
+              e_raw
           END AS e,
           CASE
-            WHEN (CASE WHEN eta >= 0 THEN 1.0 / (1.0 + EXP(-eta)) ELSE EXP(eta) / (1.0 + EXP(eta)) END) < 0.01 OR (CASE WHEN eta >= 0 THEN 1.0 / (1.0 + EXP(-eta)) ELSE EXP(eta) / (1.0 + EXP(eta)) END) > 0.99 THEN
+            WHEN e_raw < 0.01 OR e_raw > 0.99 THEN
               0.0
             ELSE
               1.0
@@ -87,21 +82,32 @@ FROM
           (
             SELECT
               *,
-              0.1 + 0.2 * v0 + 0.3 * v1 AS eta
+              CASE
+                WHEN eta >= 0 THEN
+                  1.0 / (1.0 + EXP(-eta))
+                ELSE
+                  EXP(eta) / (1.0 + EXP(eta))
+              END AS e_raw
             FROM
               (
                 SELECT
-                  "tenure_band" AS k0,
-                  (CAST("prior orders" AS DOUBLE PRECISION) - 2.5) / 1.5 AS v0,
-                  (((CAST("prior orders" AS DOUBLE PRECISION) - 2.5) / 1.5) * ((CAST("prior orders" AS DOUBLE PRECISION) - 2.5) / 1.5) - 1.0) / 1.0 AS v1,
-                  CAST("voucher" AS DOUBLE PRECISION) AS t,
-                  CAST("spend_30d" AS DOUBLE PRECISION) AS y
+                  *,
+                  0.1 + 0.2 * v0 + 0.3 * v1 AS eta
                 FROM
-                  "customers" AS src
-                WHERE
-                  true AND "tenure_band" IS NOT NULL AND "prior orders" IS NOT NULL AND "voucher" IS NOT NULL AND "spend_30d" IS NOT NULL OFFSET 0
-              ) AS rows_ OFFSET 0
-          ) AS linear_ OFFSET 0
+                  (
+                    SELECT
+                      "tenure_band" AS k0,
+                      (CAST("prior orders" AS DOUBLE PRECISION) - 2.5) / 1.5 AS v0,
+                      (((CAST("prior orders" AS DOUBLE PRECISION) - 2.5) / 1.5) * ((CAST("prior orders" AS DOUBLE PRECISION) - 2.5) / 1.5) - 1.0) / 1.0 AS v1,
+                      CAST("voucher" AS DOUBLE PRECISION) AS t,
+                      CAST("spend_30d" AS DOUBLE PRECISION) AS y
+                    FROM
+                      "customers" AS src
+                    WHERE
+                      true AND "tenure_band" IS NOT NULL AND "prior orders" IS NOT NULL AND "voucher" IS NOT NULL AND "spend_30d" IS NOT NULL OFFSET 0
+                  ) AS rows_ OFFSET 0
+              ) AS linear_ OFFSET 0
+          ) AS raw_ OFFSET 0
       ) AS propensity_ OFFSET 0
   ) AS weighted_
 GROUP BY

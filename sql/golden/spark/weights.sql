@@ -45,7 +45,13 @@ SELECT
   SUM((t - e_raw) * (t - e_raw) * v1) AS s0_2,
   SUM((t - e_raw) * (t - e_raw) * v0 * v0) AS s1_1,
   SUM((t - e_raw) * (t - e_raw) * v0 * v1) AS s1_2,
-  SUM((t - e_raw) * (t - e_raw) * v1 * v1) AS s2_2
+  SUM((t - e_raw) * (t - e_raw) * v1 * v1) AS s2_2,
+  SUM(e_raw * (1.0 - e_raw)) AS h0_0,
+  SUM(e_raw * (1.0 - e_raw) * v0) AS h0_1,
+  SUM(e_raw * (1.0 - e_raw) * v1) AS h0_2,
+  SUM(e_raw * (1.0 - e_raw) * v0 * v0) AS h1_1,
+  SUM(e_raw * (1.0 - e_raw) * v0 * v1) AS h1_2,
+  SUM(e_raw * (1.0 - e_raw) * v1 * v1) AS h2_2
 FROM
   (
     SELECT
@@ -59,26 +65,15 @@ FROM
         SELECT
           *,
           CASE
-            WHEN eta >= 0 THEN
-              1.0 / (1.0 + EXP(-eta))
-            ELSE
-              EXP(eta) / (1.0 + EXP(eta))
-          END AS e_raw,
-          CASE
-            WHEN (CASE WHEN eta >= 0 THEN 1.0 / (1.0 + EXP(-eta)) ELSE EXP(eta) / (1.0 + EXP(eta)) END) < 0.01E0 THEN
+            WHEN e_raw < 0.01E0 THEN
               0.01E0
-            WHEN (CASE WHEN eta >= 0 THEN 1.0 / (1.0 + EXP(-eta)) ELSE EXP(eta) / (1.0 + EXP(eta)) END) > 0.99E0 THEN
+            WHEN e_raw > 0.99E0 THEN
               0.99E0
             ELSE
-              CASE
-                WHEN eta >= 0 THEN
-                  1.0 / (1.0 + EXP(-eta))
-                ELSE
-                  EXP(eta) / (1.0 + EXP(eta))
-              END
+              e_raw
           END AS e,
           CASE
-            WHEN (CASE WHEN eta >= 0 THEN 1.0 / (1.0 + EXP(-eta)) ELSE EXP(eta) / (1.0 + EXP(eta)) END) < 0.01E0 OR (CASE WHEN eta >= 0 THEN 1.0 / (1.0 + EXP(-eta)) ELSE EXP(eta) / (1.0 + EXP(eta)) END) > 0.99E0 THEN
+            WHEN e_raw < 0.01E0 OR e_raw > 0.99E0 THEN
               0.0
             ELSE
               1.0
@@ -87,21 +82,32 @@ FROM
           (
             SELECT
               *,
-              0.1E0 + 0.2E0 * v0 + 0.3E0 * v1 AS eta
+              CASE
+                WHEN eta >= 0 THEN
+                  1.0 / (1.0 + EXP(-eta))
+                ELSE
+                  EXP(eta) / (1.0 + EXP(eta))
+              END AS e_raw
             FROM
               (
                 SELECT
-                  `tenure_band` AS k0,
-                  (CAST(`prior orders` AS DOUBLE) - 2.5E0) / 1.5E0 AS v0,
-                  (((CAST(`prior orders` AS DOUBLE) - 2.5E0) / 1.5E0) * ((CAST(`prior orders` AS DOUBLE) - 2.5E0) / 1.5E0) - 1.0E0) / 1.0E0 AS v1,
-                  CAST(`voucher` AS DOUBLE) AS t,
-                  CAST(`spend_30d` AS DOUBLE) AS y
+                  *,
+                  0.1E0 + 0.2E0 * v0 + 0.3E0 * v1 AS eta
                 FROM
-                  `customers` AS src
-                WHERE
-                  true AND `tenure_band` IS NOT NULL AND `prior orders` IS NOT NULL AND `voucher` IS NOT NULL AND `spend_30d` IS NOT NULL
-              ) AS rows_
-          ) AS linear_
+                  (
+                    SELECT
+                      `tenure_band` AS k0,
+                      (CAST(`prior orders` AS DOUBLE) - 2.5E0) / 1.5E0 AS v0,
+                      (((CAST(`prior orders` AS DOUBLE) - 2.5E0) / 1.5E0) * ((CAST(`prior orders` AS DOUBLE) - 2.5E0) / 1.5E0) - 1.0E0) / 1.0E0 AS v1,
+                      CAST(`voucher` AS DOUBLE) AS t,
+                      CAST(`spend_30d` AS DOUBLE) AS y
+                    FROM
+                      `customers` AS src
+                    WHERE
+                      true AND `tenure_band` IS NOT NULL AND `prior orders` IS NOT NULL AND `voucher` IS NOT NULL AND `spend_30d` IS NOT NULL
+                  ) AS rows_
+              ) AS linear_
+          ) AS raw_
       ) AS propensity_
   ) AS weighted_
 GROUP BY

@@ -40,7 +40,7 @@ pub(crate) fn augmented_sums(
     let mut t = PassText::new(flavor);
     let rows = design.rows(&mut t)?;
     let k = design.terms.len();
-    let (eta, e) = propensity_columns(&mut t, propensity, k, clip)?;
+    let propensity = propensity_columns(&mut t, propensity, k, clip)?;
     let m1 = predictor(&mut t, treated, k)?;
     let m0 = predictor(&mut t, control, k)?;
     let (num, den) = match target {
@@ -69,7 +69,8 @@ pub(crate) fn augmented_sums(
         outs.push(Out::plain(e, alias));
     }
     let from = format!(
-        "(SELECT *, {num} AS num, {den} AS den FROM (SELECT *, {e}, {m1} AS m1, {m0} AS m0 FROM (SELECT *, {eta} FROM ({rows}) AS rows_) AS linear_) AS nuisance_) AS scores_"
+        "(SELECT *, {num} AS num, {den} AS den FROM {}) AS scores_",
+        propensity.over(&rows, &format!(", {m1} AS m1, {m0} AS m0"), "nuisance_")
     );
     t.sql = t.aggregate(k, &design.key_names(), &outs, &from);
     Ok(Built {

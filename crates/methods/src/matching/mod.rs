@@ -25,7 +25,7 @@ use crate::combine::{finish, segment, segment_label, Part};
 use crate::crossfit::segment_row_design;
 use crate::models::{per_segment, placeholder_segments};
 use crate::prepare::Setup;
-use crate::propensity::{fit_propensity, logistic_pass};
+use crate::propensity::{fit_propensity, logistic_pass, Finish};
 use crate::read::row_of;
 use crate::{ask, Estimand, Estimate, MethodError, Outcome, Runner};
 use passes::{matching_sums, per_row, MatchLayout, MatchSums, Shape};
@@ -123,7 +123,7 @@ fn targets_word(t: Estimand) -> &'static str {
 
 pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError> {
     let spec = s.spec;
-    let (segs, fits) = fit_propensity(s, r)?;
+    let (segs, fits) = fit_propensity(s, r, Finish::Confirmed)?;
     let coefs: Vec<Vec<f64>> = fits.iter().map(|f| f.coef.clone()).collect();
     let models = per_segment(&segs, &coefs);
     let mp = match_pass(s, &models)?;

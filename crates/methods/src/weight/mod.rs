@@ -14,7 +14,7 @@ use crate::combine::{finish, segment_label, Part};
 use crate::crossfit::segment_row_design;
 use crate::models::{per_segment, placeholder_segments};
 use crate::prepare::Setup;
-use crate::propensity::{clipping, fit_propensity, logistic_pass};
+use crate::propensity::{clipping, fit_propensity, logistic_pass, Finish};
 use crate::read::{row_of, symmetric};
 use crate::{ask, MethodError, Outcome, Runner};
 use nalgebra::DVector;
@@ -49,7 +49,7 @@ const HEAVY_TAIL: f64 = 0.5;
 
 pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError> {
     let k = s.terms.len() + 1;
-    let (segs, fits) = fit_propensity(s, r)?;
+    let (segs, fits) = fit_propensity(s, r, Finish::Predicted)?;
     let coefs: Vec<Vec<f64>> = fits.iter().map(|f| f.coef.clone()).collect();
     let wp = weights_pass(s, &per_segment(&segs, &coefs))?;
     let w = ask(r, &wp)?;
@@ -59,7 +59,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
         rows: None,
     };
     let mut parts = Vec::new();
-    for (key, fit) in segs.iter().zip(&fits) {
+    for key in &segs {
         let row = row_of(&w, key)?;
         let ws = wp.layout.read(&w, row)?;
         let (n, n1) = (ws.n, ws.n1);
@@ -71,9 +71,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
         let (c1, c1y, c0, c0y) = (v(&ws.c1), v(&ws.c1y), v(&ws.c0), v(&ws.c0y));
         let ss = symmetric(&ws.s, k);
         let gvec: DVector<f64> = (&d1y - &d1 * mu1) / a1 - (&d0y - &d0 * mu0) / a0;
-        let h = fit
-            .information
-            .clone()
+        let h = symmetric(&ws.h, k)
             .cholesky()
             .map(|c| c.solve(&gvec))
             .ok_or_else(|| {

@@ -1,6 +1,6 @@
 //! The weighting pass of `weight`.
 
-use upshot_sql::design::{factor, products_of, propensity_columns, Out, PassText};
+use upshot_sql::design::{products_of, propensity_columns, Out, PassText};
 use upshot_sql::{Aggregates, Built, Design, Expr, Flavor, Models, ResultError, Source, SqlError};
 use upshot_study::Estimand;
 
@@ -22,7 +22,7 @@ pub(crate) fn weighting_sums(
     let mut t = PassText::new(flavor);
     let rows = design.rows(&mut t)?;
     let k = design.terms.len();
-    let (eta, e) = propensity_columns(&mut t, propensity, k, clip)?;
+    let propensity = propensity_columns(&mut t, propensity, k, clip)?;
     // Weights of each arm and the derivative factor dw/deta = w'(e) e (1 - e), zero where clipped.
     let (w1, w1d, w0, w0d) = match target {
         Estimand::Ate => (
@@ -66,19 +66,21 @@ pub(crate) fn weighting_sums(
         ("c0_", "(1.0 - t) * w0 * e_raw"),
         ("c0y_", "(1.0 - t) * w0 * e_raw * y"),
     ];
-    for i in 0..=k {
-        let w = factor(i);
-        for (alias, summand) in linear {
-            outs.push(Out::plain(
-                format!("SUM({summand}{w})"),
-                format!("{alias}{i}"),
-            ));
-        }
-    }
+    outs.push(Out::Cross(
+        linear
+            .iter()
+            .map(|(alias, summand)| (alias.to_string(), summand.to_string()))
+            .collect(),
+    ));
     let score2 = "(t - e_raw) * (t - e_raw)";
     outs.push(Out::Products(products_of(score2, "s", k)));
+    // The logistic information at these coefficients: the propensity fit ends on a step
+    // without evaluating its final coefficients (`NewtonOptions::confirm`), and its variance
+    // term needs the information there.
+    outs.push(Out::Products(products_of("e_raw * (1.0 - e_raw)", "h", k)));
     let from = format!(
-        "(SELECT *, {w1} AS w1, {w1d} AS w1d, {w0} AS w0, {w0d} AS w0d FROM (SELECT *, {e} FROM (SELECT *, {eta} FROM ({rows}) AS rows_) AS linear_) AS propensity_) AS weighted_"
+        "(SELECT *, {w1} AS w1, {w1d} AS w1d, {w0} AS w0, {w0d} AS w0d FROM {}) AS weighted_",
+        propensity.over(&rows, "", "propensity_")
     );
     t.sql = t.aggregate(k, &design.key_names(), &outs, &from);
     Ok(Built {
@@ -126,6 +128,8 @@ pub(crate) struct WeightingSums {
     pub c0y: Vec<f64>,
     /// The score's outer product `Σ (t − e)² w_i w_j`, `i ≤ j`, row by row.
     pub s: Vec<f64>,
+    /// The logistic information `Σ e (1 − e) w_i w_j`, `i ≤ j`, row by row.
+    pub h: Vec<f64>,
 }
 
 /// The layout of the weighting pass.
@@ -143,10 +147,11 @@ impl WeightingLayout {
                 .map(|i| a.number_or(row, &format!("{prefix}{i}"), 0.0))
                 .collect()
         };
-        let mut s = Vec::new();
+        let (mut s, mut h) = (Vec::new(), Vec::new());
         for i in 0..self.width {
             for j in i..self.width {
                 s.push(g(&format!("s{i}_{j}"))?);
+                h.push(g(&format!("h{i}_{j}"))?);
             }
         }
         Ok(WeightingSums {
@@ -175,6 +180,7 @@ impl WeightingLayout {
             c0: v("c0_")?,
             c0y: v("c0y_")?,
             s,
+            h,
         })
     }
 }
