@@ -130,7 +130,7 @@ pub(crate) fn warm_start(s: &Setup, r: &mut dyn Runner) -> Result<Option<Warm>, 
     };
     let k = s.terms.len() + 1;
     let first = pass(&Models::single(vec![0.0; k]))?;
-    let layout = first.layout.clone();
+    let layout = first.layout;
     // A warm start only saves passes: where its pass fails, the fit starts from zero.
     let Ok(a) = ask(r, &first) else {
         return Ok(None);
