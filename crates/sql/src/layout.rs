@@ -102,6 +102,10 @@ impl ResidualLayout {
     pub fn meat(&self, a: &Aggregates, row: usize) -> Result<Vec<f64>, ResultError> {
         upper(a, row, "r", self.width)
     }
+    /// The pooled model's `Σ e² w_i w_j` over the row's group ([`crate::passes::residuals_and_pooled`]).
+    pub fn pooled_meat(&self, a: &Aggregates, row: usize) -> Result<Vec<f64>, ResultError> {
+        upper(a, row, "q", self.width)
+    }
 }
 
 /// One logistic fit's sums in a result row.

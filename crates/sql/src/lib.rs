@@ -49,7 +49,7 @@ pub use layout::{
 };
 pub use passes::{
     binned_cells, cells, gram, levels, logistic_fits, nonfinite, profile, quantile_cuts, residuals,
-    schema_probe, CellKey, Variants,
+    residuals_and_pooled, schema_probe, CellKey, Variants,
 };
 pub use results_table::{
     results_schema_file, results_sql, rows_table_sql, ResultsSql, RESULT_COLUMNS,

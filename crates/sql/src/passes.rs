@@ -479,15 +479,36 @@ pub fn residuals(
     design: &Design,
     models: &Models,
 ) -> Result<Built<ResidualLayout>, SqlError> {
+    residuals_and_pooled(flavor, source, filter, design, models, None)
+}
+
+/// [`residuals`], and with `pooled` also the moments of the residuals of that one model over
+/// the same groups (`q{i}_{j}`; [`ResidualLayout::pooled_meat`]), whose sum over the groups is
+/// the pooled model's meat: the `all` row of a method fitted per segment, in the same pass.
+pub fn residuals_and_pooled(
+    flavor: &Flavor,
+    source: &Source,
+    filter: Option<&Expr>,
+    design: &Design,
+    models: &Models,
+    pooled: Option<&Models>,
+) -> Result<Built<ResidualLayout>, SqlError> {
     let mut t = PassText::new(flavor);
     let rows = design.rows(&mut t)?;
     let k = design.terms.len();
     let fitted = predictor(&mut t, models, k)?;
-    let outs = [
+    let mut outs = vec![
         Out::plain("COUNT(*)", "n"),
         Out::Products(products_of("e * e", "r", k)),
     ];
-    let from = format!("(SELECT *, y - ({fitted}) AS e FROM ({rows}) AS rows_) AS residuals_");
+    let mut more = String::new();
+    if let Some(p) = pooled {
+        let fitted = predictor(&mut t, p, k)?;
+        more = format!(", y - ({fitted}) AS e_pooled");
+        outs.push(Out::Products(products_of("e_pooled * e_pooled", "q", k)));
+    }
+    let from =
+        format!("(SELECT *, y - ({fitted}) AS e{more} FROM ({rows}) AS rows_) AS residuals_");
     t.sql = t.aggregate(k, &design.key_names(), &outs, &from);
     Ok(Built {
         pass: Pass {

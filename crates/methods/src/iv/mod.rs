@@ -16,7 +16,9 @@ use crate::{
     ask, Estimate, InstrumentCoefficient, InstrumentReport, MethodError, Outcome, Runner, TestStat,
 };
 use upshot_fit::{two_stage, FitError, IvColumns, Moments, TwoStage};
-use upshot_sql::{residuals, Built, Design, DesignTerm, KeyValue, Models, Pass, ResidualLayout};
+use upshot_sql::{
+    residuals_and_pooled, Built, Design, DesignTerm, KeyValue, Models, Pass, ResidualLayout,
+};
 
 /// First-stage F below which the instruments count as weak: common practice after Staiger &
 /// Stock (1997).
@@ -39,29 +41,31 @@ fn gram(s: &Setup) -> Result<Built<upshot_sql::GramLayout>, MethodError> {
     gram_pass(s, false, gram_terms(s))
 }
 
-/// The score pass: residual moments over `(1, W, Z, T)`, grouped by segment (`by_segment`) or
-/// over all rows with one model.
+/// The score pass: residual moments over `(1, W, Z, T)` per segment; with segments, also those
+/// of the `all` row's 2SLS model (`pooled`), summed over the segments in Rust, so that the
+/// `all` row needs no pass of its own.
 fn score_pass(
     s: &Setup,
     models: &Models,
-    by_segment: bool,
+    pooled: Option<&Models>,
 ) -> Result<Built<ResidualLayout>, MethodError> {
     let spec = s.spec;
     let mut terms = s.terms.clone();
     terms.extend(s.instrument_terms.iter().cloned());
     terms.push(s.treatment_term.clone());
     let design = Design {
-        keys: if by_segment { s.segment_keys() } else { vec![] },
+        keys: s.segment_keys(),
         terms,
         extras: vec![("y", spec.outcome.clone())],
         fold: None,
     };
-    Ok(residuals(
+    Ok(residuals_and_pooled(
         &spec.flavor,
         &spec.source,
         s.filter.as_ref(),
         &design,
         models,
+        pooled,
     )?)
 }
 
@@ -74,14 +78,12 @@ fn placeholder_models(s: &Setup) -> Models {
 }
 
 pub(crate) fn passes(s: &Setup) -> Result<Vec<Pass>, MethodError> {
-    let mut out = vec![
+    let pooled = Models::single(vec![0.0; width(s)]);
+    let pooled = (!s.spec.segments.is_empty()).then_some(&pooled);
+    Ok(vec![
         gram(s)?.pass,
-        score_pass(s, &placeholder_models(s), true)?.pass,
-    ];
-    if !s.spec.segments.is_empty() {
-        out.push(score_pass(s, &Models::single(vec![0.0; width(s)]), false)?.pass);
-    }
-    Ok(out)
+        score_pass(s, &placeholder_models(s), pooled)?.pass,
+    ])
 }
 
 /// Names of the Gram pass's columns: covariate terms, instruments, treatment, outcome.
@@ -215,7 +217,23 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     let keys: Vec<Vec<KeyValue>> = segs.iter().map(|seg| seg.key.clone()).collect();
     let coefs: Vec<Vec<f64>> = segs.iter().map(|seg| seg.fit.design.clone()).collect();
     let models = per_segment(&keys, &coefs);
-    let sp = score_pass(s, &models, true)?;
+    // With segments, the `all` row is 2SLS on all rows: the segments' moments summed.
+    let pooled = if nseg > 0 {
+        let mut all = segs[0].m.clone();
+        for seg in &segs[1..] {
+            all = all
+                .plus(&seg.m)
+                .map_err(|e| MethodError::Engine(e.to_string()))?;
+        }
+        let f = fit(s, &all, "all rows")?;
+        Some((all, f))
+    } else {
+        None
+    };
+    let pooled_models = pooled
+        .as_ref()
+        .map(|(_, f)| Models::single(f.design.clone()));
+    let sp = score_pass(s, &models, pooled_models.as_ref())?;
     let res = ask(r, &sp)?;
     let w = width(s);
     let mut estimates = Vec::new();
@@ -251,18 +269,13 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
         let meat = symmetric(&sp.layout.meat(&res, row)?, w);
         per_segment.push(one(&seg.key, &seg.m, &seg.fit, &meat)?);
     }
-    if nseg > 0 {
-        let mut all = segs[0].m.clone();
-        for seg in &segs[1..] {
-            all = all
-                .plus(&seg.m)
-                .map_err(|e| MethodError::Engine(e.to_string()))?;
+    if let Some((all, f)) = &pooled {
+        let mut meat = nalgebra::DMatrix::zeros(w, w);
+        for seg in &segs {
+            let row = row_of(&res, &seg.key)?;
+            meat += symmetric(&sp.layout.pooled_meat(&res, row)?, w);
         }
-        let f = fit(s, &all, "all rows")?;
-        let pp = score_pass(s, &Models::single(f.design.clone()), false)?;
-        let pr = ask(r, &pp)?;
-        let meat = symmetric(&pp.layout.meat(&pr, 0)?, w);
-        estimates.push(one(&[], &all, &f, &meat)?);
+        estimates.push(one(&[], all, f, &meat)?);
         // The pooled report first, as its estimate.
         reports.rotate_right(1);
     }
