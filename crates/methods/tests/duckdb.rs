@@ -16,12 +16,9 @@ fn sample() -> String {
     )
 }
 
-#[test]
-fn every_method_agrees_with_and_without_upshots_functions() {
-    let e = DuckDbEngine::open(MEMORY, false).unwrap();
-    let source = Source::Csv(sample());
-    let columns: Vec<ColumnType> = e
-        .columns(&source)
+/// The source's columns as the methods take them.
+fn columns_of(e: &DuckDbEngine, source: &Source) -> Vec<ColumnType> {
+    e.columns(source)
         .unwrap()
         .into_iter()
         .map(|c| ColumnType {
@@ -31,7 +28,14 @@ fn every_method_agrees_with_and_without_upshots_functions() {
             integer: c.integer,
             boolean: c.boolean,
         })
-        .collect();
+        .collect()
+}
+
+#[test]
+fn every_method_agrees_with_and_without_upshots_functions() {
+    let e = DuckDbEngine::open(MEMORY, false).unwrap();
+    let source = Source::Csv(sample());
+    let columns = columns_of(&e, &source);
     for (method, estimand) in [
         (Method::Stratify, Estimand::Ate),
         (Method::Regress, Estimand::Atc),
@@ -108,18 +112,7 @@ fn warm_started_propensity_fits_give_the_cold_estimates() {
     )
     .unwrap();
     let source = Source::table("big").unwrap();
-    let columns: Vec<ColumnType> = e
-        .columns(&source)
-        .unwrap()
-        .into_iter()
-        .map(|c| ColumnType {
-            name: c.name,
-            type_name: c.type_name,
-            numeric: c.numeric,
-            integer: c.integer,
-            boolean: c.boolean,
-        })
-        .collect();
+    let columns = columns_of(&e, &source);
     for (method, segments) in [
         (Method::Weight, vec![]),
         (Method::Weight, vec!["band".to_string()]),
