@@ -247,7 +247,7 @@ fn newton_step(
             if small && !opts.confirm {
                 // The coefficients after this step are the converged ones; the pass that
                 // would evaluate them only re-confirms it. Their information, log-likelihood
-                // and fitted range are taken here, one step of at most the tolerance away.
+                // and fitted range are taken here, at the point one (small) step before.
                 let next: Vec<f64> = coef.iter().zip(&step).map(|(c, s)| c + s).collect();
                 if next[1..].iter().all(|c| c.abs() <= opts.max_coefficient) {
                     let covariance = c.inverse();
@@ -380,5 +380,58 @@ mod tests {
         assert!(fit.iterations < 15, "{fit:?}");
         let s = logit_sums_from_rows(&rows, &fit.coef);
         assert!(s.score.amax() < 1e-8, "score at the optimum {:?}", s.score);
+    }
+
+    /// The predicted ending (the default) takes fewer passes than the confirmed one and ends
+    /// at the same coefficients to 1e-10; a warm start near the optimum takes fewer still.
+    #[test]
+    fn the_predicted_ending_and_a_warm_start_save_passes() {
+        let rows: Vec<Vec<f64>> = (0..500)
+            .map(|i| {
+                let x = (i % 25) as f64 / 12.0 - 1.0;
+                let z = ((i * 37) % 17) as f64 / 8.0 - 1.0;
+                let u = ((i * 7919) % 101) as f64 / 101.0;
+                vec![
+                    x,
+                    z,
+                    f64::from(u8::from(u < 1.0 / (1.0 + (-(0.8 * x - 0.5 * z)).exp()))),
+                ]
+            })
+            .collect();
+        let names: Vec<String> = ["(intercept)", "x", "z"].map(String::from).to_vec();
+        let run = |start: Vec<f64>, confirm: bool| {
+            let mut passes = 0;
+            let fit = logit_many_from::<(), _>(
+                &names,
+                vec![start],
+                |c| {
+                    passes += 1;
+                    Ok(vec![logit_sums_from_rows(&rows, &c[0])])
+                },
+                NewtonOptions {
+                    confirm,
+                    ..NewtonOptions::default()
+                },
+            )
+            .unwrap()
+            .pop()
+            .unwrap()
+            .unwrap();
+            (fit.coef, passes)
+        };
+        let (exact, confirmed) = run(vec![0.0; 3], true);
+        let (predicted, fewer) = run(vec![0.0; 3], false);
+        assert!(fewer < confirmed, "{fewer} vs {confirmed}");
+        let near: Vec<f64> = exact.iter().map(|c| c * 1.01).collect();
+        let (warm, fewest) = run(near, false);
+        assert!(fewest < fewer, "{fewest} vs {fewer}");
+        for other in [&predicted, &warm] {
+            for (a, b) in exact.iter().zip(other.iter()) {
+                assert!(
+                    (a - b).abs() <= 1e-10 * (1.0 + a.abs()),
+                    "{exact:?} vs {other:?}"
+                );
+            }
+        }
     }
 }

@@ -1,5 +1,6 @@
 SELECT
   COUNT(*) AS n,
+  SUM(t) AS n1,
   SUM((t - p)) AS u0,
   SUM((t - p) * v0) AS u1,
   SUM((t - p) * v1) AS u2,

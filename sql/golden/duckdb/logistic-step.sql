@@ -1,5 +1,6 @@
 SELECT
   n,
+  n1,
   u0,
   u1,
   u2,
@@ -16,6 +17,7 @@ FROM
   (
     SELECT
       COUNT(*) AS n,
+      SUM(t) AS n1,
       SUM((t - p)) AS u0,
       SUM((t - p) * v0) AS u1,
       SUM((t - p) * v1) AS u2,
