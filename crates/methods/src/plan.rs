@@ -57,7 +57,7 @@ pub fn plan(spec: &Spec) -> Result<Vec<PlannedPass>, MethodError> {
             "gram" => (Some(centres.to_string()), None),
             "logistic-step" => (
                 Some(format!("{centres}; the current Newton coefficients (shown as 0)")),
-                Some("once per Newton iteration until the coefficients settle (typically 4 to 7 times; at most 50); over more than 400,000 rows on DuckDB and PostgreSQL 2 to 4 times, after Newton passes named `warm-start` over the first 100,000 rows".to_string()),
+                Some("once per Newton iteration until the coefficients settle (typically 4 to 7 times; at most 50); over more than 400,000 rows on DuckDB 2 to 4 times, after Newton passes named `warm-start` over the first 100,000 rows".to_string()),
             ),
             "logistic-scores" => (
                 Some(format!("{centres}; the current coefficients of each fold-leaving-out fit (shown as 0)")),

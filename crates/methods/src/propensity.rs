@@ -72,7 +72,7 @@ const WARM_TOLERANCE: f64 = 1e-4;
 
 /// Most passes of a warm start's Newton iterations (over its sample); one that has not
 /// settled by then starts its segment from zero instead.
-const WARM_ITERATIONS: usize = 25;
+const WARM_ITERATIONS: usize = 10;
 
 /// Propensity coefficients per segment fitted on the first rows, to start the fits on all
 /// rows from: Newton converges quadratically, so from the sample's fit (off by about one
@@ -101,11 +101,11 @@ impl Warm {
     }
 }
 
-/// The warm start, where it pays: on an engine whose small queries are cheap, over more than
+/// The warm start, where it pays: on an engine where it does ([`upshot_sql::Dialect::warm_starts`]), over more than
 /// [`WARM_MIN_ROWS`] rows. Its passes read the first [`WARM_ROWS`] rows that pass the filter.
 pub(crate) fn warm_start(s: &Setup, r: &mut dyn Runner) -> Result<Option<Warm>, MethodError> {
     let spec = s.spec;
-    if !spec.flavor.dialect.small_queries_are_cheap() || s.diagnostics.rows_read <= WARM_MIN_ROWS {
+    if !spec.flavor.dialect.warm_starts() || s.diagnostics.rows_read <= WARM_MIN_ROWS {
         return Ok(None);
     }
     let sample = Source::First(Box::new(First {

@@ -89,11 +89,14 @@ pub trait Dialect: Sync {
     fn fences_subqueries(&self) -> bool {
         false
     }
-    /// Whether a query over a few thousand rows costs little next to a scan of the table, so
-    /// that fitting on the first rows first (a warm start) saves passes over all of them. Not
-    /// where every query pays a fixed cost of about a second (Spark Connect: planning and
-    /// scheduling), which a handful of small passes would add up to.
-    fn small_queries_are_cheap(&self) -> bool {
+    /// Whether a fit may start from the first rows of a source (a warm start): a query that
+    /// reads a few thousand rows costs little next to a scan of the table, and `LIMIT n` reads
+    /// the same rows each time. DuckDB keeps a table's insertion order. PostgreSQL does not:
+    /// synchronized and parallel sequential scans start anywhere, so each `LIMIT` pass read
+    /// other rows, and a warm start's Newton iterations on 600,000 rows ran out without
+    /// settling (measured: 33 passes against 9). Spark Connect pays about a second per query,
+    /// which a handful of small passes would add up to.
+    fn warm_starts(&self) -> bool {
         true
     }
     /// Whether the results table is partitioned by `run_id` and a run's rows replace its
@@ -220,6 +223,9 @@ impl Dialect for DuckDb {
 pub struct Postgres;
 
 impl Dialect for Postgres {
+    fn warm_starts(&self) -> bool {
+        false
+    }
     fn name(&self) -> &'static str {
         "postgres"
     }
@@ -252,7 +258,7 @@ impl Dialect for Postgres {
 pub struct Spark;
 
 impl Dialect for Spark {
-    fn small_queries_are_cheap(&self) -> bool {
+    fn warm_starts(&self) -> bool {
         false
     }
     fn name(&self) -> &'static str {
