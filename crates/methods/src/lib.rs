@@ -477,14 +477,7 @@ pub fn estimate(spec: &Spec, runner: &mut dyn Runner) -> Result<Outcome, MethodE
     let cut = segment_bins::cut(spec, &mut counted)?;
     let mut setup = prepare::prepare(cut.as_ref().map_or(spec, |c| &c.spec), &mut counted)?;
     if let Some(c) = &cut {
-        setup.bins.clone_from(&c.bins);
-        setup.diagnostics.notes.extend(c.notes.iter().cloned());
-        // A NULL bin number is a NULL in the column it numbers.
-        for (name, _) in &mut setup.diagnostics.null_columns {
-            if let Some(b) = c.bins.iter().find(|b| b.alias == *name) {
-                name.clone_from(&b.column);
-            }
-        }
+        c.annotate(&mut setup);
     }
     let mut out = est.run(&setup, &mut counted)?;
     let mut diag = setup.diagnostics.clone();

@@ -29,7 +29,7 @@ pub fn plan(spec: &Spec) -> Result<Vec<PlannedPass>, MethodError> {
     let binned = cut.as_ref().map_or(spec, |c| &c.spec);
     let mut s = placeholder(binned)?;
     if let Some(c) = &cut {
-        s.bins.clone_from(&c.bins);
+        c.annotate(&mut s);
     }
     let mut out = Vec::new();
     let planned = |p: upshot_sql::Pass, inlines: Option<&str>, repeats: Option<&str>| PlannedPass {

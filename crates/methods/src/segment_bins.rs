@@ -119,6 +119,20 @@ pub(crate) struct Cut {
     pub notes: Vec<String>,
 }
 
+impl Cut {
+    /// Gives `setup` (prepared from [`Cut::spec`]) the bins for its segment labels and the
+    /// notes on the cuts, and names a NULL bin number by the column it numbers.
+    pub(crate) fn annotate(&self, setup: &mut crate::prepare::Setup) {
+        setup.bins.clone_from(&self.bins);
+        setup.diagnostics.notes.extend(self.notes.iter().cloned());
+        for (name, _) in &mut setup.diagnostics.null_columns {
+            if let Some(b) = self.bins.iter().find(|b| b.alias == *name) {
+                name.clone_from(&b.column);
+            }
+        }
+    }
+}
+
 /// The quantile pass of each column `spec` cuts.
 fn passes(
     spec: &Spec,

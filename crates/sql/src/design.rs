@@ -698,8 +698,7 @@ fn aggregate(f: &Flavor, k: usize, keys: &[String], outs: &[Out], from: &str) ->
                     vs.join(", ")
                 ));
                 for (alias, _, i, j) in &p.entries {
-                    // Row-major upper triangle of the width × width matrix, 1-based lists.
-                    let at = i * (2 * width - i + 1) / 2 + (j - i) + 1;
+                    let at = upper_at(*i, *j, width);
                     outer.push(format!(
                         "{} AS {alias}",
                         f.dialect.list_element(&format!("moments{block}"), at)
@@ -720,8 +719,7 @@ fn aggregate(f: &Flavor, k: usize, keys: &[String], outs: &[Out], from: &str) ->
                 let w = width + c.len();
                 for i in 0..=k {
                     for (m, (prefix, _)) in c.iter().enumerate() {
-                        let j = width + m;
-                        let at = i * (2 * w - i + 1) / 2 + (j - i) + 1;
+                        let at = upper_at(i, width + m, w);
                         outer.push(format!(
                             "{} AS {prefix}{i}",
                             f.dialect.list_element(&format!("moments{block}"), at)
@@ -737,6 +735,12 @@ fn aggregate(f: &Flavor, k: usize, keys: &[String], outs: &[Out], from: &str) ->
         outer.join(", "),
         inner.join(", ")
     )
+}
+
+/// The 1-based position of entry `(i, j)`, `i ≤ j`, in the row-major upper triangle of a
+/// `width × width` matrix: where the fused aggregate's list holds it.
+fn upper_at(i: usize, j: usize, width: usize) -> usize {
+    i * (2 * width - i + 1) / 2 + (j - i) + 1
 }
 
 /// `Σ weight · w_i w_j` (`i ≤ j`) over `w = (1, v...)`, aliased `{prefix}{i}_{j}`, with the

@@ -650,7 +650,7 @@ pub fn quantile_cuts(
             name: "quantiles".into(),
             purpose: format!(
                 "the cut points of segment column `{column}` at the quantiles 1/{bins} .. {}/{bins} of the rows used (from the cumulative counts of its distinct values)",
-                bins - 1
+                bins.saturating_sub(1)
             ),
             query: t.query(source, filter)?,
         },
