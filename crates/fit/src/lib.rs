@@ -22,7 +22,8 @@ mod ols;
 
 pub use iv::{chi2_upper, two_stage, FirstStage, IvColumns, OverId, Robust, TwoStage};
 pub use logit::{
-    logit, logit_many, logit_many_from, logit_sums_from_rows, Logit, LogitSums, NewtonOptions,
+    fixed_curvature_settled, logit, logit_many, logit_many_from, logit_sums_from_rows,
+    relative_step, Logit, LogitSums, NewtonOptions,
 };
 pub use moments::Moments;
 pub use ols::{ols, residual_moments_from_rows, Ols};

@@ -9,7 +9,10 @@ use crate::models::{fold_models, per_segment};
 use crate::prepare::{needs_folds, Setup};
 use crate::read::{by_segment, logit_sums, row_of};
 use crate::{ask, MethodError, Runner};
-use upshot_fit::{logit_many, logit_many_from, FitError, Logit, LogitSums, NewtonOptions};
+use upshot_fit::{
+    fixed_curvature_settled, logit_many, logit_many_from, relative_step, FitError, Logit,
+    LogitSums, NewtonOptions,
+};
 use upshot_sql::{
     logistic_fits, Aggregates, Built, First, KeyValue, LogisticLayout, Models, Source, Variants,
 };
@@ -361,7 +364,10 @@ const SHARED_CURVATURE_PASSES: usize = 30;
 /// with that information matrix held fixed, using only the fits' scores, which one pass grouped
 /// by fold returns for all of them. The fixed point is the same maximum-likelihood estimate
 /// Newton reaches (the score is zero there), and the iteration contracts fast because a fit
-/// leaving out one fold of K is close to the full fit. Returns `None` (and the caller uses full
+/// leaving out one fold of K is close to the full fit. It ends once every fit's step, or the
+/// error left after it as predicted from the ratio of its last two steps, is within the
+/// tolerance ([`fixed_curvature_settled`]): one score pass fewer than waiting for a step within
+/// it. Returns `None` (and the caller uses full
 /// Newton passes) when a fit does not settle within [`SHARED_CURVATURE_PASSES`] or its
 /// coefficients run away, which is where separation would show.
 fn shared_curvature_complements(
@@ -425,6 +431,8 @@ fn shared_curvature_complements(
         coef.push(start);
     }
     let mut settled = vec![vec![false; k]; segs.len()];
+    // Each fit's last step size: the ratio of two successive ones predicts the error left.
+    let mut previous: Vec<Vec<Option<f64>>> = vec![vec![None; k]; segs.len()];
     for _ in 0..SHARED_CURVATURE_PASSES {
         let pass = scores_pass_only(s, &fold_models(s, segs, &coef))?;
         let a = ask(r, &pass)?;
@@ -440,10 +448,9 @@ fn shared_curvature_complements(
                 }
                 let step = curvature[i][j].solve(&score);
                 let c = &mut coef[i][j];
-                let small = step
-                    .iter()
-                    .zip(c.iter())
-                    .all(|(d, x)| d.abs() <= opts.tolerance * (1.0 + x.abs()));
+                let size = relative_step(step.as_slice(), c);
+                let small = fixed_curvature_settled(previous[i][j], size, &opts);
+                previous[i][j] = Some(size);
                 for (x, d) in c.iter_mut().zip(step.iter()) {
                     *x += d;
                 }

@@ -427,9 +427,10 @@ pub fn logistic_fits(
         outs.push(Out::plain(format!("MAX({p})"), format!("{pre}max_p")));
     }
     let from = format!(
-        "(SELECT *, {} FROM (SELECT *, {} FROM ({rows}) AS rows_) AS linear_) AS fitted_",
+        "(SELECT *, {} FROM (SELECT *, {} FROM {}) AS linear_) AS fitted_",
         probs.join(", "),
         etas.join(", "),
+        t.rows_table(&rows, "rows_"),
     );
     t.sql = t.aggregate(k, &keys, &outs, &from);
     let layout = LogisticLayout {
@@ -507,8 +508,10 @@ pub fn residuals_and_pooled(
         more = format!(", y - ({fitted}) AS e_pooled");
         outs.push(Out::Products(products_of("e_pooled * e_pooled", "q", k)));
     }
-    let from =
-        format!("(SELECT *, y - ({fitted}) AS e{more} FROM ({rows}) AS rows_) AS residuals_");
+    let from = format!(
+        "(SELECT *, y - ({fitted}) AS e{more} FROM {}) AS residuals_",
+        t.rows_table(&rows, "rows_")
+    );
     t.sql = t.aggregate(k, &design.key_names(), &outs, &from);
     Ok(Built {
         pass: Pass {

@@ -70,7 +70,11 @@ pub(crate) fn augmented_sums(
     }
     let from = format!(
         "(SELECT *, {num} AS num, {den} AS den FROM {}) AS scores_",
-        propensity.over(&rows, &format!(", {m1} AS m1, {m0} AS m0"), "nuisance_")
+        propensity.over(
+            &t.rows_table(&rows, "rows_"),
+            &format!(", {m1} AS m1, {m0} AS m0"),
+            "nuisance_"
+        )
     );
     t.sql = t.aggregate(k, &design.key_names(), &outs, &from);
     Ok(Built {
@@ -149,6 +153,52 @@ mod tests {
             )
             .unwrap();
             golden::check(dir, &f, "augmented", &p);
+        }
+    }
+
+    /// With more models than [`upshot_sql::design::JOINED_MODELS`] (9 segments × 2 folds),
+    /// DuckDB reads them from one joined table of the three families' coefficients; the other
+    /// dialects keep the nested `CASE`.
+    #[test]
+    fn golden_augmented_pass_with_joined_models() {
+        let many = |offset: f64| {
+            let mut m = fold_models(offset);
+            m.models = (0..9)
+                .flat_map(|b| {
+                    (0..2).map(move |f| upshot_sql::Model {
+                        key: vec![
+                            upshot_sql::KeyValue::Text(format!("band{b}")),
+                            upshot_sql::KeyValue::Number(f64::from(f)),
+                        ],
+                        coef: vec![offset + f64::from(b), 0.5, -0.25 * f64::from(f)],
+                    })
+                })
+                .collect();
+            m
+        };
+        let src = Source::table("customers").unwrap();
+        for (dir, f) in golden::flavors() {
+            let p = augmented_sums(
+                &f,
+                &src,
+                None,
+                &golden::fold_design(),
+                &Nuisances {
+                    propensity: &many(0.0),
+                    treated: &many(50.0),
+                    control: &many(40.0),
+                    target: Estimand::Ate,
+                    clip: 0.01,
+                },
+            )
+            .unwrap();
+            let sql = p.pass.sql();
+            assert_eq!(
+                sql.matches("LEFT JOIN (VALUES").count(),
+                usize::from(dir.starts_with("duckdb")),
+                "{dir}"
+            );
+            golden::check(dir, &f, "augmented-joined", &p);
         }
     }
 }

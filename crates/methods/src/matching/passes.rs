@@ -140,8 +140,9 @@ fn ctes(
         next = near("nn", "nsy"),
         both = near("(pn + nn)", "(psy + nsy)"),
     );
+    let design_rows = t.rows_table(&rows, "design_");
     Ok(format!(
-        "WITH rows_ AS (SELECT {kt}{eta} AS s, t, y{u_item} FROM ({rows}) AS design_), \
+        "WITH rows_ AS (SELECT {kt}{eta} AS s, t, y{u_item} FROM {design_rows}), \
          ranked_ AS (SELECT {kt}s, sq, t, y{u_keep}, DENSE_RANK() OVER (PARTITION BY {kt}t ORDER BY sq) AS r \
            FROM (SELECT {kt}s, t, y{u_keep}, CAST(FLOOR(s * {GRID} + 0.5) AS {f}) AS sq FROM rows_) AS grid_), \
          spread_ AS (SELECT {kt}SQRT((VAR_SAMP(CASE WHEN t = 1.0 THEN s END) + VAR_SAMP(CASE WHEN t = 0.0 THEN s END)) / 2.0) AS sdl \

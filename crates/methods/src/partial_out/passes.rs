@@ -30,7 +30,8 @@ pub(crate) fn partial_out_sums(
         outs.push(Out::plain(format!("SUM({e})"), alias));
     }
     let from = format!(
-        "(SELECT *, t - ({gt}) AS rt, y - ({gy}) AS ry FROM ({rows}) AS rows_) AS residuals_"
+        "(SELECT *, t - ({gt}) AS rt, y - ({gy}) AS ry FROM {}) AS residuals_",
+        t.rows_table(&rows, "rows_")
     );
     t.sql = t.aggregate(k, &design.key_names(), &outs, &from);
     Ok(Built {

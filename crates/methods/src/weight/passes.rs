@@ -80,7 +80,7 @@ pub(crate) fn weighting_sums(
     outs.push(Out::Products(products_of("e_raw * (1.0 - e_raw)", "h", k)));
     let from = format!(
         "(SELECT *, {w1} AS w1, {w1d} AS w1d, {w0} AS w0, {w0d} AS w0d FROM {}) AS weighted_",
-        propensity.over(&rows, "", "propensity_")
+        propensity.over(&t.rows_table(&rows, "rows_"), "", "propensity_")
     );
     t.sql = t.aggregate(k, &design.key_names(), &outs, &from);
     Ok(Built {
