@@ -134,24 +134,39 @@ mod tests {
     use super::*;
     use crate::golden::{self, fold_models};
 
+    /// The augmented pass over the golden fold design for each flavor, with the nuisance
+    /// families `models(offset)` (propensity 0, treated 50, control 40).
+    fn each_flavor(
+        models: &dyn Fn(f64) -> Models,
+        target: Estimand,
+    ) -> Vec<(&'static str, Flavor, Built<AugmentedLayout>)> {
+        let src = Source::table("customers").unwrap();
+        let (e, m1, m0) = (models(0.0), models(50.0), models(40.0));
+        golden::flavors()
+            .into_iter()
+            .map(|(dir, f)| {
+                let p = augmented_sums(
+                    &f,
+                    &src,
+                    None,
+                    &golden::fold_design(),
+                    &Nuisances {
+                        propensity: &e,
+                        treated: &m1,
+                        control: &m0,
+                        target,
+                        clip: 0.01,
+                    },
+                )
+                .unwrap();
+                (dir, f, p)
+            })
+            .collect()
+    }
+
     #[test]
     fn golden_augmented_pass() {
-        let src = Source::table("customers").unwrap();
-        for (dir, f) in golden::flavors() {
-            let p = augmented_sums(
-                &f,
-                &src,
-                None,
-                &golden::fold_design(),
-                &Nuisances {
-                    propensity: &fold_models(0.0),
-                    treated: &fold_models(50.0),
-                    control: &fold_models(40.0),
-                    target: Estimand::Att,
-                    clip: 0.01,
-                },
-            )
-            .unwrap();
+        for (dir, f, p) in each_flavor(&fold_models, Estimand::Att) {
             golden::check(dir, &f, "augmented", &p);
         }
     }
@@ -176,25 +191,9 @@ mod tests {
                 .collect();
             m
         };
-        let src = Source::table("customers").unwrap();
-        for (dir, f) in golden::flavors() {
-            let p = augmented_sums(
-                &f,
-                &src,
-                None,
-                &golden::fold_design(),
-                &Nuisances {
-                    propensity: &many(0.0),
-                    treated: &many(50.0),
-                    control: &many(40.0),
-                    target: Estimand::Ate,
-                    clip: 0.01,
-                },
-            )
-            .unwrap();
-            let sql = p.pass.sql();
+        for (dir, f, p) in each_flavor(&many, Estimand::Ate) {
             assert_eq!(
-                sql.matches("LEFT JOIN (VALUES").count(),
+                p.pass.sql().matches("LEFT JOIN (VALUES").count(),
                 usize::from(dir.starts_with("duckdb")),
                 "{dir}"
             );
