@@ -61,7 +61,7 @@ pub fn plan(spec: &Spec) -> Result<Vec<PlannedPass>, MethodError> {
             ),
             "logistic-scores" => (
                 Some(format!("{centres}; the current coefficients of each fold-leaving-out fit (shown as 0)")),
-                Some("once per step of the fold-leaving-out fits until they settle (typically 4 to 10 times; at most 30, then Newton passes with the information matrix take over)".to_string()),
+                Some("once per step of the fold-leaving-out fits until they settle (typically 2 to 10 times, ended on the error predicted from the last two steps; at most 30, then Newton passes with the information matrix take over)".to_string()),
             ),
             "residuals" => (
                 Some(format!("{centres}; the outcome models' coefficients from the Gram pass (shown as 0)")),

@@ -104,8 +104,8 @@ impl Warm {
     }
 }
 
-/// The warm start, where it pays: on an engine where it does ([`upshot_sql::Dialect::warm_starts`]), over more than
-/// [`WARM_MIN_ROWS`] rows. Its passes read the first [`WARM_ROWS`] rows that pass the filter.
+/// The warm start, where it pays: on an engine where it does
+/// ([`upshot_sql::Dialect::warm_starts`]), over more than [`WARM_MIN_ROWS`] rows. Its passes read the first [`WARM_ROWS`] rows that pass the filter.
 pub(crate) fn warm_start(s: &Setup, r: &mut dyn Runner) -> Result<Option<Warm>, MethodError> {
     let spec = s.spec;
     if !spec.flavor.dialect.warm_starts() || s.diagnostics.rows_read <= WARM_MIN_ROWS {
@@ -366,8 +366,8 @@ const SHARED_CURVATURE_PASSES: usize = 30;
 /// Newton reaches (the score is zero there), and the iteration contracts fast because a fit
 /// leaving out one fold of K is close to the full fit. It ends once every fit's step, or the
 /// error left after it as predicted from the ratio of its last two steps, is within the
-/// tolerance ([`fixed_curvature_settled`]): one score pass fewer than waiting for a step within
-/// it. Returns `None` (and the caller uses full
+/// tolerance ([`fixed_curvature_settled`]): where the fits contract fast (10M rows) one score
+/// pass fewer than waiting for a step within it. Returns `None` (and the caller uses full
 /// Newton passes) when a fit does not settle within [`SHARED_CURVATURE_PASSES`] or its
 /// coefficients run away, which is where separation would show.
 fn shared_curvature_complements(
