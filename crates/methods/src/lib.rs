@@ -24,8 +24,42 @@
 #![deny(missing_docs)]
 
 /// Declares a module's estimator: a unit struct whose [`Estimator`] impl answers to `$method`
-/// and calls the module's `passes` and `run`.
+/// and calls the module's `passes` and `run` (and, with `first_pass_profiles`, the module's
+/// `prepare`, whose first pass is also the profile).
 macro_rules! estimator {
+    ($name:ident, $method:expr, first_pass_profiles) => {
+        /// This module's estimator (registered in `ESTIMATORS`).
+        pub(crate) struct $name;
+
+        impl crate::Estimator for $name {
+            fn method(&self) -> crate::Method {
+                $method
+            }
+            fn profiles_in_first_pass(&self) -> bool {
+                true
+            }
+            fn prepare<'a>(
+                &self,
+                spec: &'a crate::Spec,
+                r: &mut dyn crate::Runner,
+            ) -> Result<crate::prepare::Setup<'a>, crate::MethodError> {
+                prepare(spec, r)
+            }
+            fn passes(
+                &self,
+                s: &crate::prepare::Setup,
+            ) -> Result<Vec<upshot_sql::Pass>, crate::MethodError> {
+                passes(s)
+            }
+            fn run(
+                &self,
+                s: &crate::prepare::Setup,
+                r: &mut dyn crate::Runner,
+            ) -> Result<crate::Outcome, crate::MethodError> {
+                run(s, r)
+            }
+        }
+    };
     ($name:ident, $method:expr) => {
         /// This module's estimator (registered in `ESTIMATORS`).
         pub(crate) struct $name;
@@ -86,6 +120,14 @@ use upshot_sql::{Aggregates, Expr, Flavor, Pass, Source, SqlError};
 pub(crate) trait Estimator: Sync {
     /// The method key it answers to.
     fn method(&self) -> Method;
+    /// Whether its first pass is also the profile, so no profile pass runs (`stratify`).
+    fn profiles_in_first_pass(&self) -> bool {
+        false
+    }
+    /// The profile (and levels) passes, the checks of the data, the design terms.
+    fn prepare<'a>(&self, spec: &'a Spec, r: &mut dyn Runner) -> Result<Setup<'a>, MethodError> {
+        prepare::prepare(spec, r)
+    }
     /// The passes after the profile and levels passes, built from a placeholder setup.
     fn passes(&self, s: &Setup) -> Result<Vec<Pass>, MethodError>;
     /// Runs the passes after the profile and levels passes and finishes the estimates.
@@ -475,7 +517,7 @@ pub fn estimate(spec: &Spec, runner: &mut dyn Runner) -> Result<Outcome, MethodE
         n: 0,
     };
     let cut = segment_bins::cut(spec, &mut counted)?;
-    let mut setup = prepare::prepare(cut.as_ref().map_or(spec, |c| &c.spec), &mut counted)?;
+    let mut setup = est.prepare(cut.as_ref().map_or(spec, |c| &c.spec), &mut counted)?;
     if let Some(c) = &cut {
         c.annotate(&mut setup);
     }

@@ -45,7 +45,9 @@ pub fn plan(spec: &Spec) -> Result<Vec<PlannedPass>, MethodError> {
     let bins = cut
         .as_ref()
         .map(|_| "the cut points from the quantiles passes (shown as 1, 2, ...)");
-    out.push(planned(profile_pass(binned)?.pass, bins, None));
+    if !est.profiles_in_first_pass() {
+        out.push(planned(profile_pass(binned)?.pass, bins, None));
+    }
     if let Some(p) = levels_pass(binned, s.filter.as_ref())? {
         out.push(planned(p.pass, None, None));
     }

@@ -6,8 +6,8 @@ use crate::{
 };
 use serde::Serialize;
 use upshot_sql::{
-    complete_cases, levels, nonfinite, profile, Built, Cell, DesignTerm, Expr, LevelRow,
-    LevelsLayout, ProfileColumn, ProfileLayout, ProfiledColumn,
+    complete_cases, levels, nonfinite, profile, Aggregates, Built, Cell, DesignTerm, Expr,
+    LevelRow, LevelsLayout, ProfileColumn, ProfileLayout, ProfiledCell, ProfiledColumn,
 };
 
 /// Most levels a categorical covariate may have for one-hot encoding.
@@ -55,6 +55,9 @@ pub(crate) struct Setup<'a> {
     pub diagnostics: Diagnostics,
     /// Segment columns read as bin numbers (`--bins`), for their labels.
     pub bins: Vec<crate::segment_bins::SegmentBins>,
+    /// The complete cells of a first pass that was also the profile (`stratify`'s cell
+    /// table), so the estimator does not run it again.
+    pub cells: Option<Aggregates>,
 }
 
 impl Setup<'_> {
@@ -170,7 +173,7 @@ pub(crate) fn is_categorical(spec: &Spec, name: &str) -> bool {
 }
 
 /// Checks names and types against the schema (when known).
-fn check_schema(spec: &Spec) -> Result<(), MethodError> {
+pub(crate) fn check_schema(spec: &Spec) -> Result<(), MethodError> {
     let Some(columns) = &spec.columns else {
         return Ok(());
     };
@@ -404,22 +407,25 @@ fn with_stats(spec: &Spec, c: &str) -> bool {
     numeric && (spec.method != Method::Stratify || c == spec.treatment)
 }
 
+/// Whether the profile counts column `c`'s distinct values. They serve one check: discrete
+/// numeric strata. A 0/1 treatment is checked exactly, by counting the other values.
+fn counts_distinct(spec: &Spec, c: &str) -> bool {
+    let numeric = !is_categorical(spec, c) || c == spec.treatment || c == spec.outcome;
+    spec.method == Method::Stratify
+        && numeric
+        && c != spec.outcome
+        && c != spec.treatment
+        && modelled(spec).iter().any(|m| m == c)
+}
+
 /// The profile pass of a spec.
 pub(crate) fn profile_pass(spec: &Spec) -> Result<Built<ProfileLayout>, MethodError> {
     let cols: Vec<ProfileColumn> = used_columns(spec)
         .into_iter()
         .map(|c| {
-            let numeric = !is_categorical(spec, &c) || c == spec.treatment || c == spec.outcome;
-            // Distinct counts serve one check: discrete numeric strata. A 0/1 treatment is
-            // checked exactly, by counting the other values.
-            let distinct = spec.method == Method::Stratify
-                && numeric
-                && c != spec.outcome
-                && c != spec.treatment
-                && modelled(spec).contains(&c);
             ProfileColumn {
                 numeric: with_stats(spec, &c),
-                distinct,
+                distinct: counts_distinct(spec, &c),
                 // The treatment's and the instruments' 0/1 values are counted (binary
                 // instruments give the Wald ratio and the complier share).
                 zero_one: c == spec.treatment
@@ -473,13 +479,204 @@ pub(crate) fn levels_pass(
     )?))
 }
 
+/// What the profile says of the rows the user's filter keeps: their count, the rows with no
+/// NULL in a used column, and each used column (in [`used_columns`] order).
+pub(crate) struct Facts {
+    pub n_rows: f64,
+    pub n_complete: f64,
+    pub columns: Vec<Profiled>,
+}
+
+/// Runs the profile pass.
+fn profile_facts(spec: &Spec, r: &mut dyn Runner) -> Result<Facts, MethodError> {
+    let pp = profile_pass(spec)?;
+    let prof = ask_unchecked(r, &pp)?;
+    let mut columns = Vec::new();
+    for (i, c) in used_columns(spec).iter().enumerate() {
+        columns.push(profiled(pp.layout.column(&prof, i)?, c));
+    }
+    Ok(Facts {
+        n_rows: pp.layout.rows(&prof)?,
+        n_complete: pp.layout.complete(&prof)?,
+        columns,
+    })
+}
+
+/// The profile a cell table over every row gives ([`upshot_sql::profiled_cells`], every group
+/// read): `keys` are its key columns, `value` the column it sums. Each used column must be one
+/// of them. A key's statistics come from its values weighted by their rows — the same numbers
+/// the profile pass computes (distinct counts exact rather than approximate); the value's
+/// count and range from the groups' counts and ranges (it gets no mean: a cell table fits no
+/// design).
+pub(crate) fn cell_facts(
+    spec: &Spec,
+    keys: &[String],
+    value: &str,
+    cells: &[ProfiledCell],
+) -> Facts {
+    let n_rows: f64 = cells.iter().map(|c| c.rows).sum();
+    let n_complete: f64 = cells
+        .iter()
+        .filter(|c| !c.keys.iter().any(|k| matches!(k, Cell::Null)))
+        .map(|c| c.n)
+        .sum();
+    let columns = used_columns(spec)
+        .into_iter()
+        .map(|name| match keys.iter().position(|k| *k == name) {
+            Some(i) => key_facts(spec, &name, cells, i),
+            None if name == value => {
+                let (min, max) = range(cells.iter().flat_map(|c| [&c.y_min, &c.y_max]));
+                Profiled {
+                    non_null: cells.iter().map(|c| c.n).sum(),
+                    min,
+                    max,
+                    mean: None,
+                    sd: None,
+                    distinct: 0.0,
+                    not01: 0.0,
+                    name,
+                }
+            }
+            // Not in the table: nothing known (callers pass every used column as a key or
+            // the value).
+            None => Profiled {
+                non_null: 0.0,
+                min: Cell::Null,
+                max: Cell::Null,
+                mean: None,
+                sd: None,
+                distinct: 0.0,
+                not01: 0.0,
+                name,
+            },
+        })
+        .collect();
+    Facts {
+        n_rows,
+        n_complete,
+        columns,
+    }
+}
+
+/// Smallest and largest of some cells: numbers, else texts; NaN among the numbers makes the
+/// largest NaN (as an engine's MAX orders it), so the range check sees it. NULLs are skipped.
+fn range<'c>(values: impl Iterator<Item = &'c Cell>) -> (Cell, Cell) {
+    let mut lo: Option<&Cell> = None;
+    let mut hi: Option<&Cell> = None;
+    let mut nan = false;
+    for v in values {
+        let below = |a: &Cell, b: &Cell| match (a, b) {
+            (Cell::Number(a), Cell::Number(b)) => a < b,
+            (Cell::Text(a), Cell::Text(b)) => a < b,
+            _ => false,
+        };
+        match v {
+            Cell::Null => continue,
+            Cell::Number(x) if x.is_nan() => {
+                nan = true;
+                continue;
+            }
+            _ => {}
+        }
+        if lo.is_none_or(|l| below(v, l)) {
+            lo = Some(v);
+        }
+        if hi.is_none_or(|h| below(h, v)) {
+            hi = Some(v);
+        }
+    }
+    let lo = lo.cloned().unwrap_or(Cell::Null);
+    let hi = if nan {
+        Cell::Number(f64::NAN)
+    } else {
+        hi.cloned().unwrap_or(Cell::Null)
+    };
+    (lo, hi)
+}
+
+/// Key `i` of a cell table, profiled as [`profile_pass`] profiles its column.
+fn key_facts(spec: &Spec, name: &str, cells: &[ProfiledCell], i: usize) -> Profiled {
+    let present: Vec<(&Cell, f64)> = cells
+        .iter()
+        .filter_map(|c| c.keys.get(i).map(|k| (k, c.rows)))
+        .filter(|(k, _)| !matches!(k, Cell::Null))
+        .collect();
+    let non_null: f64 = present.iter().map(|(_, n)| n).sum();
+    let numbers: Option<Vec<(f64, f64)>> = present
+        .iter()
+        .map(|(k, n)| match k {
+            Cell::Number(x) => Some((*x, *n)),
+            _ => None,
+        })
+        .collect();
+    let stats = with_stats(spec, name);
+    let (min, max) = if stats {
+        range(present.iter().map(|(k, _)| *k))
+    } else {
+        (Cell::Null, Cell::Null)
+    };
+    let (mean, sum_sq) = match (&numbers, stats && non_null > 0.0) {
+        (Some(xs), true) => (
+            Some(xs.iter().map(|(x, n)| x * n).sum::<f64>() / non_null),
+            Some(xs.iter().map(|(x, n)| x * x * n).sum::<f64>()),
+        ),
+        _ => (None, None),
+    };
+    let not01 = if name == spec.treatment {
+        present
+            .iter()
+            .filter(|(k, _)| !matches!(k, Cell::Number(x) if *x == 0.0 || *x == 1.0))
+            .map(|(_, n)| n)
+            .sum()
+    } else {
+        0.0
+    };
+    let distinct = if counts_distinct(spec, name) {
+        let mut seen: Vec<&Cell> = Vec::new();
+        for (k, _) in &present {
+            if !seen.contains(k) {
+                seen.push(k);
+            }
+        }
+        seen.len() as f64
+    } else {
+        0.0
+    };
+    profiled(
+        ProfiledColumn {
+            non_null,
+            min,
+            max,
+            mean,
+            sum_sq,
+            not01,
+            distinct,
+        },
+        name,
+    )
+}
+
 /// Runs the profile (and levels) passes, checks the data, and builds the design terms.
 pub(crate) fn prepare<'a>(spec: &'a Spec, r: &mut dyn Runner) -> Result<Setup<'a>, MethodError> {
     check_schema(spec)?;
+    let facts = profile_facts(spec, r)?;
+    prepare_from(spec, facts, r)
+}
+
+/// Checks the data by what its profile says (from the profile pass, or from a first pass that
+/// is its own profile), runs the levels pass where there are categorical covariates, and
+/// builds the design terms.
+pub(crate) fn prepare_from<'a>(
+    spec: &'a Spec,
+    facts: Facts,
+    r: &mut dyn Runner,
+) -> Result<Setup<'a>, MethodError> {
     let used = used_columns(spec);
-    let pp = profile_pass(spec)?;
-    let prof = ask_unchecked(r, &pp)?;
-    let n_rows = pp.layout.rows(&prof)?;
+    let Facts {
+        n_rows,
+        n_complete,
+        columns: profiled_cols,
+    } = facts;
     if n_rows == 0.0 {
         return Err(MethodError::Input(if spec.filter.is_some() {
             "no rows: the source is empty after the filter; check the filter and the source".into()
@@ -487,11 +684,6 @@ pub(crate) fn prepare<'a>(spec: &'a Spec, r: &mut dyn Runner) -> Result<Setup<'a
             "no rows: the source is empty".into()
         }));
     }
-    let mut profiled_cols = Vec::new();
-    for (i, c) in used.iter().enumerate() {
-        profiled_cols.push(profiled(pp.layout.column(&prof, i)?, c));
-    }
-    let n_complete = pp.layout.complete(&prof)?;
     let null_columns: Vec<(String, f64)> = profiled_cols
         .iter()
         .filter(|p| p.non_null < n_rows)
@@ -622,6 +814,7 @@ pub(crate) fn prepare<'a>(spec: &'a Spec, r: &mut dyn Runner) -> Result<Setup<'a
             ..Diagnostics::default()
         },
         bins: vec![],
+        cells: None,
     };
     if !matches!(spec.method, Method::Stratify | Method::Coarsen) {
         let (terms, names) = covariate_terms(spec, &profiled_cols, &coded)?;
@@ -990,5 +1183,6 @@ pub(crate) fn placeholder<'a>(spec: &'a Spec) -> Result<Setup<'a>, MethodError> 
         profiled,
         diagnostics: Diagnostics::default(),
         bins: vec![],
+        cells: None,
     })
 }

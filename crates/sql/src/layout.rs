@@ -206,6 +206,61 @@ impl CellsLayout {
     }
 }
 
+/// One group of a profiled cell table: its keys as read (NULL included), its rows, and the
+/// outcome's count, sums and range over them.
+#[derive(Clone, Debug, PartialEq)]
+pub struct ProfiledCell {
+    /// The keys, NULL where the group is the key's NULLs.
+    pub keys: Vec<Cell>,
+    /// Rows in the group.
+    pub rows: f64,
+    /// Rows with an outcome.
+    pub n: f64,
+    /// Smallest outcome (NULL when none).
+    pub y_min: Cell,
+    /// Largest outcome.
+    pub y_max: Cell,
+}
+
+/// The layout of the cell table that is its own profile ([`crate::passes::profiled_cells`]).
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct ProfiledCellsLayout {
+    /// The cells, as [`CellsLayout`] reads them once the groups with a NULL are set apart
+    /// ([`ProfiledCellsLayout::complete`]).
+    pub cells: CellsLayout,
+}
+
+impl ProfiledCellsLayout {
+    /// Row `row`.
+    pub fn cell(&self, a: &Aggregates, row: usize) -> Result<ProfiledCell, ResultError> {
+        Ok(ProfiledCell {
+            keys: (0..self.cells.keys)
+                .map(|i| a.cell(row, &format!("k{i}")).cloned())
+                .collect::<Result<_, _>>()?,
+            rows: a.number(row, "n_rows")?,
+            n: a.number_or(row, "n", 0.0)?,
+            y_min: a.cell(row, "y_min")?.clone(),
+            y_max: a.cell(row, "y_max")?.clone(),
+        })
+    }
+    /// The cells of the complete rows: groups with no NULL key and at least one outcome, read
+    /// by [`ProfiledCellsLayout::cells`] (`n` counts the rows with an outcome).
+    pub fn complete(&self, a: &Aggregates) -> Result<Aggregates, ResultError> {
+        let mut rows = Vec::new();
+        for row in 0..a.rows.len() {
+            let c = self.cell(a, row)?;
+            if c.n > 0.0 && !c.keys.iter().any(|k| matches!(k, Cell::Null)) {
+                rows.push(a.rows[row].clone());
+            }
+        }
+        Ok(Aggregates {
+            pass: a.pass.clone(),
+            names: a.names.clone(),
+            rows,
+        })
+    }
+}
+
 /// The layout of a levels pass: one row per column and level.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub struct LevelsLayout {

@@ -45,11 +45,11 @@ pub use filter::FUNCTIONS as FILTER_FUNCTIONS;
 pub use layout::{
     group_keys, Built, CellsLayout, Cuts, CutsLayout, GramLayout, LevelRow, LevelsLayout,
     LogisticLayout, LogisticRow, NonFinite, NonFiniteLayout, ProfileColumn, ProfileLayout,
-    ProfiledColumn, ResidualLayout,
+    ProfiledCell, ProfiledCellsLayout, ProfiledColumn, ResidualLayout,
 };
 pub use passes::{
-    binned_cells, cells, gram, levels, logistic_fits, nonfinite, profile, quantile_cuts, residuals,
-    residuals_and_pooled, schema_probe, CellKey, Variants,
+    binned_cells, cells, gram, levels, logistic_fits, nonfinite, profile, profiled_cells,
+    quantile_cuts, residuals, residuals_and_pooled, schema_probe, CellKey, Variants,
 };
 pub use results_table::{
     results_schema_file, results_sql, rows_table_sql, ResultsSql, RESULT_COLUMNS,

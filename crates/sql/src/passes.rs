@@ -11,7 +11,7 @@ use crate::dialect::Flavor;
 use crate::error::SqlError;
 use crate::layout::{
     Built, CellsLayout, CutsLayout, GramLayout, LevelsLayout, LogisticLayout, NonFiniteLayout,
-    ProfileColumn, ProfileLayout, ResidualLayout,
+    ProfileColumn, ProfileLayout, ProfiledCellsLayout, ResidualLayout,
 };
 use crate::source::Source;
 use crate::template::Bind;
@@ -264,6 +264,82 @@ pub fn binned_cells(
             query: t.query(source, filter)?,
         },
         layout: CellsLayout { keys: keys.len() },
+    })
+}
+
+/// The cell table that is its own profile: per combination of `keys` over every row the user's
+/// filter keeps — NULL keys are groups of their own — the rows (`n_rows`), the rows with a
+/// value (`n`), the value's sum and sum of squares (`sy`, `syy`) and range (`y_min`, `y_max`).
+/// Ordered by the keys; at most `max_cells + 1` groups come back, so a caller learns that
+/// there are more than `max_cells` without reading them. Counts, NULLs, ranges and distinct
+/// values of the keys follow from the groups, so no profile pass runs before it.
+pub fn profiled_cells(
+    flavor: &Flavor,
+    source: &Source,
+    filter: Option<&Expr>,
+    keys: &[String],
+    value: &str,
+    max_cells: u64,
+) -> Result<Built<ProfiledCellsLayout>, SqlError> {
+    let mut t = PassText::new(flavor);
+    let y = t.column(value);
+    let yf = t.float_of(&y, value);
+    // A boolean the dialect cannot cast is compared as a number, as in the profile.
+    let yv = if t.boolean_via_integer(value) {
+        yf.clone()
+    } else {
+        y.clone()
+    };
+    // A boolean key the dialect cannot cast to a float groups as 0/1, so its values read as
+    // numbers on every engine (the treatment's 0/1 check).
+    let ks: Vec<String> = keys
+        .iter()
+        .map(|k| {
+            let p = t.column(k);
+            if t.boolean_via_integer(k) {
+                format!("CAST({p} AS INTEGER)")
+            } else {
+                p
+            }
+        })
+        .collect();
+    let mut items: Vec<String> = ks
+        .iter()
+        .enumerate()
+        .map(|(i, k)| format!("{k} AS k{i}"))
+        .collect();
+    items.push("COUNT(*) AS n_rows".into());
+    items.push(format!("COUNT({y}) AS n"));
+    items.push(format!("SUM({yf}) AS sy"));
+    items.push(format!("SUM({yf} * {yf}) AS syy"));
+    items.push(format!("MIN({yv}) AS y_min"));
+    items.push(format!("MAX({yv}) AS y_max"));
+    let mut sql = format!(
+        "SELECT {} FROM __src AS src WHERE __filter",
+        items.join(", ")
+    );
+    if !ks.is_empty() {
+        let order: Vec<String> = (1..=ks.len()).map(|i| i.to_string()).collect();
+        sql.push_str(&format!(
+            " GROUP BY {} ORDER BY {} LIMIT {}",
+            ks.join(", "),
+            order.join(", "),
+            max_cells.saturating_add(1)
+        ));
+    }
+    t.sql = sql;
+    Ok(Built {
+        pass: Pass {
+            name: "cells".into(),
+            purpose: format!(
+                "per cell of ({}), NULLs included: rows, and the outcome's count, sum, sum of squares and range; the profile follows from the cells",
+                keys.join(", ")
+            ),
+            query: t.query(source, filter)?,
+        },
+        layout: ProfiledCellsLayout {
+            cells: CellsLayout { keys: keys.len() },
+        },
     })
 }
 

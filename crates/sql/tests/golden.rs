@@ -10,9 +10,9 @@
 use sqlparser::parser::Parser;
 use std::path::PathBuf;
 use upshot_sql::{
-    cells, gram, levels, logistic_fits, parse_filter, profile, residuals, Design, DesignTerm,
-    DuckDb, Flavor, Models, Pass, Postgres, ProfileColumn, Source, Spark, SqlError, Variants,
-    DIALECTS,
+    cells, gram, levels, logistic_fits, parse_filter, profile, profiled_cells, residuals, Design,
+    DesignTerm, DuckDb, Flavor, Models, Pass, Postgres, ProfileColumn, Source, Spark, SqlError,
+    Variants, DIALECTS,
 };
 
 /// The renderings with golden files: DuckDB as upshot opens it (with its functions), DuckDB
@@ -171,6 +171,13 @@ fn golden_plans_render_and_round_trip() {
             .map(|p| (p.name.clone(), p))
             .collect();
         all.push(("levels".into(), levels_pass(&f)));
+        // Stratify's cell table, which is also its profile: every row the filter keeps.
+        let src = Source::table("main.order lines").unwrap();
+        let filter =
+            parse_filter("\"zone\" <> 'Old Town' AND prior_orders >= 0", f.dialect).unwrap();
+        let keys = ["mail wave".to_string(), "zone".into(), "voucher".into()];
+        let p = profiled_cells(&f, &src, Some(&filter), &keys, "spend 30d", 200_000);
+        all.push(("cells-profiled".into(), p.unwrap().pass));
         for (name, p) in all {
             let sql = p.sql() + "\n";
             let path = golden_dir().join(dir).join(format!("{name}.sql"));
