@@ -261,7 +261,11 @@ fn plan_lists_the_passes_run_executes() {
         );
         let s = String::from_utf8_lossy(&out.stdout);
         // Stratify's cell table is its own profile: one pass.
-        let first = if method == "stratify" { "cells" } else { "profile" };
+        let first = if method == "stratify" {
+            "cells"
+        } else {
+            "profile"
+        };
         assert!(s.contains(&format!("-- pass 1: {first}")), "{s}");
         assert!(s.contains("SELECT"), "{s}");
     }

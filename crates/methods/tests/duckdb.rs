@@ -181,3 +181,130 @@ fn warm_started_propensity_fits_give_the_cold_estimates() {
         );
     }
 }
+
+/// Stratify runs no profile pass: its cell table, over every row the filter keeps with NULL
+/// keys as groups of their own, is also the profile. On the demo sample with NULLs put into
+/// four used columns (a source query), it reports the rows read, the rows excluded and the
+/// NULLs per column that the profile pass reports for `regress` over the same columns, and the
+/// estimate it gives is the one over the complete rows alone (a source query dropping them).
+/// The checks the profile fed keep their refusals: a treatment value that is neither 0 nor 1,
+/// and `--on-null error`. (Agreement with one another, not with an outside reference: the
+/// estimates themselves are checked against statsmodels by tests/reference.)
+#[test]
+fn stratify_profiles_in_its_cell_table() {
+    let e = DuckDbEngine::open(MEMORY, false).unwrap();
+    let csv = sample().replace('\'', "''");
+    let query = |select: &str| {
+        Source::query(
+            &format!("SELECT {select} FROM read_csv_auto('{csv}')"),
+            &DuckDb,
+        )
+        .unwrap()
+    };
+    let nulls = "customer_id, tenure_band, \
+        CASE WHEN customer_id % 7 = 0 THEN NULL ELSE voucher END AS voucher, \
+        CASE WHEN customer_id % 11 = 0 THEN NULL ELSE spend_30d END AS spend_30d, \
+        CASE WHEN customer_id % 13 = 0 THEN NULL ELSE prior_orders END AS prior_orders, \
+        CASE WHEN customer_id % 17 = 0 THEN NULL ELSE zone END AS zone";
+    let with_nulls = query(nulls);
+    let complete = Source::query(
+        &format!(
+            "SELECT * FROM (SELECT {nulls} FROM read_csv_auto('{csv}')) AS t \
+             WHERE voucher IS NOT NULL AND spend_30d IS NOT NULL \
+             AND prior_orders IS NOT NULL AND zone IS NOT NULL"
+        ),
+        &DuckDb,
+    )
+    .unwrap();
+    let spec = |source: &Source, method: Method, on_null: NullPolicy| Spec {
+        flavor: e.flavor(),
+        question: "q".into(),
+        source: source.clone(),
+        filter: None,
+        treatment: "voucher".into(),
+        outcome: "spend_30d".into(),
+        adjust: vec!["prior_orders".into(), "zone".into()],
+        instruments: vec![],
+        mediators: vec![],
+        bins: vec![],
+        matching: Default::default(),
+        segments: vec!["tenure_band".into()],
+        segment_bins: None,
+        estimand: Estimand::Ate,
+        method,
+        folds: 1,
+        unit: None,
+        on_null,
+        clip: 0.01,
+        categorical: vec![],
+        basis: Basis::default(),
+        columns: Some(columns_of(&e, source)),
+    };
+    let mut run = |p: &upshot_sql::Pass| e.run(p).map_err(|x| x.to_string());
+    let strat = estimate(
+        &spec(&with_nulls, Method::Stratify, NullPolicy::Exclude),
+        &mut run,
+    )
+    .unwrap();
+    let regress = estimate(
+        &spec(&with_nulls, Method::Regress, NullPolicy::Exclude),
+        &mut run,
+    )
+    .unwrap();
+    let (d, r) = (&strat.diagnostics, &regress.diagnostics);
+    assert_eq!(d.passes, 1);
+    assert!(d.rows_excluded_null > 0.0);
+    assert_eq!(
+        (d.rows_read, d.rows_excluded_null, &d.null_columns),
+        (r.rows_read, r.rows_excluded_null, &r.null_columns)
+    );
+    let kept = estimate(
+        &spec(&complete, Method::Stratify, NullPolicy::Exclude),
+        &mut run,
+    )
+    .unwrap();
+    assert_eq!(
+        kept.diagnostics.rows_read,
+        d.rows_read - d.rows_excluded_null
+    );
+    assert_eq!(strat.estimates.len(), kept.estimates.len());
+    for (a, b) in strat.estimates.iter().zip(&kept.estimates) {
+        assert_eq!(a.segment, b.segment);
+        for (x, y) in [(a.estimate, b.estimate), (a.std_error, b.std_error)] {
+            assert!((x - y).abs() <= 1e-12 * y.abs().max(1.0), "{x} vs {y}");
+        }
+    }
+    let refused = estimate(
+        &spec(&with_nulls, Method::Stratify, NullPolicy::Error),
+        &mut run,
+    )
+    .unwrap_err()
+    .to_string();
+    assert!(refused.contains("with --on-null error"), "{refused}");
+    let not01 = query(
+        "customer_id, tenure_band, spend_30d, prior_orders, zone, \
+         CASE WHEN customer_id = 100005 THEN 2 ELSE voucher END AS voucher",
+    );
+    let refused = estimate(
+        &spec(&not01, Method::Stratify, NullPolicy::Exclude),
+        &mut run,
+    )
+    .unwrap_err()
+    .to_string();
+    assert!(
+        refused.contains("needs a 0/1 treatment") && refused.contains("1 of its values"),
+        "{refused}"
+    );
+    // A categorical stratum with a level per row: more cells than the table may have.
+    let wide = Source::query(
+        "SELECT CAST(i AS VARCHAR) AS spend_30d, i % 2 AS voucher, 1.0 * i AS prior_orders, \
+         'a' AS zone, 'x' AS tenure_band FROM range(250000) AS r(i)",
+        &DuckDb,
+    )
+    .unwrap();
+    let mut s = spec(&wide, Method::Stratify, NullPolicy::Exclude);
+    (s.outcome, s.adjust) = ("prior_orders".into(), vec!["spend_30d".into()]);
+    s.categorical = vec!["spend_30d".into()];
+    let refused = estimate(&s, &mut run).unwrap_err().to_string();
+    assert!(refused.contains("more than 200000 cells"), "{refused}");
+}
