@@ -235,8 +235,8 @@ fn matching_with_rows(engine: &str, locator: &str, table: &str) -> Value {
 
 /// `--bins`: questions segmented by a numeric column cut at quantiles the engine computes
 /// give DuckDB's bins (the same ranges, as segment labels) and estimates. And cross-fitted
-/// questions with 12 segments × 5 folds = 60 models per family, which DuckDB reads from a
-/// joined table of coefficients (over `JOINED_MODELS`) and the other engines by `CASE`.
+/// questions with 12 segments × 5 folds = 60 models per family, which every engine reads from a
+/// joined table of coefficients (over `JOINED_MODELS`; fewer models by nested `CASE`).
 fn bins_agree(engine: &str, locator: &str) {
     let f = fixture();
     let study = f.study.to_str().unwrap();

@@ -102,10 +102,10 @@ pub trait Dialect: Sync {
     /// Whether per-group models (segments × folds) reach their rows through a joined table
     /// of coefficients (`VALUES`, one row per model, joined on the keys) instead of a `CASE`
     /// over the keys per row, where a family has many models (see
-    /// [`crate::design::JOINED_MODELS`]). Measured on DuckDB only, so the other dialects keep
-    /// the `CASE`.
+    /// [`crate::design::JOINED_MODELS`]). Measured faster on DuckDB, PostgreSQL and Spark
+    /// (docs/benchmark.md); a dialect where a join costs more than the `CASE` says `false`.
     fn joins_models(&self) -> bool {
-        false
+        true
     }
     /// Whether the results table is partitioned by `run_id` and a run's rows replace its
     /// partition (`INSERT OVERWRITE`, Spark: no `DELETE` on a plain managed table), instead of
@@ -209,9 +209,6 @@ impl std::fmt::Debug for Flavor {
 pub struct DuckDb;
 
 impl Dialect for DuckDb {
-    fn joins_models(&self) -> bool {
-        true
-    }
     fn name(&self) -> &'static str {
         "duckdb"
     }

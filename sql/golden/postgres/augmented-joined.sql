@@ -34,136 +34,8 @@ FROM
             ELSE
               1.0
           END AS inside,
-          CASE
-            WHEN k0 = 'band0' THEN
-              CASE
-                WHEN f = 0 THEN
-                  50.0 + 0.5 * v0 + -0.0 * v1
-                WHEN f = 1 THEN
-                  50.0 + 0.5 * v0 + -0.25 * v1
-              END
-            WHEN k0 = 'band1' THEN
-              CASE
-                WHEN f = 0 THEN
-                  51.0 + 0.5 * v0 + -0.0 * v1
-                WHEN f = 1 THEN
-                  51.0 + 0.5 * v0 + -0.25 * v1
-              END
-            WHEN k0 = 'band2' THEN
-              CASE
-                WHEN f = 0 THEN
-                  52.0 + 0.5 * v0 + -0.0 * v1
-                WHEN f = 1 THEN
-                  52.0 + 0.5 * v0 + -0.25 * v1
-              END
-            WHEN k0 = 'band3' THEN
-              CASE
-                WHEN f = 0 THEN
-                  53.0 + 0.5 * v0 + -0.0 * v1
-                WHEN f = 1 THEN
-                  53.0 + 0.5 * v0 + -0.25 * v1
-              END
-            WHEN k0 = 'band4' THEN
-              CASE
-                WHEN f = 0 THEN
-                  54.0 + 0.5 * v0 + -0.0 * v1
-                WHEN f = 1 THEN
-                  54.0 + 0.5 * v0 + -0.25 * v1
-              END
-            WHEN k0 = 'band5' THEN
-              CASE
-                WHEN f = 0 THEN
-                  55.0 + 0.5 * v0 + -0.0 * v1
-                WHEN f = 1 THEN
-                  55.0 + 0.5 * v0 + -0.25 * v1
-              END
-            WHEN k0 = 'band6' THEN
-              CASE
-                WHEN f = 0 THEN
-                  56.0 + 0.5 * v0 + -0.0 * v1
-                WHEN f = 1 THEN
-                  56.0 + 0.5 * v0 + -0.25 * v1
-              END
-            WHEN k0 = 'band7' THEN
-              CASE
-                WHEN f = 0 THEN
-                  57.0 + 0.5 * v0 + -0.0 * v1
-                WHEN f = 1 THEN
-                  57.0 + 0.5 * v0 + -0.25 * v1
-              END
-            WHEN k0 = 'band8' THEN
-              CASE
-                WHEN f = 0 THEN
-                  58.0 + 0.5 * v0 + -0.0 * v1
-                WHEN f = 1 THEN
-                  58.0 + 0.5 * v0 + -0.25 * v1
-              END
-          END AS m1,
-          CASE
-            WHEN k0 = 'band0' THEN
-              CASE
-                WHEN f = 0 THEN
-                  40.0 + 0.5 * v0 + -0.0 * v1
-                WHEN f = 1 THEN
-                  40.0 + 0.5 * v0 + -0.25 * v1
-              END
-            WHEN k0 = 'band1' THEN
-              CASE
-                WHEN f = 0 THEN
-                  41.0 + 0.5 * v0 + -0.0 * v1
-                WHEN f = 1 THEN
-                  41.0 + 0.5 * v0 + -0.25 * v1
-              END
-            WHEN k0 = 'band2' THEN
-              CASE
-                WHEN f = 0 THEN
-                  42.0 + 0.5 * v0 + -0.0 * v1
-                WHEN f = 1 THEN
-                  42.0 + 0.5 * v0 + -0.25 * v1
-              END
-            WHEN k0 = 'band3' THEN
-              CASE
-                WHEN f = 0 THEN
-                  43.0 + 0.5 * v0 + -0.0 * v1
-                WHEN f = 1 THEN
-                  43.0 + 0.5 * v0 + -0.25 * v1
-              END
-            WHEN k0 = 'band4' THEN
-              CASE
-                WHEN f = 0 THEN
-                  44.0 + 0.5 * v0 + -0.0 * v1
-                WHEN f = 1 THEN
-                  44.0 + 0.5 * v0 + -0.25 * v1
-              END
-            WHEN k0 = 'band5' THEN
-              CASE
-                WHEN f = 0 THEN
-                  45.0 + 0.5 * v0 + -0.0 * v1
-                WHEN f = 1 THEN
-                  45.0 + 0.5 * v0 + -0.25 * v1
-              END
-            WHEN k0 = 'band6' THEN
-              CASE
-                WHEN f = 0 THEN
-                  46.0 + 0.5 * v0 + -0.0 * v1
-                WHEN f = 1 THEN
-                  46.0 + 0.5 * v0 + -0.25 * v1
-              END
-            WHEN k0 = 'band7' THEN
-              CASE
-                WHEN f = 0 THEN
-                  47.0 + 0.5 * v0 + -0.0 * v1
-                WHEN f = 1 THEN
-                  47.0 + 0.5 * v0 + -0.25 * v1
-              END
-            WHEN k0 = 'band8' THEN
-              CASE
-                WHEN f = 0 THEN
-                  48.0 + 0.5 * v0 + -0.0 * v1
-                WHEN f = 1 THEN
-                  48.0 + 0.5 * v0 + -0.25 * v1
-              END
-          END AS m0
+          mt0_p1c0 + mt0_p1c1 * v0 + mt0_p1c2 * v1 AS m1,
+          mt0_p2c0 + mt0_p2c1 * v0 + mt0_p2c2 * v1 AS m0
         FROM
           (
             SELECT
@@ -178,71 +50,7 @@ FROM
               (
                 SELECT
                   *,
-                  CASE
-                    WHEN k0 = 'band0' THEN
-                      CASE
-                        WHEN f = 0 THEN
-                          0.0 + 0.5 * v0 + -0.0 * v1
-                        WHEN f = 1 THEN
-                          0.0 + 0.5 * v0 + -0.25 * v1
-                      END
-                    WHEN k0 = 'band1' THEN
-                      CASE
-                        WHEN f = 0 THEN
-                          1.0 + 0.5 * v0 + -0.0 * v1
-                        WHEN f = 1 THEN
-                          1.0 + 0.5 * v0 + -0.25 * v1
-                      END
-                    WHEN k0 = 'band2' THEN
-                      CASE
-                        WHEN f = 0 THEN
-                          2.0 + 0.5 * v0 + -0.0 * v1
-                        WHEN f = 1 THEN
-                          2.0 + 0.5 * v0 + -0.25 * v1
-                      END
-                    WHEN k0 = 'band3' THEN
-                      CASE
-                        WHEN f = 0 THEN
-                          3.0 + 0.5 * v0 + -0.0 * v1
-                        WHEN f = 1 THEN
-                          3.0 + 0.5 * v0 + -0.25 * v1
-                      END
-                    WHEN k0 = 'band4' THEN
-                      CASE
-                        WHEN f = 0 THEN
-                          4.0 + 0.5 * v0 + -0.0 * v1
-                        WHEN f = 1 THEN
-                          4.0 + 0.5 * v0 + -0.25 * v1
-                      END
-                    WHEN k0 = 'band5' THEN
-                      CASE
-                        WHEN f = 0 THEN
-                          5.0 + 0.5 * v0 + -0.0 * v1
-                        WHEN f = 1 THEN
-                          5.0 + 0.5 * v0 + -0.25 * v1
-                      END
-                    WHEN k0 = 'band6' THEN
-                      CASE
-                        WHEN f = 0 THEN
-                          6.0 + 0.5 * v0 + -0.0 * v1
-                        WHEN f = 1 THEN
-                          6.0 + 0.5 * v0 + -0.25 * v1
-                      END
-                    WHEN k0 = 'band7' THEN
-                      CASE
-                        WHEN f = 0 THEN
-                          7.0 + 0.5 * v0 + -0.0 * v1
-                        WHEN f = 1 THEN
-                          7.0 + 0.5 * v0 + -0.25 * v1
-                      END
-                    WHEN k0 = 'band8' THEN
-                      CASE
-                        WHEN f = 0 THEN
-                          8.0 + 0.5 * v0 + -0.0 * v1
-                        WHEN f = 1 THEN
-                          8.0 + 0.5 * v0 + -0.25 * v1
-                      END
-                  END AS eta
+                  mt0_p0c0 + mt0_p0c1 * v0 + mt0_p0c2 * v1 AS eta
                 FROM
                   (
                     SELECT
@@ -256,7 +64,8 @@ FROM
                       "customers" AS src
                     WHERE
                       true AND "tenure_band" IS NOT NULL AND "prior orders" IS NOT NULL AND "voucher" IS NOT NULL AND "spend_30d" IS NOT NULL AND "customer_id" IS NOT NULL OFFSET 0
-                  ) AS rows_ OFFSET 0
+                  ) AS rows_
+                  LEFT JOIN (VALUES ('band0', 0, CAST(0.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.0 AS DOUBLE PRECISION), CAST(50.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.0 AS DOUBLE PRECISION), CAST(40.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.0 AS DOUBLE PRECISION)), ('band0', 1, CAST(0.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.25 AS DOUBLE PRECISION), CAST(50.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.25 AS DOUBLE PRECISION), CAST(40.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.25 AS DOUBLE PRECISION)), ('band1', 0, CAST(1.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.0 AS DOUBLE PRECISION), CAST(51.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.0 AS DOUBLE PRECISION), CAST(41.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.0 AS DOUBLE PRECISION)), ('band1', 1, CAST(1.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.25 AS DOUBLE PRECISION), CAST(51.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.25 AS DOUBLE PRECISION), CAST(41.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.25 AS DOUBLE PRECISION)), ('band2', 0, CAST(2.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.0 AS DOUBLE PRECISION), CAST(52.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.0 AS DOUBLE PRECISION), CAST(42.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.0 AS DOUBLE PRECISION)), ('band2', 1, CAST(2.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.25 AS DOUBLE PRECISION), CAST(52.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.25 AS DOUBLE PRECISION), CAST(42.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.25 AS DOUBLE PRECISION)), ('band3', 0, CAST(3.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.0 AS DOUBLE PRECISION), CAST(53.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.0 AS DOUBLE PRECISION), CAST(43.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.0 AS DOUBLE PRECISION)), ('band3', 1, CAST(3.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.25 AS DOUBLE PRECISION), CAST(53.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.25 AS DOUBLE PRECISION), CAST(43.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.25 AS DOUBLE PRECISION)), ('band4', 0, CAST(4.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.0 AS DOUBLE PRECISION), CAST(54.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.0 AS DOUBLE PRECISION), CAST(44.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.0 AS DOUBLE PRECISION)), ('band4', 1, CAST(4.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.25 AS DOUBLE PRECISION), CAST(54.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.25 AS DOUBLE PRECISION), CAST(44.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.25 AS DOUBLE PRECISION)), ('band5', 0, CAST(5.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.0 AS DOUBLE PRECISION), CAST(55.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.0 AS DOUBLE PRECISION), CAST(45.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.0 AS DOUBLE PRECISION)), ('band5', 1, CAST(5.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.25 AS DOUBLE PRECISION), CAST(55.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.25 AS DOUBLE PRECISION), CAST(45.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.25 AS DOUBLE PRECISION)), ('band6', 0, CAST(6.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.0 AS DOUBLE PRECISION), CAST(56.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.0 AS DOUBLE PRECISION), CAST(46.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.0 AS DOUBLE PRECISION)), ('band6', 1, CAST(6.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.25 AS DOUBLE PRECISION), CAST(56.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.25 AS DOUBLE PRECISION), CAST(46.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.25 AS DOUBLE PRECISION)), ('band7', 0, CAST(7.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.0 AS DOUBLE PRECISION), CAST(57.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.0 AS DOUBLE PRECISION), CAST(47.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.0 AS DOUBLE PRECISION)), ('band7', 1, CAST(7.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.25 AS DOUBLE PRECISION), CAST(57.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.25 AS DOUBLE PRECISION), CAST(47.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.25 AS DOUBLE PRECISION)), ('band8', 0, CAST(8.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.0 AS DOUBLE PRECISION), CAST(58.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.0 AS DOUBLE PRECISION), CAST(48.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.0 AS DOUBLE PRECISION)), ('band8', 1, CAST(8.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.25 AS DOUBLE PRECISION), CAST(58.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.25 AS DOUBLE PRECISION), CAST(48.0 AS DOUBLE PRECISION), CAST(0.5 AS DOUBLE PRECISION), CAST(-0.25 AS DOUBLE PRECISION))) AS mt0_ (mt0_j0, mt0_j1, mt0_p0c0, mt0_p0c1, mt0_p0c2, mt0_p1c0, mt0_p1c1, mt0_p1c2, mt0_p2c0, mt0_p2c1, mt0_p2c2) ON k0 = mt0_j0 AND f = mt0_j1 OFFSET 0
               ) AS linear_ OFFSET 0
           ) AS raw_ OFFSET 0
       ) AS nuisance_ OFFSET 0

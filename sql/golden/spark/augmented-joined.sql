@@ -34,136 +34,8 @@ FROM
             ELSE
               1.0
           END AS inside,
-          CASE
-            WHEN k0 = 'band0' THEN
-              CASE
-                WHEN f = 0 THEN
-                  50.0E0 + 0.5E0 * v0 + -0.0E0 * v1
-                WHEN f = 1 THEN
-                  50.0E0 + 0.5E0 * v0 + -0.25E0 * v1
-              END
-            WHEN k0 = 'band1' THEN
-              CASE
-                WHEN f = 0 THEN
-                  51.0E0 + 0.5E0 * v0 + -0.0E0 * v1
-                WHEN f = 1 THEN
-                  51.0E0 + 0.5E0 * v0 + -0.25E0 * v1
-              END
-            WHEN k0 = 'band2' THEN
-              CASE
-                WHEN f = 0 THEN
-                  52.0E0 + 0.5E0 * v0 + -0.0E0 * v1
-                WHEN f = 1 THEN
-                  52.0E0 + 0.5E0 * v0 + -0.25E0 * v1
-              END
-            WHEN k0 = 'band3' THEN
-              CASE
-                WHEN f = 0 THEN
-                  53.0E0 + 0.5E0 * v0 + -0.0E0 * v1
-                WHEN f = 1 THEN
-                  53.0E0 + 0.5E0 * v0 + -0.25E0 * v1
-              END
-            WHEN k0 = 'band4' THEN
-              CASE
-                WHEN f = 0 THEN
-                  54.0E0 + 0.5E0 * v0 + -0.0E0 * v1
-                WHEN f = 1 THEN
-                  54.0E0 + 0.5E0 * v0 + -0.25E0 * v1
-              END
-            WHEN k0 = 'band5' THEN
-              CASE
-                WHEN f = 0 THEN
-                  55.0E0 + 0.5E0 * v0 + -0.0E0 * v1
-                WHEN f = 1 THEN
-                  55.0E0 + 0.5E0 * v0 + -0.25E0 * v1
-              END
-            WHEN k0 = 'band6' THEN
-              CASE
-                WHEN f = 0 THEN
-                  56.0E0 + 0.5E0 * v0 + -0.0E0 * v1
-                WHEN f = 1 THEN
-                  56.0E0 + 0.5E0 * v0 + -0.25E0 * v1
-              END
-            WHEN k0 = 'band7' THEN
-              CASE
-                WHEN f = 0 THEN
-                  57.0E0 + 0.5E0 * v0 + -0.0E0 * v1
-                WHEN f = 1 THEN
-                  57.0E0 + 0.5E0 * v0 + -0.25E0 * v1
-              END
-            WHEN k0 = 'band8' THEN
-              CASE
-                WHEN f = 0 THEN
-                  58.0E0 + 0.5E0 * v0 + -0.0E0 * v1
-                WHEN f = 1 THEN
-                  58.0E0 + 0.5E0 * v0 + -0.25E0 * v1
-              END
-          END AS m1,
-          CASE
-            WHEN k0 = 'band0' THEN
-              CASE
-                WHEN f = 0 THEN
-                  40.0E0 + 0.5E0 * v0 + -0.0E0 * v1
-                WHEN f = 1 THEN
-                  40.0E0 + 0.5E0 * v0 + -0.25E0 * v1
-              END
-            WHEN k0 = 'band1' THEN
-              CASE
-                WHEN f = 0 THEN
-                  41.0E0 + 0.5E0 * v0 + -0.0E0 * v1
-                WHEN f = 1 THEN
-                  41.0E0 + 0.5E0 * v0 + -0.25E0 * v1
-              END
-            WHEN k0 = 'band2' THEN
-              CASE
-                WHEN f = 0 THEN
-                  42.0E0 + 0.5E0 * v0 + -0.0E0 * v1
-                WHEN f = 1 THEN
-                  42.0E0 + 0.5E0 * v0 + -0.25E0 * v1
-              END
-            WHEN k0 = 'band3' THEN
-              CASE
-                WHEN f = 0 THEN
-                  43.0E0 + 0.5E0 * v0 + -0.0E0 * v1
-                WHEN f = 1 THEN
-                  43.0E0 + 0.5E0 * v0 + -0.25E0 * v1
-              END
-            WHEN k0 = 'band4' THEN
-              CASE
-                WHEN f = 0 THEN
-                  44.0E0 + 0.5E0 * v0 + -0.0E0 * v1
-                WHEN f = 1 THEN
-                  44.0E0 + 0.5E0 * v0 + -0.25E0 * v1
-              END
-            WHEN k0 = 'band5' THEN
-              CASE
-                WHEN f = 0 THEN
-                  45.0E0 + 0.5E0 * v0 + -0.0E0 * v1
-                WHEN f = 1 THEN
-                  45.0E0 + 0.5E0 * v0 + -0.25E0 * v1
-              END
-            WHEN k0 = 'band6' THEN
-              CASE
-                WHEN f = 0 THEN
-                  46.0E0 + 0.5E0 * v0 + -0.0E0 * v1
-                WHEN f = 1 THEN
-                  46.0E0 + 0.5E0 * v0 + -0.25E0 * v1
-              END
-            WHEN k0 = 'band7' THEN
-              CASE
-                WHEN f = 0 THEN
-                  47.0E0 + 0.5E0 * v0 + -0.0E0 * v1
-                WHEN f = 1 THEN
-                  47.0E0 + 0.5E0 * v0 + -0.25E0 * v1
-              END
-            WHEN k0 = 'band8' THEN
-              CASE
-                WHEN f = 0 THEN
-                  48.0E0 + 0.5E0 * v0 + -0.0E0 * v1
-                WHEN f = 1 THEN
-                  48.0E0 + 0.5E0 * v0 + -0.25E0 * v1
-              END
-          END AS m0
+          mt0_p1c0 + mt0_p1c1 * v0 + mt0_p1c2 * v1 AS m1,
+          mt0_p2c0 + mt0_p2c1 * v0 + mt0_p2c2 * v1 AS m0
         FROM
           (
             SELECT
@@ -178,71 +50,7 @@ FROM
               (
                 SELECT
                   *,
-                  CASE
-                    WHEN k0 = 'band0' THEN
-                      CASE
-                        WHEN f = 0 THEN
-                          0.0E0 + 0.5E0 * v0 + -0.0E0 * v1
-                        WHEN f = 1 THEN
-                          0.0E0 + 0.5E0 * v0 + -0.25E0 * v1
-                      END
-                    WHEN k0 = 'band1' THEN
-                      CASE
-                        WHEN f = 0 THEN
-                          1.0E0 + 0.5E0 * v0 + -0.0E0 * v1
-                        WHEN f = 1 THEN
-                          1.0E0 + 0.5E0 * v0 + -0.25E0 * v1
-                      END
-                    WHEN k0 = 'band2' THEN
-                      CASE
-                        WHEN f = 0 THEN
-                          2.0E0 + 0.5E0 * v0 + -0.0E0 * v1
-                        WHEN f = 1 THEN
-                          2.0E0 + 0.5E0 * v0 + -0.25E0 * v1
-                      END
-                    WHEN k0 = 'band3' THEN
-                      CASE
-                        WHEN f = 0 THEN
-                          3.0E0 + 0.5E0 * v0 + -0.0E0 * v1
-                        WHEN f = 1 THEN
-                          3.0E0 + 0.5E0 * v0 + -0.25E0 * v1
-                      END
-                    WHEN k0 = 'band4' THEN
-                      CASE
-                        WHEN f = 0 THEN
-                          4.0E0 + 0.5E0 * v0 + -0.0E0 * v1
-                        WHEN f = 1 THEN
-                          4.0E0 + 0.5E0 * v0 + -0.25E0 * v1
-                      END
-                    WHEN k0 = 'band5' THEN
-                      CASE
-                        WHEN f = 0 THEN
-                          5.0E0 + 0.5E0 * v0 + -0.0E0 * v1
-                        WHEN f = 1 THEN
-                          5.0E0 + 0.5E0 * v0 + -0.25E0 * v1
-                      END
-                    WHEN k0 = 'band6' THEN
-                      CASE
-                        WHEN f = 0 THEN
-                          6.0E0 + 0.5E0 * v0 + -0.0E0 * v1
-                        WHEN f = 1 THEN
-                          6.0E0 + 0.5E0 * v0 + -0.25E0 * v1
-                      END
-                    WHEN k0 = 'band7' THEN
-                      CASE
-                        WHEN f = 0 THEN
-                          7.0E0 + 0.5E0 * v0 + -0.0E0 * v1
-                        WHEN f = 1 THEN
-                          7.0E0 + 0.5E0 * v0 + -0.25E0 * v1
-                      END
-                    WHEN k0 = 'band8' THEN
-                      CASE
-                        WHEN f = 0 THEN
-                          8.0E0 + 0.5E0 * v0 + -0.0E0 * v1
-                        WHEN f = 1 THEN
-                          8.0E0 + 0.5E0 * v0 + -0.25E0 * v1
-                      END
-                  END AS eta
+                  mt0_p0c0 + mt0_p0c1 * v0 + mt0_p0c2 * v1 AS eta
                 FROM
                   (
                     SELECT
@@ -257,6 +65,7 @@ FROM
                     WHERE
                       true AND `tenure_band` IS NOT NULL AND `prior orders` IS NOT NULL AND `voucher` IS NOT NULL AND `spend_30d` IS NOT NULL AND `customer_id` IS NOT NULL
                   ) AS rows_
+                  LEFT JOIN (VALUES ('band0', 0, CAST(0.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.0E0 AS DOUBLE), CAST(50.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.0E0 AS DOUBLE), CAST(40.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.0E0 AS DOUBLE)), ('band0', 1, CAST(0.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.25E0 AS DOUBLE), CAST(50.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.25E0 AS DOUBLE), CAST(40.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.25E0 AS DOUBLE)), ('band1', 0, CAST(1.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.0E0 AS DOUBLE), CAST(51.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.0E0 AS DOUBLE), CAST(41.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.0E0 AS DOUBLE)), ('band1', 1, CAST(1.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.25E0 AS DOUBLE), CAST(51.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.25E0 AS DOUBLE), CAST(41.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.25E0 AS DOUBLE)), ('band2', 0, CAST(2.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.0E0 AS DOUBLE), CAST(52.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.0E0 AS DOUBLE), CAST(42.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.0E0 AS DOUBLE)), ('band2', 1, CAST(2.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.25E0 AS DOUBLE), CAST(52.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.25E0 AS DOUBLE), CAST(42.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.25E0 AS DOUBLE)), ('band3', 0, CAST(3.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.0E0 AS DOUBLE), CAST(53.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.0E0 AS DOUBLE), CAST(43.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.0E0 AS DOUBLE)), ('band3', 1, CAST(3.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.25E0 AS DOUBLE), CAST(53.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.25E0 AS DOUBLE), CAST(43.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.25E0 AS DOUBLE)), ('band4', 0, CAST(4.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.0E0 AS DOUBLE), CAST(54.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.0E0 AS DOUBLE), CAST(44.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.0E0 AS DOUBLE)), ('band4', 1, CAST(4.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.25E0 AS DOUBLE), CAST(54.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.25E0 AS DOUBLE), CAST(44.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.25E0 AS DOUBLE)), ('band5', 0, CAST(5.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.0E0 AS DOUBLE), CAST(55.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.0E0 AS DOUBLE), CAST(45.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.0E0 AS DOUBLE)), ('band5', 1, CAST(5.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.25E0 AS DOUBLE), CAST(55.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.25E0 AS DOUBLE), CAST(45.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.25E0 AS DOUBLE)), ('band6', 0, CAST(6.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.0E0 AS DOUBLE), CAST(56.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.0E0 AS DOUBLE), CAST(46.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.0E0 AS DOUBLE)), ('band6', 1, CAST(6.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.25E0 AS DOUBLE), CAST(56.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.25E0 AS DOUBLE), CAST(46.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.25E0 AS DOUBLE)), ('band7', 0, CAST(7.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.0E0 AS DOUBLE), CAST(57.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.0E0 AS DOUBLE), CAST(47.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.0E0 AS DOUBLE)), ('band7', 1, CAST(7.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.25E0 AS DOUBLE), CAST(57.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.25E0 AS DOUBLE), CAST(47.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.25E0 AS DOUBLE)), ('band8', 0, CAST(8.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.0E0 AS DOUBLE), CAST(58.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.0E0 AS DOUBLE), CAST(48.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.0E0 AS DOUBLE)), ('band8', 1, CAST(8.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.25E0 AS DOUBLE), CAST(58.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.25E0 AS DOUBLE), CAST(48.0E0 AS DOUBLE), CAST(0.5E0 AS DOUBLE), CAST(-0.25E0 AS DOUBLE))) AS mt0_ (mt0_j0, mt0_j1, mt0_p0c0, mt0_p0c1, mt0_p0c2, mt0_p1c0, mt0_p1c1, mt0_p1c2, mt0_p2c0, mt0_p2c1, mt0_p2c2) ON k0 = mt0_j0 AND f = mt0_j1
               ) AS linear_
           ) AS raw_
       ) AS nuisance_

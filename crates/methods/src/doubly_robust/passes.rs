@@ -172,8 +172,7 @@ mod tests {
     }
 
     /// With more models than [`upshot_sql::design::JOINED_MODELS`] (9 segments × 2 folds),
-    /// DuckDB reads them from one joined table of the three families' coefficients; the other
-    /// dialects keep the nested `CASE`.
+    /// every dialect reads them from one joined table of the three families' coefficients.
     #[test]
     fn golden_augmented_pass_with_joined_models() {
         let many = |offset: f64| {
@@ -194,7 +193,7 @@ mod tests {
         for (dir, f, p) in each_flavor(&many, Estimand::Ate) {
             assert_eq!(
                 p.pass.sql().matches("LEFT JOIN (VALUES").count(),
-                usize::from(dir.starts_with("duckdb")),
+                1,
                 "{dir}"
             );
             golden::check(dir, &f, "augmented-joined", &p);
