@@ -27,7 +27,7 @@
 /// and calls the module's `passes` and `run` (and, with `first_pass_profiles`, the module's
 /// `prepare`, whose first pass is also the profile).
 macro_rules! estimator {
-    ($name:ident, $method:expr, first_pass_profiles) => {
+    ($name:ident, $method:expr $(, $own:ident)?) => {
         /// This module's estimator (registered in `ESTIMATORS`).
         pub(crate) struct $name;
 
@@ -35,16 +35,7 @@ macro_rules! estimator {
             fn method(&self) -> crate::Method {
                 $method
             }
-            fn profiles_in_first_pass(&self) -> bool {
-                true
-            }
-            fn prepare<'a>(
-                &self,
-                spec: &'a crate::Spec,
-                r: &mut dyn crate::Runner,
-            ) -> Result<crate::prepare::Setup<'a>, crate::MethodError> {
-                prepare(spec, r)
-            }
+            $(estimator!(@$own);)?
             fn passes(
                 &self,
                 s: &crate::prepare::Setup,
@@ -60,27 +51,16 @@ macro_rules! estimator {
             }
         }
     };
-    ($name:ident, $method:expr) => {
-        /// This module's estimator (registered in `ESTIMATORS`).
-        pub(crate) struct $name;
-
-        impl crate::Estimator for $name {
-            fn method(&self) -> crate::Method {
-                $method
-            }
-            fn passes(
-                &self,
-                s: &crate::prepare::Setup,
-            ) -> Result<Vec<upshot_sql::Pass>, crate::MethodError> {
-                passes(s)
-            }
-            fn run(
-                &self,
-                s: &crate::prepare::Setup,
-                r: &mut dyn crate::Runner,
-            ) -> Result<crate::Outcome, crate::MethodError> {
-                run(s, r)
-            }
+    (@first_pass_profiles) => {
+        fn profiles_in_first_pass(&self) -> bool {
+            true
+        }
+        fn prepare<'a>(
+            &self,
+            spec: &'a crate::Spec,
+            r: &mut dyn crate::Runner,
+        ) -> Result<crate::prepare::Setup<'a>, crate::MethodError> {
+            prepare(spec, r)
         }
     };
 }

@@ -239,14 +239,7 @@ pub fn binned_cells(
     items.push(format!("SUM({yf} * {yf}) AS syy"));
     let w = not_null(&mut t, &used);
     let mut sql = format!("SELECT {} FROM __src AS src WHERE {w}", items.join(", "));
-    if !ks.is_empty() {
-        let order: Vec<String> = (1..=ks.len()).map(|i| i.to_string()).collect();
-        sql.push_str(&format!(
-            " GROUP BY {} ORDER BY {}",
-            ks.join(", "),
-            order.join(", ")
-        ));
-    }
+    sql.push_str(&grouped_by(&ks));
     t.sql = sql;
     Ok(Built {
         pass: Pass {
@@ -265,6 +258,19 @@ pub fn binned_cells(
         },
         layout: CellsLayout { keys: keys.len() },
     })
+}
+
+/// ` GROUP BY` the keys and ` ORDER BY` their positions (nothing without keys).
+fn grouped_by(keys: &[String]) -> String {
+    if keys.is_empty() {
+        return String::new();
+    }
+    let order: Vec<String> = (1..=keys.len()).map(|i| i.to_string()).collect();
+    format!(
+        " GROUP BY {} ORDER BY {}",
+        keys.join(", "),
+        order.join(", ")
+    )
 }
 
 /// The cell table that is its own profile: per combination of `keys` over every row the user's
@@ -319,11 +325,9 @@ pub fn profiled_cells(
         items.join(", ")
     );
     if !ks.is_empty() {
-        let order: Vec<String> = (1..=ks.len()).map(|i| i.to_string()).collect();
         sql.push_str(&format!(
-            " GROUP BY {} ORDER BY {} LIMIT {}",
-            ks.join(", "),
-            order.join(", "),
+            "{} LIMIT {}",
+            grouped_by(&ks),
             max_cells.saturating_add(1)
         ));
     }
