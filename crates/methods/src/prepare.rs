@@ -631,13 +631,16 @@ fn key_facts(spec: &Spec, name: &str, cells: &[ProfiledCell], i: usize) -> Profi
     } else {
         0.0
     };
+    // Up to `MAX_CELLS` groups: a hash set, by the bits of a number (+0 for −0) or the text.
     let distinct = if counts_distinct(spec, name) {
-        let mut seen: Vec<&Cell> = Vec::new();
-        for (k, _) in &present {
-            if !seen.contains(k) {
-                seen.push(k);
-            }
-        }
+        let seen: std::collections::HashSet<(u64, Option<&str>)> = present
+            .iter()
+            .map(|(k, _)| match k {
+                Cell::Number(x) => ((x + 0.0).to_bits(), None),
+                Cell::Text(t) => (0, Some(t.as_str())),
+                Cell::Null => (0, None),
+            })
+            .collect();
         seen.len() as f64
     } else {
         0.0

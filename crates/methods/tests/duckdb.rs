@@ -298,7 +298,7 @@ fn stratify_profiles_in_its_cell_table() {
     // A categorical stratum with a level per row: more cells than the table may have.
     let wide = Source::query(
         "SELECT CAST(i AS VARCHAR) AS spend_30d, i % 2 AS voucher, 1.0 * i AS prior_orders, \
-         'a' AS zone, 'x' AS tenure_band FROM range(250000) AS r(i)",
+         'a' AS zone, 'x' AS tenure_band, 1.0 * (i % 3) AS zone_code FROM range(250000) AS r(i)",
         &DuckDb,
     )
     .unwrap();
@@ -306,5 +306,13 @@ fn stratify_profiles_in_its_cell_table() {
     (s.outcome, s.adjust) = ("prior_orders".into(), vec!["spend_30d".into()]);
     s.categorical = vec!["spend_30d".into()];
     let refused = estimate(&s, &mut run).unwrap_err().to_string();
-    assert!(refused.contains("more than 200000 cells"), "{refused}");
+    assert!(refused.contains("more than 200000 cells"), "{refused}"); // A numeric stratum with a value per row: refused by its distinct values, counted in
+                                                                      // the truncated table (a bound from below).
+    let mut s = spec(&wide, Method::Stratify, NullPolicy::Exclude);
+    (s.outcome, s.adjust) = ("zone_code".into(), vec!["prior_orders".into()]);
+    let refused = estimate(&s, &mut run).unwrap_err().to_string();
+    assert!(
+        refused.contains("`prior_orders` has at least") && refused.contains("distinct values"),
+        "{refused}"
+    );
 }

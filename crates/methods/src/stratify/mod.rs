@@ -48,7 +48,7 @@ pub(crate) fn passes(s: &Setup) -> Result<Vec<Pass>, MethodError> {
 fn too_many_values(c: &str, distinct: f64, more: bool) -> MethodError {
     MethodError::Input(format!(
         "adjustment column `{c}` has {}{distinct} distinct values: stratify needs discrete strata (at most {MAX_STRATUM_VALUES}). Use --method regress, weight or doubly-robust, or bin `{c}` in a source query",
-        if more { "more than " } else { "" }
+        if more { "at least " } else { "" }
     ))
 }
 
