@@ -306,8 +306,9 @@ fn stratify_profiles_in_its_cell_table() {
     (s.outcome, s.adjust) = ("prior_orders".into(), vec!["spend_30d".into()]);
     s.categorical = vec!["spend_30d".into()];
     let refused = estimate(&s, &mut run).unwrap_err().to_string();
-    assert!(refused.contains("more than 200000 cells"), "{refused}"); // A numeric stratum with a value per row: refused by its distinct values, counted in
-                                                                      // the truncated table (a bound from below).
+    assert!(refused.contains("more than 200000 cells"), "{refused}");
+    // A numeric stratum with a value per row: refused by its distinct values, counted in the
+    // truncated table (a bound from below).
     let mut s = spec(&wide, Method::Stratify, NullPolicy::Exclude);
     (s.outcome, s.adjust) = ("zone_code".into(), vec!["prior_orders".into()]);
     let refused = estimate(&s, &mut run).unwrap_err().to_string();

@@ -7,7 +7,7 @@
 //! own, and is also the profile (counts, NULLs, the treatment's values, distinct strata), so no
 //! profile pass runs before it.
 
-use crate::prepare::{cell_facts, check_schema, prepare_from, Facts, Setup};
+use crate::prepare::{cell_facts, check_schema, prepare_from, Setup};
 use crate::{ask_unchecked, MethodError, Outcome, Runner, Spec};
 use upshot_sql::{profiled_cells, Built, CellsLayout, Pass, ProfiledCellsLayout};
 
@@ -62,7 +62,7 @@ pub(crate) fn prepare<'a>(spec: &'a Spec, r: &mut dyn Runner) -> Result<Setup<'a
         .map(|row| cp.layout.cell(&a, row))
         .collect::<Result<Vec<_>, _>>()?;
     let keys = keys(spec);
-    let facts: Facts = cell_facts(spec, &keys, &spec.outcome, &cells);
+    let facts = cell_facts(spec, &keys, &spec.outcome, &cells);
     let truncated = a.rows.len() as u64 > MAX_CELLS;
     for c in &crate::prepare::modelled(spec) {
         if let Some(p) = facts.columns.iter().find(|p| &p.name == c) {
