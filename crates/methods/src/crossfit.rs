@@ -6,7 +6,9 @@ use crate::prepare::{needs_folds, Setup};
 use crate::read::{by_segment, logit_sums, moments};
 use crate::MethodError;
 use upshot_fit::{LogitSums, Moments};
-use upshot_sql::{Aggregates, Built, Design, Fold, GramLayout, Key, KeyValue, LogisticLayout};
+use upshot_sql::{
+    Aggregates, Built, Design, Fold, GramLayout, Key, KeyValue, LogisticGramLayout, LogisticLayout,
+};
 
 /// Folds actually used (1 when cross-fitting is off).
 pub(crate) fn folds(s: &Setup) -> u32 {
@@ -170,40 +172,72 @@ fn add_logit_sums(a: LogitSums, b: &LogitSums) -> LogitSums {
 /// A segment's key values and, per held-out fold, the moments of each arm outside the fold.
 pub(crate) type Complements = (Vec<KeyValue>, Vec<[Option<Moments>; 2]>);
 
+/// Where the rows of a pass with Gram sums keep their fold and arm.
+#[derive(Clone, Copy, Debug)]
+pub(crate) enum GramRows<'a> {
+    /// A pass over [`gram_design`]: after the segments, the fold (when cross-fitting) and, with
+    /// `by_arm`, the arm are group keys.
+    Keyed(&'a GramLayout, bool),
+    /// A propensity pass the Gram sums rode in: fold `f`, arm `t`.
+    Riding(&'a LogisticGramLayout),
+}
+
+impl GramRows<'_> {
+    fn layout(&self) -> &GramLayout {
+        match self {
+            GramRows::Keyed(layout, _) => layout,
+            GramRows::Riding(both) => &both.gram,
+        }
+    }
+
+    /// The fold (0 without cross-fitting) and arm (0 without arms) of result row `row`.
+    fn place(&self, s: &Setup, g: &Aggregates, row: usize) -> Result<(usize, usize), MethodError> {
+        let nseg = s.spec.segments.len();
+        let crossfit = needs_folds(s.spec);
+        Ok(match self {
+            GramRows::Keyed(layout, by_arm) => {
+                let key = layout.keys(g, row)?;
+                let j = match (crossfit, key.get(nseg)) {
+                    (true, Some(KeyValue::Number(x))) => *x as usize,
+                    _ => 0,
+                };
+                let arm = *by_arm && key.last() == Some(&KeyValue::Number(1.0));
+                (j, usize::from(arm))
+            }
+            GramRows::Riding(both) => (
+                both.logistic.fold(g, row)?,
+                usize::from(both.treated_arm(g, row)?),
+            ),
+        })
+    }
+}
+
 /// Per segment, per held-out fold: the moments of the rows outside that fold (all rows when
-/// cross-fitting is off), for each group value of the last key when `by_arm`.
+/// cross-fitting is off), for each arm where the rows have arms.
 pub(crate) fn complement_moments(
     s: &Setup,
-    layout: &GramLayout,
+    rows_of: GramRows,
     g: &Aggregates,
     names: &[String],
     terms: &[upshot_sql::DesignTerm],
-    by_arm: bool,
 ) -> Result<Vec<Complements>, MethodError> {
     let nseg = s.spec.segments.len();
     let k = folds(s) as usize;
     let crossfit = needs_folds(s.spec);
+    let layout = rows_of.layout();
     let mut out = Vec::new();
     for (seg, rows) in by_segment(g, nseg)? {
         // per fold, per arm
         let mut fold_m: Vec<[Option<Moments>; 2]> = vec![[None, None]; k];
         let mut total: [Option<Moments>; 2] = [None, None];
         for row in rows {
-            // The Gram design's keys: the segments, the fold when cross-fitting, the arm.
-            let key = layout.keys(g, row)?;
-            let j = if crossfit {
-                match key[nseg] {
-                    KeyValue::Number(x) => x as usize,
-                    _ => 0,
-                }
-            } else {
-                0
-            };
-            let arm = if by_arm {
-                usize::from(key[key.len() - 1] == KeyValue::Number(1.0))
-            } else {
-                0
-            };
+            let (j, arm) = rows_of.place(s, g, row)?;
+            if j >= k {
+                return Err(MethodError::Engine(format!(
+                    "the {} pass returned fold {j} of {k}",
+                    g.pass
+                )));
+            }
             let m = moments(layout, g, row, names, terms)?;
             total[arm] = Some(match total[arm].take() {
                 None => m.clone(),

@@ -123,3 +123,30 @@ fn golden_crossfit_logistic_passes() {
         }
     }
 }
+
+/// The propensity's first Newton pass grouped by fold and arm, with the outcome models' Gram
+/// sums riding in it (`doubly-robust`).
+#[test]
+fn golden_logistic_pass_with_gram() {
+    use upshot_sql::{logistic_fits_with_gram, Source, Variants};
+    let src = Source::table("customers").unwrap();
+    let outcome = DesignTerm::Numeric {
+        column: "spend_30d".into(),
+        centre: 40.0,
+        scale: 12.0,
+    };
+    for (dir, f) in flavors() {
+        let p = logistic_fits_with_gram(
+            &f,
+            &src,
+            None,
+            &fold_design(),
+            &Models::single(vec![0.1, 0.2, 0.3]),
+            Variants::ByFold,
+            std::slice::from_ref(&outcome),
+        )
+        .unwrap();
+        assert_eq!(p.layout.gram.terms, 3, "{dir}");
+        check(dir, &f, "logistic-by-fold-gram", &p);
+    }
+}

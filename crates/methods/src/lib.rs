@@ -769,9 +769,13 @@ pub(crate) mod tests {
         let s = spec(Method::DoublyRobust);
         assert!(!s.cross_fits());
         let passes = plan(&s).unwrap();
-        // profile, Gram, one propensity Newton step (repeated), augmented scores.
+        // profile, the first propensity Newton step with the outcome models' Gram sums, the
+        // next steps (repeated), augmented scores.
         let names: Vec<&str> = passes.iter().map(|p| p.name.as_str()).collect();
-        assert_eq!(names, ["profile", "gram", "logistic-step", "scores"]);
+        assert_eq!(
+            names,
+            ["profile", "logistic-step-gram", "logistic-step", "scores"]
+        );
         let mut with_unit = spec(Method::DoublyRobust);
         with_unit.unit = Some("id".into());
         assert!(with_unit.cross_fits());

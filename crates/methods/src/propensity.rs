@@ -7,14 +7,15 @@ use crate::combine::segment_label;
 use crate::crossfit::{fit_label, fold_sum, folds, row_design, rows_by_fold, segment_row_design};
 use crate::models::{fold_models, per_segment};
 use crate::prepare::{needs_folds, Setup};
-use crate::read::{by_segment, logit_sums, row_of};
+use crate::read::{by_segment, logit_sums};
 use crate::{ask, MethodError, Runner};
 use upshot_fit::{
     fixed_curvature_settled, logit_many, logit_many_from, relative_step, FitError, Logit,
     LogitSums, NewtonOptions,
 };
 use upshot_sql::{
-    logistic_fits, Aggregates, Built, First, KeyValue, LogisticLayout, Models, Source, Variants,
+    logistic_fits, logistic_fits_with_gram, Aggregates, Built, DesignTerm, First, KeyValue,
+    LogisticGramLayout, LogisticLayout, Models, Source, Variants,
 };
 
 pub(crate) fn param_names(s: &Setup) -> Vec<String> {
@@ -294,6 +295,74 @@ pub(crate) fn by_fold_pass(
     row_logistic(s, models, Variants::ByFold)
 }
 
+/// The first Newton step of each segment's fit on all its rows (grouped by fold when
+/// cross-fitting), grouped by arm as well and carrying the Gram sums of the covariates and the
+/// `more` terms per arm: the outcome models' Gram pass in the propensity's first scan.
+pub(crate) fn first_pass_with_gram(
+    s: &Setup,
+    models: &Models,
+    more: &[DesignTerm],
+) -> Result<Built<LogisticGramLayout>, MethodError> {
+    let spec = s.spec;
+    let variants = match needs_folds(spec) {
+        true => Variants::ByFold,
+        false => Variants::Single,
+    };
+    Ok(logistic_fits_with_gram(
+        &spec.flavor,
+        &spec.source,
+        s.filter.as_ref(),
+        &row_design(s),
+        models,
+        variants,
+        more,
+    )?)
+}
+
+/// The propensity's first pass over all rows, which also carried the outcome models' Gram
+/// sums ([`first_pass_with_gram`]).
+pub(crate) struct Started {
+    /// The segments, in the pass's order.
+    pub segs: Vec<Vec<KeyValue>>,
+    /// Its result rows: one per segment, fold and arm.
+    pub sums: Aggregates,
+    pub layout: LogisticGramLayout,
+    /// The coefficients each segment's fit was evaluated at; `None` when a segment had no
+    /// model in the pass (the warm start's sample lacked it), so the fit starts over from zero.
+    starts: Option<Vec<Vec<f64>>>,
+}
+
+/// Runs [`first_pass_with_gram`] from the warm start where there is one, from zero otherwise.
+pub(crate) fn start_with_gram(
+    s: &Setup,
+    r: &mut dyn Runner,
+    more: &[DesignTerm],
+) -> Result<Started, MethodError> {
+    let k = s.terms.len() + 1;
+    let warm = warm_start(s, r)?;
+    let models = match &warm {
+        Some(w) => per_segment(&w.segs, &w.starts(&w.segs, k)),
+        None => Models::single(vec![0.0; k]),
+    };
+    let pass = first_pass_with_gram(s, &models, more)?;
+    let sums = ask(r, &pass)?;
+    let segs: Vec<Vec<KeyValue>> = by_segment(&sums, s.spec.segments.len())?
+        .into_iter()
+        .map(|x| x.0)
+        .collect();
+    let starts = match &warm {
+        Some(w) if segs.iter().all(|key| w.segs.contains(key)) => Some(w.starts(&segs, k)),
+        Some(_) => None,
+        None => Some(vec![vec![0.0; k]; segs.len()]),
+    };
+    Ok(Started {
+        segs,
+        sums,
+        layout: pass.layout,
+        starts,
+    })
+}
+
 /// Scores of the fold-leaving-out fits.
 pub(crate) fn scores_pass_only(
     s: &Setup,
@@ -304,26 +373,50 @@ pub(crate) fn scores_pass_only(
 
 /// Propensity models per segment and held-out fold by Newton's method, all side by side in
 /// the same passes (each pass carries every model's information matrix).
+/// Without cross-fitting, `first` is the first pass of these fits (one per segment).
 fn newton_complements(
     s: &Setup,
     r: &mut dyn Runner,
     segs: &[Vec<KeyValue>],
+    first: Option<Started>,
 ) -> Result<Vec<Vec<Vec<f64>>>, MethodError> {
     let spec = s.spec;
     let k = folds(s) as usize;
     let param = param_names(s);
-    let fits = logit_many(
+    let kp = s.terms.len() + 1;
+    let (starts, mut cached) = match first {
+        Some(Started {
+            sums,
+            layout,
+            starts: Some(starts),
+            ..
+        }) if !needs_folds(spec) => (starts, Some((sums, layout.logistic))),
+        _ => (vec![vec![0.0; kp]; segs.len() * k], None),
+    };
+    let fits = logit_many_from(
         &param,
-        segs.len() * k,
+        starts,
         |flat| {
-            let coef: Vec<Vec<Vec<f64>>> = flat.chunks(k).map(|c| c.to_vec()).collect();
-            let pass = complement_pass(s, &fold_models(s, segs, &coef))?;
-            let a = ask(r, &pass)?;
-            let layout = &pass.layout;
+            let (a, layout) = match cached.take() {
+                Some(x) => x,
+                None => {
+                    let coef: Vec<Vec<Vec<f64>>> = flat.chunks(k).map(|c| c.to_vec()).collect();
+                    let pass = complement_pass(s, &fold_models(s, segs, &coef))?;
+                    (ask(r, &pass)?, pass.layout)
+                }
+            };
+            let layout = &layout;
             let mut out: Vec<LogitSums> = Vec::new();
             for seg in segs {
                 if !needs_folds(spec) {
-                    out.push(logit_sums(layout, &a, row_of(&a, seg)?, None)?);
+                    // A segment's rows: one, or one per arm in the first pass.
+                    out.push(fold_sum(
+                        layout,
+                        &a,
+                        &rows_by_fold(layout, &a, seg)?,
+                        None,
+                        None,
+                    )?);
                     continue;
                 }
                 // One row per fold of the segment; fit j adds up the rows of the other folds.
@@ -373,29 +466,37 @@ const SHARED_CURVATURE_PASSES: usize = 30;
 fn shared_curvature_complements(
     s: &Setup,
     r: &mut dyn Runner,
-    segs: &[Vec<KeyValue>],
+    first: Started,
 ) -> Result<Option<Vec<Vec<Vec<f64>>>>, MethodError> {
     let kp = s.terms.len() + 1;
     let k = folds(s) as usize;
-    // Each segment's model on all its rows, by Newton, with the sums grouped by fold.
+    let segs = &first.segs;
+    // Each segment's model on all its rows, by Newton, with the sums grouped by fold; the
+    // first pass (grouped by arm too) is the one the Gram sums rode in, unless a segment had
+    // no model there.
     let names = param_names(s);
-    let starts = match warm_start(s, r)? {
-        Some(w) => w.starts(segs, kp),
-        None => vec![vec![0.0; kp]; segs.len()],
+    let (starts, mut cached) = match first.starts {
+        Some(starts) => (starts, Some((first.sums, first.layout.logistic))),
+        None => (vec![vec![0.0; kp]; segs.len()], None),
     };
     let mut last: Option<(Aggregates, LogisticLayout)> = None;
     let full = logit_many_from(
         &names,
         starts,
         |coefs| {
-            let pass = by_fold_pass(s, &per_segment(segs, coefs))?;
-            let a = ask(r, &pass)?;
+            let (a, layout) = match cached.take() {
+                Some(x) => x,
+                None => {
+                    let pass = by_fold_pass(s, &per_segment(segs, coefs))?;
+                    (ask(r, &pass)?, pass.layout)
+                }
+            };
             let mut out = Vec::new();
             for seg in segs {
-                let rows = rows_by_fold(&pass.layout, &a, seg)?;
-                out.push(fold_sum(&pass.layout, &a, &rows, None, None)?);
+                let rows = rows_by_fold(&layout, &a, seg)?;
+                out.push(fold_sum(&layout, &a, &rows, None, None)?);
             }
-            last = Some((a, pass.layout));
+            last = Some((a, layout));
             Ok::<_, MethodError>(out)
         },
         NewtonOptions::default(),
@@ -472,15 +573,18 @@ fn shared_curvature_complements(
 /// The propensity models per segment and held-out fold (one per segment without
 /// cross-fitting): stepped from each segment's full fit with a fixed curvature where that
 /// settles, by Newton passes otherwise.
+/// `first` is the first pass of each segment's fit ([`start_with_gram`]).
 pub(crate) fn cross_fitted_propensity(
     s: &Setup,
     r: &mut dyn Runner,
-    segs: &[Vec<KeyValue>],
+    first: Started,
 ) -> Result<Vec<Vec<Vec<f64>>>, MethodError> {
+    let segs = first.segs.clone();
     if needs_folds(s.spec) {
-        if let Some(c) = shared_curvature_complements(s, r, segs)? {
+        if let Some(c) = shared_curvature_complements(s, r, first)? {
             return Ok(c);
         }
+        return newton_complements(s, r, &segs, None);
     }
-    newton_complements(s, r, segs)
+    newton_complements(s, r, &segs, Some(first))
 }

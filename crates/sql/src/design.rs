@@ -762,6 +762,9 @@ pub struct Products {
     /// Per output: alias, the summand written out (for plain `SUM`s), and `(i, j)`, `i ≤ j`,
     /// indices into `z`.
     pub(crate) entries: Vec<(String, String, usize, usize)>,
+    /// The design terms `z` spans (`v0 .. v{terms-1}`): all of the design's, or its first ones
+    /// when a pass sums products of a shorter vector too.
+    pub(crate) terms: usize,
 }
 
 impl Out {
@@ -832,14 +835,21 @@ fn aggregate(f: &Flavor, k: usize, keys: &[String], outs: &[Out], from: &str) ->
                 inner.push(format!("{expr} AS {alias}"));
                 outer.push(alias.clone());
             }
+            Out::Products(p) if p.terms == 0 => {
+                // A block over the intercept alone (a shorter vector of no terms): one sum.
+                for (alias, summand, _, _) in &p.entries {
+                    inner.push(format!("SUM({summand}) AS {alias}"));
+                    outer.push(alias.clone());
+                }
+            }
             Out::Products(p) => {
                 inner.push(format!(
                     "{function}({}, {}) AS moments{block}",
                     p.weight,
-                    vs.join(", ")
+                    vs[..p.terms].join(", ")
                 ));
                 for (alias, _, i, j) in &p.entries {
-                    let at = upper_at(*i, *j, width);
+                    let at = upper_at(*i, *j, p.terms + 1);
                     outer.push(format!(
                         "{} AS {alias}",
                         f.dialect.list_element(&format!("moments{block}"), at)
@@ -901,6 +911,7 @@ pub fn products_of(weight: &str, prefix: &str, k: usize) -> Products {
     Products {
         weight: weight.to_string(),
         entries,
+        terms: k,
     }
 }
 

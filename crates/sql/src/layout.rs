@@ -148,8 +148,11 @@ impl LogisticLayout {
     pub fn treated(&self, a: &Aggregates, row: usize) -> Result<f64, ResultError> {
         a.number(row, "n1")
     }
-    /// The row's fold (fold-grouped passes).
+    /// The row's fold (0 in a pass not grouped by fold).
     pub fn fold(&self, a: &Aggregates, row: usize) -> Result<usize, ResultError> {
+        if !self.by_fold {
+            return Ok(0);
+        }
         Ok(a.number(row, "f")? as usize)
     }
     /// The sums of fit `fit`: `None` for the single fit, `Some(m)` for the cross-fitting fit
@@ -181,6 +184,24 @@ impl LogisticLayout {
             min_p: a.number_or(row, &format!("{pre}min_p"), 0.5)?,
             max_p: a.number_or(row, &format!("{pre}max_p"), 0.5)?,
         })
+    }
+}
+
+/// The layout of a logistic pass grouped by arm that carries Gram sums
+/// ([`crate::logistic_fits_with_gram`]): its rows read as a logistic pass's (a group's fit
+/// adds up its rows) and as a Gram pass's, each row one arm of its group.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct LogisticGramLayout {
+    /// The logistic sums.
+    pub logistic: LogisticLayout,
+    /// The Gram sums (its keys are the design's, without the fold and the arm).
+    pub gram: GramLayout,
+}
+
+impl LogisticGramLayout {
+    /// The row's arm: whether its `t` is 1.
+    pub fn treated_arm(&self, a: &Aggregates, row: usize) -> Result<bool, ResultError> {
+        Ok(a.number(row, "t")? == 1.0)
     }
 }
 

@@ -44,12 +44,13 @@ pub use error::SqlError;
 pub use filter::FUNCTIONS as FILTER_FUNCTIONS;
 pub use layout::{
     group_keys, Built, CellsLayout, Cuts, CutsLayout, GramLayout, LevelRow, LevelsLayout,
-    LogisticLayout, LogisticRow, NonFinite, NonFiniteLayout, ProfileColumn, ProfileLayout,
-    ProfiledCell, ProfiledCellsLayout, ProfiledColumn, ResidualLayout,
+    LogisticGramLayout, LogisticLayout, LogisticRow, NonFinite, NonFiniteLayout, ProfileColumn,
+    ProfileLayout, ProfiledCell, ProfiledCellsLayout, ProfiledColumn, ResidualLayout,
 };
 pub use passes::{
-    binned_cells, cells, gram, levels, logistic_fits, nonfinite, profile, profiled_cells,
-    quantile_cuts, residuals, residuals_and_pooled, schema_probe, CellKey, Variants,
+    binned_cells, cells, gram, levels, logistic_fits, logistic_fits_with_gram, nonfinite, profile,
+    profiled_cells, quantile_cuts, residuals, residuals_and_pooled, schema_probe, CellKey,
+    Variants,
 };
 pub use results_table::{
     results_schema_file, results_sql, rows_table_sql, ResultsSql, RESULT_COLUMNS,

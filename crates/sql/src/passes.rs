@@ -4,14 +4,14 @@
 //! `upshot-methods`), built from the same kit ([`crate::design`]).
 
 use crate::design::{
-    factor, not_null, predictor, products_of, Design, KeyValue, Model, Models, Out, Pass, PassText,
-    Products, Selector, SIGMOID,
+    factor, not_null, predictor, products_of, Design, DesignTerm, KeyValue, Model, Models, Out,
+    Pass, PassText, Products, Selector, SIGMOID,
 };
 use crate::dialect::Flavor;
 use crate::error::SqlError;
 use crate::layout::{
-    Built, CellsLayout, CutsLayout, GramLayout, LevelsLayout, LogisticLayout, NonFiniteLayout,
-    ProfileColumn, ProfileLayout, ProfiledCellsLayout, ResidualLayout,
+    Built, CellsLayout, CutsLayout, GramLayout, LevelsLayout, LogisticGramLayout, LogisticLayout,
+    NonFiniteLayout, ProfileColumn, ProfileLayout, ProfiledCellsLayout, ResidualLayout,
 };
 use crate::source::Source;
 use crate::template::Bind;
@@ -357,22 +357,7 @@ pub fn gram(
     let mut t = PassText::new(flavor);
     let rows = design.rows(&mut t)?;
     let k = design.terms.len();
-    let mut entries = Vec::new();
-    for i in 0..k {
-        entries.push((format!("s{i}"), format!("v{i}"), 0, i + 1));
-    }
-    for i in 0..k {
-        for j in i..k {
-            entries.push((format!("g{i}_{j}"), format!("v{i} * v{j}"), i + 1, j + 1));
-        }
-    }
-    let outs = [
-        Out::plain("COUNT(*)", "n"),
-        Out::Products(Products {
-            weight: "1.0".into(),
-            entries,
-        }),
-    ];
+    let outs = [Out::plain("COUNT(*)", "n"), gram_sums(k)];
     t.sql = t.aggregate(k, &design.key_names(), &outs, &format!("({rows}) AS rows_"));
     Ok(Built {
         pass: Pass {
@@ -384,6 +369,25 @@ pub fn gram(
             keys: design.keys.len(),
             terms: k,
         },
+    })
+}
+
+/// The centred Gram sums of `k` design terms: `s{i} = Σ v_i` and `g{i}_{j} = Σ v_i v_j`
+/// (`i ≤ j`), read by [`GramLayout`] (with `n`, the group's `COUNT(*)`).
+fn gram_sums(k: usize) -> Out {
+    let mut entries = Vec::new();
+    for i in 0..k {
+        entries.push((format!("s{i}"), format!("v{i}"), 0, i + 1));
+    }
+    for i in 0..k {
+        for j in i..k {
+            entries.push((format!("g{i}_{j}"), format!("v{i} * v{j}"), i + 1, j + 1));
+        }
+    }
+    Out::Products(Products {
+        weight: "1.0".into(),
+        entries,
+        terms: k,
     })
 }
 
@@ -432,9 +436,62 @@ pub fn logistic_fits(
     models: &Models,
     variants: Variants,
 ) -> Result<Built<LogisticLayout>, SqlError> {
+    let (pass, layout) = logistic_pass(flavor, source, filter, design, models, variants, None)?;
+    Ok(Built { pass, layout })
+}
+
+/// A Newton step of one logistic fit per group ([`Variants::Single`] or [`Variants::ByFold`],
+/// as [`logistic_fits`]) grouped by the 0/1 extra `t` as well, that also returns per group the
+/// centred Gram sums `s{i}`, `g{i}_{j}` of the design's terms followed by the `more` terms
+/// (the sums of [`gram`]; `n` is shared): the Gram pass of per-arm outcome models riding in a
+/// propensity model's Newton pass, one scan for both. A fit's sums are those of its group's
+/// arms added up.
+pub fn logistic_fits_with_gram(
+    flavor: &Flavor,
+    source: &Source,
+    filter: Option<&Expr>,
+    design: &Design,
+    models: &Models,
+    variants: Variants,
+    more: &[DesignTerm],
+) -> Result<Built<LogisticGramLayout>, SqlError> {
+    assert!(
+        variants.complement().is_none(),
+        "the Gram sums ride in a pass of one fit per group"
+    );
+    let (pass, logistic) =
+        logistic_pass(flavor, source, filter, design, models, variants, Some(more))?;
+    let gram = GramLayout {
+        keys: design.keys.len(),
+        terms: design.terms.len() + more.len(),
+    };
+    Ok(Built {
+        pass,
+        layout: LogisticGramLayout { logistic, gram },
+    })
+}
+
+/// The pass of [`logistic_fits`], grouped by arm with the Gram sums of the design's terms and
+/// `gram` when that is given ([`logistic_fits_with_gram`]).
+fn logistic_pass(
+    flavor: &Flavor,
+    source: &Source,
+    filter: Option<&Expr>,
+    design: &Design,
+    models: &Models,
+    variants: Variants,
+    gram: Option<&[DesignTerm]>,
+) -> Result<(Pass, LogisticLayout), SqlError> {
     let mut t = PassText::new(flavor);
-    let rows = design.rows(&mut t)?;
     let k = design.terms.len();
+    let rows = match gram {
+        None => design.rows(&mut t)?,
+        Some(more) => {
+            let mut wide = design.clone();
+            wide.terms.extend(more.iter().cloned());
+            wide.rows(&mut t)?
+        }
+    };
     let mut keys = design.key_names();
     if variants.complement().is_some() || variants == Variants::ByFold {
         assert!(
@@ -442,6 +499,9 @@ pub fn logistic_fits(
             "grouping by fold needs the design's fold"
         );
         keys.push("f".into());
+    }
+    if gram.is_some() {
+        keys.push("t".into());
     }
     let mut outs = vec![Out::plain("COUNT(*)", "n"), Out::plain("SUM(t)", "n1")];
     let mut etas = Vec::new();
@@ -506,13 +566,18 @@ pub fn logistic_fits(
         outs.push(Out::plain(format!("MIN({p})"), format!("{pre}min_p")));
         outs.push(Out::plain(format!("MAX({p})"), format!("{pre}max_p")));
     }
+    let mut width = k;
+    if let Some(more) = gram {
+        width += more.len();
+        outs.push(gram_sums(width));
+    }
     let from = format!(
         "(SELECT *, {} FROM (SELECT *, {} FROM {}) AS linear_) AS fitted_",
         probs.join(", "),
         etas.join(", "),
         t.rows_table(&rows, "rows_"),
     );
-    t.sql = t.aggregate(k, &keys, &outs, &from);
+    t.sql = t.aggregate(width, &keys, &outs, &from);
     let layout = LogisticLayout {
         keys: design.keys.len(),
         width: k + 1,
@@ -524,30 +589,33 @@ pub fn logistic_fits(
         Variants::ByFold => ", per fold".to_string(),
         Variants::Complement(k) => format!(", {k} cross-fitting fits (each leaving one fold out)"),
         Variants::ComplementScores(k) => {
-            return Ok(Built {
-                pass: Pass {
-                    name: "logistic-scores".into(),
-                    purpose: format!(
-                        "scores of {k} cross-fitting propensity fits (each leaving one fold out) at their current coefficients{}, per fold; each fit steps with a fixed curvature matrix",
-                        design.per()
-                    ),
-                    query: t.query(source, filter)?,
-                },
-                layout,
-            })
+            let pass = Pass {
+                name: "logistic-scores".into(),
+                purpose: format!(
+                    "scores of {k} cross-fitting propensity fits (each leaving one fold out) at their current coefficients{}, per fold; each fit steps with a fixed curvature matrix",
+                    design.per()
+                ),
+                query: t.query(source, filter)?,
+            };
+            return Ok((pass, layout));
         }
     };
-    Ok(Built {
-        pass: Pass {
-            name: "logistic-step".into(),
-            purpose: format!(
-                "one Newton step of the propensity model: score, information and log-likelihood at the current coefficients{}{what}",
-                design.per()
-            ),
-            query: t.query(source, filter)?,
-        },
-        layout,
-    })
+    let (name, what) = match gram {
+        None => ("logistic-step", what),
+        Some(_) => (
+            "logistic-step-gram",
+            format!("{what}, per arm; and the centred Gram matrix of {width} terms per arm"),
+        ),
+    };
+    let pass = Pass {
+        name: name.into(),
+        purpose: format!(
+            "one Newton step of the propensity model: score, information and log-likelihood at the current coefficients{}{what}",
+            design.per()
+        ),
+        query: t.query(source, filter)?,
+    };
+    Ok((pass, layout))
 }
 
 /// Residual moments of per-group linear models of the extra `y`: with each row's model

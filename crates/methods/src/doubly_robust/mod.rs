@@ -1,20 +1,22 @@
 //! `doubly-robust`: augmented inverse probability weighting (Robins, Rotnitzky & Zhao 1994)
 //! with K-fold cross-fitting (Chernozhukov et al. 2018). The nuisances are a logistic
 //! propensity and per-arm linear outcome models; the models used for the rows of fold k are
-//! fitted on every other fold. For the outcome models that costs no extra scan: one Gram pass
-//! grouped by fold gives each fold's sums, and "all but fold k" is the total minus fold k. The
-//! K propensity fits run side by side in the same Newton passes. The standard error comes
+//! fitted on every other fold. For the outcome models that costs no scan of their own: their
+//! Gram sums, per fold and arm, ride in the propensity's first Newton pass (grouped by arm as
+//! well), and "all but fold k" is the total minus fold k. The K propensity fits step from each
+//! segment's fit on all its rows, side by side in the same passes. The standard error comes
 //! from the influence function (the score's sample variance).
 
 mod passes;
 
 use crate::combine::{finish, segment_label, Part};
-use crate::crossfit::{complement_moments, fit_label, folds, gram_pass, row_design};
+use crate::crossfit::{complement_moments, fit_label, folds, row_design, GramRows};
 use crate::models::{fold_models, per_segment, placeholder};
 use crate::outcome::fit_arm;
 use crate::prepare::{needs_folds, Setup};
 use crate::propensity::{
-    by_fold_pass, check_arms, clipping, complement_pass, cross_fitted_propensity, scores_pass_only,
+    by_fold_pass, check_arms, clipping, complement_pass, cross_fitted_propensity,
+    first_pass_with_gram, scores_pass_only, start_with_gram,
 };
 use crate::read::row_of;
 use crate::{ask, MethodError, Outcome, Runner};
@@ -46,18 +48,20 @@ fn scores_pass(
 pub(crate) fn passes(s: &Setup) -> Result<Vec<Pass>, MethodError> {
     let (segs, coef) = placeholder(s);
     let m = fold_models(s, &segs, &coef);
+    // The propensity's first Newton pass, with the outcome models' Gram sums riding in it.
+    let whole = per_segment(&segs, &vec![vec![0.0; s.terms.len() + 1]; segs.len()]);
+    let first = first_pass_with_gram(s, &whole, std::slice::from_ref(&s.outcome_term))?.pass;
     if !needs_folds(s.spec) {
         return Ok(vec![
-            gram_pass(s, true, vec![s.outcome_term.clone()])?.pass,
+            first,
             complement_pass(s, &m)?.pass,
             scores_pass(s, &m, &m, &m)?.pass,
         ]);
     }
     // Cross-fitting: each segment's propensity on all its rows (Newton), then the fits leaving
     // one fold out (scores only; full Newton passes only if those do not settle).
-    let whole = per_segment(&segs, &vec![vec![0.0; s.terms.len() + 1]; segs.len()]);
     Ok(vec![
-        gram_pass(s, true, vec![s.outcome_term.clone()])?.pass,
+        first,
         by_fold_pass(s, &whole)?.pass,
         scores_pass_only(s, &m)?.pass,
         scores_pass(s, &m, &m, &m)?.pass,
@@ -72,9 +76,15 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     names.push(spec.outcome.clone());
     let mut terms = s.terms.clone();
     terms.push(s.outcome_term.clone());
-    let gp = gram_pass(s, true, vec![s.outcome_term.clone()])?;
-    let g = ask(r, &gp)?;
-    let comp = complement_moments(s, &gp.layout, &g, &names, &terms, true)?;
+    // The outcome models' Gram sums come from the propensity's first pass.
+    let first = start_with_gram(s, r, std::slice::from_ref(&s.outcome_term))?;
+    let comp = complement_moments(
+        s,
+        GramRows::Riding(&first.layout),
+        &first.sums,
+        &names,
+        &terms,
+    )?;
     let x: Vec<usize> = (0..p).collect();
     let segs: Vec<Vec<KeyValue>> = comp.iter().map(|c| c.0.clone()).collect();
     let mut coef1 = Vec::new();
@@ -102,7 +112,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
     }
     // Propensity: nseg × k models. With cross-fitting, each segment's model is first fitted on
     // all its rows, and the fold-leaving-out fits step from it with that fit's curvature.
-    let ecoef = cross_fitted_propensity(s, r, &segs)?;
+    let ecoef = cross_fitted_propensity(s, r, first)?;
     let sp = scores_pass(
         s,
         &fold_models(s, &segs, &ecoef),

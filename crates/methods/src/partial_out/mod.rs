@@ -10,7 +10,7 @@
 mod passes;
 
 use crate::combine::{segment, Part};
-use crate::crossfit::{complement_moments, fit_label, gram_pass, row_design};
+use crate::crossfit::{complement_moments, fit_label, gram_pass, row_design, GramRows};
 use crate::models::{fold_models, placeholder};
 use crate::prepare::Setup;
 use crate::read::{keys, row_of};
@@ -91,7 +91,7 @@ pub(crate) fn run(s: &Setup, r: &mut dyn Runner) -> Result<Outcome, MethodError>
         vec![s.treatment_term.clone(), s.outcome_term.clone()],
     )?;
     let g = ask(r, &gp)?;
-    let comp = complement_moments(s, &gp.layout, &g, &names, &terms, false)?;
+    let comp = complement_moments(s, GramRows::Keyed(&gp.layout, false), &g, &names, &terms)?;
     let x: Vec<usize> = (0..p).collect();
     let segs: Vec<Vec<KeyValue>> = comp.iter().map(|c| c.0.clone()).collect();
     let (mut ct, mut cy) = (Vec::new(), Vec::new());

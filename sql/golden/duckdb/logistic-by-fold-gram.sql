@@ -1,0 +1,78 @@
+SELECT
+  k0,
+  f,
+  t,
+  n,
+  n1,
+  u0,
+  u1,
+  u2,
+  list_extract(moments0, 1) AS h0_0,
+  list_extract(moments0, 2) AS h0_1,
+  list_extract(moments0, 3) AS h0_2,
+  list_extract(moments0, 4) AS h1_1,
+  list_extract(moments0, 5) AS h1_2,
+  list_extract(moments0, 6) AS h2_2,
+  loglik,
+  min_p,
+  max_p,
+  list_extract(moments1, 2) AS s0,
+  list_extract(moments1, 3) AS s1,
+  list_extract(moments1, 4) AS s2,
+  list_extract(moments1, 5) AS g0_0,
+  list_extract(moments1, 6) AS g0_1,
+  list_extract(moments1, 7) AS g0_2,
+  list_extract(moments1, 8) AS g1_1,
+  list_extract(moments1, 9) AS g1_2,
+  list_extract(moments1, 10) AS g2_2
+FROM
+  (
+    SELECT
+      k0,
+      f,
+      t,
+      COUNT(*) AS n,
+      SUM(t) AS n1,
+      SUM((t - p)) AS u0,
+      SUM((t - p) * v0) AS u1,
+      SUM((t - p) * v1) AS u2,
+      upshot_moments(p * (1.0 - p), v0, v1) AS moments0,
+      SUM(t * eta - CASE WHEN eta > 0 THEN eta + LN(1.0 + EXP(-eta)) ELSE LN(1.0 + EXP(eta)) END) AS loglik,
+      MIN(p) AS min_p,
+      MAX(p) AS max_p,
+      upshot_moments(1.0, v0, v1, v2) AS moments1
+    FROM
+      (
+        SELECT
+          *,
+          CASE
+            WHEN eta >= 0 THEN
+              1.0 / (1.0 + EXP(-eta))
+            ELSE
+              EXP(eta) / (1.0 + EXP(eta))
+          END AS p
+        FROM
+          (
+            SELECT
+              *,
+              upshot_linear([0.1, 0.2, 0.3], v0, v1) AS eta
+            FROM
+              (
+                SELECT
+                  "tenure_band" AS k0,
+                  ((((((((CAST("customer_id" % 2147483647 AS BIGINT) + 2147483647) % 2147483647) * 48271 + 11) % 2147483647) * ((((CAST("customer_id" % 2147483647 AS BIGINT) + 2147483647) % 2147483647) * 48271 + 11) % 2147483647)) % 2147483647) * 16807 + ((((CAST("customer_id" % 2147483647 AS BIGINT) + 2147483647) % 2147483647) * 48271 + 11) % 2147483647)) % 2147483647) % 2 AS f,
+                  (CAST("prior orders" AS DOUBLE) - 2.5) / 1.5 AS v0,
+                  (((CAST("prior orders" AS DOUBLE) - 2.5) / 1.5) * ((CAST("prior orders" AS DOUBLE) - 2.5) / 1.5) - 1.0) / 1.0 AS v1,
+                  (CAST("spend_30d" AS DOUBLE) - 40.0) / 12.0 AS v2,
+                  CAST("voucher" AS DOUBLE) AS t,
+                  CAST("spend_30d" AS DOUBLE) AS y
+                FROM
+                  "customers" AS src
+                WHERE
+                  true AND "tenure_band" IS NOT NULL AND "prior orders" IS NOT NULL AND "spend_30d" IS NOT NULL AND "voucher" IS NOT NULL AND "customer_id" IS NOT NULL
+              ) AS rows_
+          ) AS linear_
+      ) AS fitted_
+    GROUP BY
+      k0, f, t
+  ) AS sums_ ORDER BY k0, f, t
