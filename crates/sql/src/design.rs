@@ -976,4 +976,27 @@ mod tests {
         assert_eq!(fold_of(-7, 5), fold_of(i128::from(FOLD_PRIME - 7), 5));
         assert_eq!(fold_of(12345, 1), 0);
     }
+
+    /// A block of products over fewer terms than the design (a Newton block beside a Gram block
+    /// that adds the outcome) calls the fused aggregate on its own terms and reads its own
+    /// triangle; a block over no terms is written as plain sums.
+    #[test]
+    fn products_blocks_span_their_own_terms() {
+        let f = Flavor::duckdb();
+        let outs = [
+            Out::Products(products_of("w", "h", 1)),
+            Out::Products(products_of("q", "z", 0)),
+            Out::Products(products_of("1.0", "g", 2)),
+        ];
+        let sql = aggregate(&f, 2, &[], &outs, "rows_");
+        assert!(sql.contains("upshot_moments(w, v0) AS moments0"), "{sql}");
+        assert!(sql.contains("SUM(q) AS z0_0"), "{sql}");
+        assert!(
+            sql.contains("upshot_moments(1.0, v0, v1) AS moments1"),
+            "{sql}"
+        );
+        // h1_1 is the third entry of a 2 × 2 triangle; g2_2 the sixth of a 3 × 3 one.
+        assert!(sql.contains("list_extract(moments0, 3) AS h1_1"), "{sql}");
+        assert!(sql.contains("list_extract(moments1, 6) AS g2_2"), "{sql}");
+    }
 }
