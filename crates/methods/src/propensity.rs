@@ -327,9 +327,12 @@ pub(crate) struct Started {
     /// Its result rows: one per segment, fold and arm.
     pub sums: Aggregates,
     pub layout: LogisticGramLayout,
-    /// The coefficients each segment's fit was evaluated at; `None` when a segment had no
-    /// model in the pass (the warm start's sample lacked it), so the fit starts over from zero.
-    starts: Option<Vec<Vec<f64>>>,
+    /// Each segment's starting coefficients: its warm start's, or zero.
+    starts: Vec<Vec<f64>>,
+    /// Whether the pass evaluated every segment's fit at `starts`, so that it is the fits'
+    /// first Newton pass; not where a segment had no model in it (the warm start's sample
+    /// lacked it), and the fits then begin with a pass of their own.
+    evaluated: bool,
 }
 
 /// Runs [`first_pass_with_gram`] from the warm start where there is one, from zero otherwise.
@@ -350,16 +353,19 @@ pub(crate) fn start_with_gram(
         .into_iter()
         .map(|x| x.0)
         .collect();
-    let starts = match &warm {
-        Some(w) if segs.iter().all(|key| w.segs.contains(key)) => Some(w.starts(&segs, k)),
-        Some(_) => None,
-        None => Some(vec![vec![0.0; k]; segs.len()]),
+    let (starts, evaluated) = match &warm {
+        Some(w) => (
+            w.starts(&segs, k),
+            segs.iter().all(|key| w.segs.contains(key)),
+        ),
+        None => (vec![vec![0.0; k]; segs.len()], true),
     };
     Ok(Started {
         segs,
         sums,
         layout: pass.layout,
         starts,
+        evaluated,
     })
 }
 
@@ -385,12 +391,10 @@ fn newton_complements(
     let param = param_names(s);
     let kp = s.terms.len() + 1;
     let (starts, mut cached) = match first {
-        Some(Started {
-            sums,
-            layout,
-            starts: Some(starts),
-            ..
-        }) if !needs_folds(spec) => (starts, Some((sums, layout.logistic))),
+        Some(f) if !needs_folds(spec) => {
+            let cached = f.evaluated.then_some((f.sums, f.layout.logistic));
+            (f.starts, cached)
+        }
         _ => (vec![vec![0.0; kp]; segs.len() * k], None),
     };
     let fits = logit_many_from(
@@ -475,10 +479,10 @@ fn shared_curvature_complements(
     // first pass (grouped by arm too) is the one the Gram sums rode in, unless a segment had
     // no model there.
     let names = param_names(s);
-    let (starts, mut cached) = match first.starts {
-        Some(starts) => (starts, Some((first.sums, first.layout.logistic))),
-        None => (vec![vec![0.0; kp]; segs.len()], None),
-    };
+    let starts = first.starts;
+    let mut cached = first
+        .evaluated
+        .then_some((first.sums, first.layout.logistic));
     let mut last: Option<(Aggregates, LogisticLayout)> = None;
     let full = logit_many_from(
         &names,
